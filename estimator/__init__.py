@@ -1,0 +1,6 @@
+"""socfuse.estimator: what the BMS believes.
+
+Coulomb counting with OCV reseed (the baseline), the EKF on compiled kernels, a sigma-point
+filter through filterpy, an RTS smoother, noise tuning, consistency tests, the posterior
+Cramer-Rao bound, energy-based SOC, the benchmark harness, reports, C export and the CLI.
+"""

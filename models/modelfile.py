@@ -1,0 +1,169 @@
+"""Cell-model JSON files (schema ``socfuse.cell-model/1``).
+
+Layout::
+
+    {
+      "schema": "socfuse.cell-model/1",
+      "name": "...",
+      "capacity_ah": 4.8,
+      "coulombic_efficiency": 0.998,
+      "v_min_v": 2.5, "v_max_v": 4.2,
+      "ocv": {"soc": [...], "ocv_v": [...] or [[...], ...], "temperature_c": null or [...],
+              "source": "..."},
+      "r0_ohm": {"soc": [...], "values": [...] or [[...]], "temperature_c": null or [...]},
+      "rc_pairs": [{"r_ohm": {table}, "tau_s": {table}}, ...],
+      "hysteresis": null or {"gamma": 50.0, "max_v": 0.01},
+      "provenance": {"ocv": {"file": ..., "test": ..., "residual_v": ...}, ...}
+    }
+
+Unknown keys are refused at every level, listing the valid ones, so a typo never silently
+drops a parameter.
+"""
+from __future__ import annotations
+
+import json
+import math
+import os
+from pathlib import Path
+
+import numpy as np
+
+from .ocv import OcvCurve
+from .tables import ParamTable
+from .thevenin import CellModel, Hysteresis, RcPair
+
+__all__ = ["MODEL_SCHEMA", "ModelFileError", "model_to_dict", "model_from_dict", "save_model", "load_model"]
+
+MODEL_SCHEMA = "socfuse.cell-model/1"
+
+
+class ModelFileError(ValueError):
+    """A cell-model file that cannot be read; the message names the file and the key."""
+
+
+_TOP = {"schema", "name", "capacity_ah", "coulombic_efficiency", "v_min_v", "v_max_v", "ocv", "r0_ohm",
+        "rc_pairs", "hysteresis", "provenance"}
+_REQUIRED = {"schema", "capacity_ah", "ocv", "r0_ohm"}
+_OCV = {"soc", "ocv_v", "temperature_c", "source"}
+_TABLE = {"soc", "values", "temperature_c"}
+_PAIR = {"r_ohm", "tau_s"}
+_HYST = {"gamma", "max_v"}
+
+
+def _list(a):
+    return None if a is None else np.asarray(a).tolist()
+
+
+def _table(t: ParamTable) -> dict:
+    v = t.values[0] if t.values.shape[0] == 1 and t.temperature_c is None else t.values
+    return {"soc": _list(t.soc), "values": _list(v), "temperature_c": _list(t.temperature_c)}
+
+
+def _jsonable(x):
+    """Provenance values as plain JSON (numpy scalars/arrays converted, NaN -> null)."""
+    if isinstance(x, dict):
+        return {str(k): _jsonable(v) for k, v in x.items()}
+    if isinstance(x, (list, tuple)):
+        return [_jsonable(v) for v in x]
+    if isinstance(x, np.ndarray):
+        return _jsonable(x.tolist())
+    if isinstance(x, (np.floating, float)):
+        return None if not math.isfinite(float(x)) else float(x)
+    if isinstance(x, np.integer):
+        return int(x)
+    if isinstance(x, os.PathLike):
+        return os.fspath(x)
+    return x
+
+
+def model_to_dict(model: CellModel) -> dict:
+    """The model as a JSON-ready dict."""
+    ocv = model.ocv
+    ocv_v = ocv.ocv_v[0] if ocv.temperature_c is None else ocv.ocv_v
+    return {
+        "schema": MODEL_SCHEMA,
+        "name": model.name,
+        "capacity_ah": float(model.capacity_ah),
+        "coulombic_efficiency": float(model.coulombic_efficiency),
+        "v_min_v": float(model.v_min_v),
+        "v_max_v": float(model.v_max_v),
+        "ocv": {"soc": _list(ocv.soc), "ocv_v": _list(ocv_v), "temperature_c": _list(ocv.temperature_c),
+                "source": ocv.source},
+        "r0_ohm": _table(model.r0_ohm),
+        "rc_pairs": [{"r_ohm": _table(p.r_ohm), "tau_s": _table(p.tau_s)} for p in model.rc],
+        "hysteresis": None if model.hysteresis is None else
+        {"gamma": float(model.hysteresis.gamma), "max_v": float(model.hysteresis.max_v)},
+        "provenance": _jsonable(model.provenance),
+    }
+
+
+def _check_keys(d, allowed, where, required=()):
+    if not isinstance(d, dict):
+        raise ModelFileError(f"{where}: expected an object, got {type(d).__name__}")
+    unknown = sorted(set(d) - set(allowed))
+    if unknown:
+        raise ModelFileError(f"{where}: unknown key(s) {', '.join(map(repr, unknown))}; "
+                             f"valid keys are {', '.join(sorted(allowed))}")
+    missing = sorted(set(required) - set(d))
+    if missing:
+        raise ModelFileError(f"{where}: missing key(s) {', '.join(missing)}")
+
+
+def _read_table(d, where, name) -> ParamTable:
+    _check_keys(d, _TABLE, where, required=("soc", "values"))
+    try:
+        return ParamTable(d["soc"], d["values"], d.get("temperature_c"), name=name)
+    except (ValueError, TypeError) as e:
+        raise ModelFileError(f"{where}: {e}") from None
+
+
+def model_from_dict(d: dict, where: str = "cell model") -> CellModel:
+    """Build a :class:`CellModel` from a dict read from JSON, validating every key."""
+    _check_keys(d, _TOP, where, required=_REQUIRED)
+    if d["schema"] != MODEL_SCHEMA:
+        raise ModelFileError(f"{where}: schema is {d['schema']!r}, expected {MODEL_SCHEMA!r}")
+    o = d["ocv"]
+    _check_keys(o, _OCV, f"{where}: ocv", required=("soc", "ocv_v"))
+    try:
+        ocv = OcvCurve(o["soc"], o["ocv_v"], o.get("temperature_c"), o.get("source", "") or "")
+    except (ValueError, TypeError) as e:
+        raise ModelFileError(f"{where}: ocv: {e}") from None
+    r0 = _read_table(d["r0_ohm"], f"{where}: r0_ohm", "r0_ohm")
+    pairs = []
+    for j, p in enumerate(d.get("rc_pairs") or []):
+        _check_keys(p, _PAIR, f"{where}: rc_pairs[{j}]", required=_PAIR)
+        pairs.append(RcPair(_read_table(p["r_ohm"], f"{where}: rc_pairs[{j}].r_ohm", f"r{j + 1}_ohm"),
+                            _read_table(p["tau_s"], f"{where}: rc_pairs[{j}].tau_s", f"tau{j + 1}_s")))
+    hy = d.get("hysteresis")
+    if hy is not None:
+        _check_keys(hy, _HYST, f"{where}: hysteresis", required=_HYST)
+    try:
+        return CellModel(
+            capacity_ah=float(d["capacity_ah"]), ocv=ocv, r0_ohm=r0, rc=tuple(pairs),
+            coulombic_efficiency=float(d.get("coulombic_efficiency", 1.0)),
+            hysteresis=None if hy is None else Hysteresis(float(hy["gamma"]), float(hy["max_v"])),
+            v_min_v=float(d.get("v_min_v", 2.5)), v_max_v=float(d.get("v_max_v", 4.2)),
+            name=str(d.get("name", "") or ""), provenance=d.get("provenance") or {})
+    except (ValueError, TypeError) as e:
+        raise ModelFileError(f"{where}: {e}") from None
+
+
+def save_model(model: CellModel, path) -> Path:
+    """Write the model JSON to ``path`` (written to a temporary file, then renamed)."""
+    path = Path(path)
+    tmp = path.with_name(path.name + ".tmp")
+    tmp.write_text(json.dumps(model_to_dict(model), indent=1) + "\n")
+    os.replace(tmp, path)
+    return path
+
+
+def load_model(path) -> CellModel:
+    """Read and validate a cell-model JSON file."""
+    path = Path(path)
+    try:
+        d = json.loads(path.read_text())
+    except FileNotFoundError:
+        raise ModelFileError(f"{path}: no such file") from None
+    except json.JSONDecodeError as e:
+        raise ModelFileError(f"{path}: not valid JSON (line {e.lineno}, column {e.colno}: {e.msg})") from None
+    return model_from_dict(d, where=str(path))
