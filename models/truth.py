@@ -190,8 +190,9 @@ class SensorErrors:
 
 #: No measurement error at all.
 IDEAL_SENSORS = SensorErrors()
-#: A lab cycler channel (invented figures): 0.1 mV voltage resolution, 1 mA current resolution.
-LAB_SENSORS = SensorErrors(offset_a=0.002, gain=1.0005, current_noise_a=0.001, current_quant_a=0.001,
+#: A lab cycler channel on its low current range (invented figures): 0.1 mV voltage resolution,
+#: 1 mA current resolution.
+LAB_SENSORS = SensorErrors(offset_a=0.0003, gain=1.0002, current_noise_a=0.0005, current_quant_a=0.001,
                            voltage_offset_v=0.0, voltage_noise_v=0.0003, voltage_quant_v=0.0001,
                            temperature_offset_c=0.2, temperature_noise_c=0.05, temperature_quant_c=0.1)
 #: The tricycle's pack BMS seen per cell (invented): the pack shunt offset of 60 mA and its 40 mA
