@@ -64,9 +64,10 @@ def open_client(workers: int | None = None, scheduler: str | None = None, proces
         return
     if int(workers) < 1:
         raise ClusterError(f"--workers must be at least 1, got {workers}")
+    # processes talk TCP on the loopback interface only; thread workers use the in-process transport
+    net = {"host": "127.0.0.1"} if processes else {}
     cluster = distributed.LocalCluster(n_workers=int(workers), threads_per_worker=int(threads_per_worker),
-                                       processes=processes, host="127.0.0.1", dashboard_address=None,
-                                       silence_logs=40)
+                                       processes=processes, dashboard_address=None, silence_logs=40, **net)
     client = distributed.Client(cluster)
     try:
         yield client
