@@ -192,7 +192,7 @@ class SensorErrors:
 IDEAL_SENSORS = SensorErrors()
 #: A lab cycler channel on its low current range (invented figures): 0.1 mV voltage resolution,
 #: 1 mA current resolution.
-LAB_SENSORS = SensorErrors(offset_a=0.0003, gain=1.0002, current_noise_a=0.0005, current_quant_a=0.001,
+LAB_SENSORS = SensorErrors(offset_a=0.00005, gain=1.0002, current_noise_a=0.0005, current_quant_a=0.001,
                            voltage_offset_v=0.0, voltage_noise_v=0.0003, voltage_quant_v=0.0001,
                            temperature_offset_c=0.2, temperature_noise_c=0.05, temperature_quant_c=0.1)
 #: The tricycle's pack BMS seen per cell (invented): the pack shunt offset of 60 mA and its 40 mA
@@ -336,6 +336,19 @@ def _truth_kernel(t, i, temp, n_sub, out_idx, soc0, h0, vrc0, res_soc, r_tab, ta
 
 
 # ============================================================================ simulation
+def _kernel_params(params: TruthParams, capacity_scale: float = 1.0) -> tuple:
+    """The parameter arguments of :func:`_truth_kernel` after the initial state."""
+    two = params.n_rc == 2
+    r_tab = np.array([params.r1_ohm] + ([params.r2_ohm] if two else []), dtype=float)
+    tau_tab = np.array([params.tau1_s] + ([params.tau2_s] if two else []), dtype=float)
+    e_r = np.array([params.r1_activation_k] + ([params.r2_activation_k] if two else []), dtype=float)
+    e_tau = np.full(params.n_rc, float(params.tau_activation_k))
+    return (np.asarray(params.res_soc, dtype=float), r_tab, tau_tab, e_r, e_tau,
+            params.capacity_ah * capacity_scale * SECONDS_PER_HOUR, float(params.capacity_temp_coeff_per_c),
+            float(params.t_ref_c), float(params.coulombic_efficiency), float(params.hysteresis_gamma),
+            params.hysteresis_max_v > 0)
+
+
 @dataclass(frozen=True, eq=False)
 class TruthTrace:
     """True signals at the output sample times (arrays of length N; ``v_rc`` shape (N, n_rc))."""
@@ -437,17 +450,9 @@ def simulate_truth(time_s, current_a, temperature_c=25.0, soc0: float = 1.0, sen
     else:
         n_sub = np.maximum(1, np.ceil(dt / internal_dt_s - 1e-9)).astype(np.int64)
     n_rc = params.n_rc
-    r_tab = np.array([params.r1_ohm] + ([params.r2_ohm] if n_rc == 2 else []), dtype=float)
-    tau_tab = np.array([params.tau1_s] + ([params.tau2_s] if n_rc == 2 else []), dtype=float)
-    e_r = np.array([params.r1_activation_k] + ([params.r2_activation_k] if n_rc == 2 else []), dtype=float)
-    e_tau = np.full(n_rc, float(params.tau_activation_k))
     vrc0 = np.zeros(n_rc) if v_rc0 is None else np.asarray(v_rc0, dtype=float).reshape(n_rc)
-    cap_as = params.capacity_ah * capacity_scale * SECONDS_PER_HOUR
     soc, v_rc, h = _truth_kernel(grid, gi, gT, n_sub, idx.astype(np.int64), float(soc0), float(h0), vrc0,
-                                 np.asarray(params.res_soc, dtype=float), r_tab, tau_tab, e_r, e_tau,
-                                 cap_as, float(params.capacity_temp_coeff_per_c), float(params.t_ref_c),
-                                 float(params.coulombic_efficiency), float(params.hysteresis_gamma),
-                                 params.hysteresis_max_v > 0)
+                                 *_kernel_params(params, capacity_scale))
     i_s = gi[idx]
     T_s = gT[idx]
     ocv = truth_ocv_curve(params).voltage(soc, T_s)
@@ -564,14 +569,45 @@ def _first_crossing_s(profile: Profile, params: TruthParams, start_s: float, lim
     return float(ts[int(np.argmax(hit))])
 
 
+def _cv_hold(params: TruthParams, truth_end: TruthTrace, temperature_c: float, v_hold_v: float,
+             i_start_a: float, i_end_a: float, max_s: float = 6 * 3600.0) -> np.ndarray:
+    """Currents (A, one per second) of a cycler holding the terminal voltage at ``v_hold_v``.
+
+    Each second the channel sets the current that puts the present terminal voltage at the
+    hold value, ``i = (OCV + M h - sum v_rc - v_hold) / R0`` (limited to the CC current), and
+    the cell is propagated over that second on 0.1 s sub-steps; it stops when ``|i|`` falls to
+    ``i_end_a``.
+    """
+    kp = _kernel_params(params)
+    ocv = truth_ocv_curve(params)
+    z, h = float(truth_end.soc[-1]), float(truth_end.h[-1])
+    vrc = np.array(truth_end.v_rc[-1], dtype=float)
+    tt = np.array([0.0, 1.0])
+    temp = np.full(2, float(temperature_c))
+    n_sub = np.array([10], dtype=np.int64)
+    out = np.array([1], dtype=np.int64)
+    r0_factor = float(arrhenius_factor(temperature_c, params.r0_activation_k, params.t_ref_c))
+    cur = []
+    for _ in range(int(max_s)):
+        r0 = float(np.interp(z, params.res_soc, params.r0_ohm)) * r0_factor
+        emf = float(ocv.voltage(z, temperature_c)) + params.hysteresis_max_v * h - vrc.sum()
+        i = min(max((emf - v_hold_v) / r0, -abs(i_start_a)), 0.0)
+        cur.append(i)
+        if abs(i) <= i_end_a:
+            break
+        zs, vs, hs = _truth_kernel(tt, np.array([i, i]), temp, n_sub, out, z, h, vrc, *kp)
+        z, h, vrc = float(zs[0]), float(hs[0]), np.array(vs[0])
+    return np.asarray(cur)
+
+
 def c20_test_profile(params: TruthParams = C48_TRUTH, temperature_c: float = 25.0) -> Profile:
     """C/20 discharge then C/20 charge of one cell (pseudo-OCV and capacity test).
 
     Schedule (invented lab practice in the common C/20 pattern): start full and rested (SOC 1,
     h = +1 after the charge), 30 min rest, discharge at C/20 (0.24 A) to the 2.5 V cut-off, rest 2 h,
-    charge at C/20 to 4.2 V (no constant-voltage phase), rest 1 h.  Logged every 10 s and at
-    each step change.  The steps end at the first whole second at which the true terminal voltage
-    reaches the limit.
+    charge at C/20 to 4.2 V, hold 4.2 V until the current falls to C/50 (constant-voltage phase),
+    rest 1 h.  Logged every 10 s and at each step change.  The constant-current steps end at the
+    first whole second at which the true terminal voltage reaches the limit.
     """
     i20 = params.capacity_ah / 20.0
     name = f"c48_c20_{int(round(temperature_c)):02d}degC"
@@ -593,14 +629,25 @@ def c20_test_profile(params: TruthParams = C48_TRUTH, temperature_c: float = 25.
     p = trial.profile(temperature_c, 1.0, 1.0, name, "")
     t_full = _first_crossing_s(p, params, t_chg + 60, params.v_max_v, below=False)
     sched.add(t_full - t_chg, -i20)
-    sched.add(3600, 0.0)
-    return sched.profile(
-        temperature_c, 1.0, 1.0, name,
-        f"C/20 ({i20:.2f} A) discharge to {params.v_min_v} V and C/20 charge to {params.v_max_v} V "
-        f"at {temperature_c:g} degC, rests of 30 min, 2 h and 1 h; logged every 10 s",
+    cc = sched.profile(temperature_c, 1.0, 1.0, name, "")
+    _, end = simulate_profile(replace(cc, sample_time_s=np.array([0.0, t_full])), params=params)
+    cv = _cv_hold(params, end, temperature_c, params.v_max_v, i20, params.capacity_ah / 50.0)
+    k_cv = np.arange(cv.size, dtype=float)
+    t_cv_end = t_full + cv.size - 1
+    rest_end = t_cv_end + 3600.0
+    knots_t = np.concatenate([cc.time_s[:-1], t_full + k_cv, [t_cv_end + 0.1, rest_end]])
+    knots_i = np.concatenate([cc.current_a[:-1], cv, [0.0, 0.0]])
+    samples = np.concatenate([cc.sample_time_s, np.arange(t_full, t_cv_end, 10.0), [t_cv_end],
+                              np.arange(t_cv_end + 0.1, rest_end, 10.0), [rest_end]])
+    samples = np.unique(np.round(samples, 1))
+    charged = (i20 * (t_full - t_chg) - float(np.sum(0.5 * (cv[1:] + cv[:-1])))) / SECONDS_PER_HOUR
+    return Profile(
+        np.round(knots_t, 1), knots_i, np.full(knots_t.size, float(temperature_c)), samples, 1.0, 1.0, name,
+        f"C/20 ({i20:.2f} A) discharge to {params.v_min_v} V and C/20 charge to {params.v_max_v} V with a "
+        f"constant-voltage hold to C/50, at {temperature_c:g} degC, rests of 30 min, 2 h and 1 h; logged every 10 s",
         {"discharge_start_s": t_dis, "discharge_end_s": t_cut, "charge_start_s": t_chg,
-         "charge_end_s": t_full, "discharged_ah": i20 * (t_cut - t_dis) / SECONDS_PER_HOUR,
-         "charged_ah": i20 * (t_full - t_chg) / SECONDS_PER_HOUR})
+         "cv_start_s": t_full, "charge_end_s": t_cv_end, "discharged_ah": i20 * (t_cut - t_dis) / SECONDS_PER_HOUR,
+         "charged_ah": float(charged)})
 
 
 def pulse_test_profile(temperature_c: float = 25.0, params: TruthParams = C48_TRUTH) -> Profile:
@@ -740,7 +787,8 @@ def delivery_day_profile(kind: str = "lunch", seed: int = DEMO_SEED, params: Tru
     limited to ``peak_c``),
     cruising with per-second fluctuation and a pedal-assist ripple at the pedalling cadence
     (1.0-1.4 Hz), climbs, descents with regeneration, traffic stops with regenerative braking
-    (regen up to 0.5C), parked dwells at about 0.01C (lights, display, BMS).  Kinds:
+    (regen up to 0.5C, blocked by the BMS above 98 % SOC and ramped in down to 94 %), parked
+    dwells at about 0.01C (lights, display, BMS).  Kinds:
 
     - ``"lunch"``: from 100 %, 3.5 h morning route, a 45-60 min lunch break with the pack off,
       3 h afternoon route, 17 -> 24 degC ambient; uses 75 % of the charge;
@@ -781,23 +829,27 @@ def delivery_day_profile(kind: str = "lunch", seed: int = DEMO_SEED, params: Tru
     a_th = math.exp(-_DT / 600.0)
     from scipy.signal import lfilter
 
-    def build(scale, peak_c):
+    def build(scale, peak_c, soc_est):
         # cruising and climbing scale with the day's load; launch bursts keep their level
         cur_c = np.minimum(np.where(is_burst, trac, trac * scale), peak_c)
-        cur_c = np.where(regen < 0, regen, cur_c)
+        # the BMS blocks regeneration near full charge: none above 98 % SOC, full below 94 %
+        derate = np.clip((0.98 - soc_est) / 0.04, 0.0, 1.0)
+        cur_c = np.where(regen < 0, regen * derate, cur_c)
         i = cur_c * c
         heat = i * i * 0.05  # W, i^2 times a typical total resistance
         temp = ambient + 8.0 * lfilter([1 - a_th], [1, -a_th], heat, zi=[0.0])[0]
         return Profile(t, i, temp, sample_t, cfg["soc0"], 1.0, name, "", {})
 
     scale, peak = 1.0, cfg["peak_c"]
+    soc_est = np.full(t.size, cfg["soc0"])
     for _ in range(30):
         for _it in range(6):
-            p = build(scale, peak)
+            p = build(scale, peak, soc_est)
             _, tr = simulate_profile(p, params=params)
             used = cfg["soc0"] - tr.soc[-1]
             scale *= cfg["target"] / used
-        p = build(scale, peak)
+            soc_est = np.interp(t, tr.time_s, tr.soc)
+        p = build(scale, peak, soc_est)
         _, tr = simulate_profile(p, params=params)
         if tr.voltage_true.min() > params.v_min_v + 0.3:
             break

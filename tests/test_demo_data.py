@@ -51,7 +51,7 @@ def test_sign_convention_and_c20_capacity(frames):
     # the discharge ends at the 2.5 V cut-off (NMC cut-off, common practice, no source)
     assert d["voltage_v"].min() == pytest.approx(2.5, abs=0.002)
     # discharged charge by the trapezoid rule (scipy.integrate.trapezoid) ~ 4.8 Ah
-    # (the measured current carries the lab channel's 0.02 % gain and 0.3 mA offset)
+    # (the measured current carries the lab channel's 0.02 % gain and 0.05 mA offset)
     t, i = d["time_s"].to_numpy(), d["current_a"].to_numpy()
     seg = np.flatnonzero(dis.to_numpy())
     ah = trapezoid(i[seg[0] - 1:seg[-1] + 2], t[seg[0] - 1:seg[-1] + 2]) / 3600.0

@@ -8,7 +8,7 @@ import pytest
 
 import models
 from models.truth import (C48_TRUTH, FLEET_SENSORS, SensorErrors, arrhenius_factor, c20_test_profile,
-                          pulse_test_profile, simulate_truth, truth_cell_model)
+                          pulse_test_profile, simulate_profile, simulate_truth, truth_cell_model)
 
 ONE_RC = replace(C48_TRUTH, r2_ohm=(), tau2_s=(), hysteresis_max_v=0.0)
 
@@ -102,6 +102,14 @@ def test_c20_profile_reaches_cutoff_near_empty_and_pulse_pattern():
     # C/20 of a 4.8 Ah cell is 0.24 A (definition of the C-rate; common practice, no source)
     assert np.max(p.current_a) == pytest.approx(0.24)
     assert p.info["discharged_ah"] == pytest.approx(C48_TRUTH.capacity_ah, rel=0.005)
+    # constant-voltage phase: the terminal voltage is held at 4.2 V until the current is C/50
+    _, tr = simulate_profile(p)
+    cv = (tr.time_s >= p.info["cv_start_s"]) & (tr.time_s <= p.info["charge_end_s"])
+    assert np.all(np.abs(tr.voltage_true[cv] - 4.2) < 1e-3) and cv.sum() > 5
+    assert abs(tr.current_a[cv][-1]) == pytest.approx(4.8 / 50, rel=0.02)
+    # coulombic efficiency = charge out / charge in over a full cycle (its definition): the truth's 0.998
+    assert p.info["discharged_ah"] / p.info["charged_ah"] == pytest.approx(0.998, abs=2e-4)
+    assert tr.soc[-1] == pytest.approx(1.0, abs=1e-3)
     hp = pulse_test_profile(25.0)
     starts = [q["start_s"] for q in hp.info["pulses"]]
     k = np.searchsorted(hp.time_s, starts[1])
