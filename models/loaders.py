@@ -1,0 +1,611 @@
+"""Load recordings from CSV, Parquet and MATLAB ``.mat`` files into :class:`~models.recording.Recording`.
+
+What labs and fleets produce rarely has our canonical columns (DESIGN.md section 3: ``time_s``,
+``current_a``, ``voltage_v``, optional ``temperature_c`` and ``soc_ref``).  A :class:`ColumnMap`
+says which source column is which, in which unit, and which sign the file uses for discharge;
+:func:`load_recording` reads the file, converts to SI units and the socfuse sign (current
+positive on discharge) and validates every row.
+
+Rules (the same for every format):
+
+- Required columns: time, current, voltage.  A missing column is refused, listing the columns
+  the file has.  Temperature and ``soc_ref`` are optional: taken when present under the
+  canonical name, required when named explicitly.
+- A missing, NaN or non-numeric value in a used column is refused with the file, column and
+  row (CSV: data row counted from 1 after the header, and the 1-based line of the file;
+  .mat/Parquet: 1-based row).  Nothing is silently turned into NaN.
+- Rows whose time repeats the previous row's time exactly are dropped (the first is kept)
+  and counted in ``metadata["duplicates_dropped"]``; time that goes backwards is refused.
+- Intervals longer than ``gap_factor`` (default 5) median sample intervals are reported in
+  ``metadata["gaps"]`` as ``(time_s, length_s)`` pairs (time of the sample before the gap).
+- Other numeric columns are kept, unconverted (the file's own units and sign), in
+  ``metadata["extras"]``: a dict of read-only float arrays aligned with the recording (so the
+  energy module can compare with a cycler Wh counter).  Blank cells there are NaN.
+- A lab SOC reference can be derived from a cycler amp-hour counter::
+
+      soc_ref = soc0 + s * (Ah - Ah_0) / capacity_ah
+
+  with ``s = +1`` when the counter goes negative on discharge (as in the Panasonic 18650PF
+  files) and ``s = -1`` when it counts discharged charge upwards.  Only the change of the
+  counter is used, so a counter that does not start at 0 is fine.
+"""
+from __future__ import annotations
+
+import csv
+import io
+import math
+from dataclasses import asdict, dataclass, fields, replace
+from pathlib import Path
+from typing import Any, Mapping
+
+import numpy as np
+
+from .recording import Recording, RecordingError
+
+__all__ = [
+    "ColumnMap", "PRESETS", "make_column_map", "load_recording", "read_table", "RawTable",
+    "CANONICAL_COLUMNS",
+]
+
+CANONICAL_COLUMNS = ("time_s", "current_a", "voltage_v", "temperature_c", "soc_ref")
+
+_CURRENT_UNITS = {"a": 1.0, "ma": 1e-3}
+_VOLTAGE_UNITS = {"v": 1.0, "mv": 1e-3}
+_TIME_UNITS = {"s": 1.0, "ms": 1e-3, "min": 60.0, "h": 3600.0, "iso": None}
+_AH_UNITS = {"ah": 1.0, "mah": 1e-3}
+_SUFFIXES = {".csv": "csv", ".txt": "csv", ".tsv": "csv", ".parquet": "parquet", ".pq": "parquet",
+             ".mat": "mat"}
+_SEPARATORS = (",", ";", "\t")
+
+
+@dataclass(frozen=True)
+class ColumnMap:
+    """Where the recording's quantities are in a source file, and in which units and sign.
+
+    Parameters
+    ----------
+    time, current, voltage : str, optional
+        Source column (or .mat struct field) names.  ``None`` means the canonical name
+        (``time_s``, ``current_a``, ``voltage_v``).
+    temperature, soc_ref : str, optional
+        Source names of the cell temperature (degC) and lab SOC reference (fraction 0..1).
+        ``None``: use ``temperature_c`` / ``soc_ref`` when the file has them.  A name given
+        here is required to exist.
+    ah_counter : str, optional
+        Source name of a cycler amp-hour counter.  Kept in ``metadata["extras"]``; with
+        ``ref_capacity_ah`` and ``ref_soc0`` it yields ``soc_ref``.
+    time_unit : {"s", "ms", "min", "h", "iso"}
+        ``iso``: ISO 8601 timestamps (or datetime values), converted to seconds after the
+        first row.  Numeric times keep their origin.
+    current_unit : {"A", "mA"}
+    voltage_unit : {"V", "mV"}
+    ah_unit : {"Ah", "mAh"}
+    discharge_negative : bool
+        True when the file logs discharge current as negative (most cyclers); the loader
+        flips it to the socfuse convention (positive on discharge).
+    ah_discharge_negative : bool, optional
+        Sign of the amp-hour counter; ``None`` = same as the current in the file.
+    ref_capacity_ah : float, optional
+        Reference capacity (Ah, > 0) for deriving ``soc_ref`` from the counter.
+    ref_soc0 : float, optional
+        SOC (fraction) at the first row, for deriving ``soc_ref``.
+    name : str, optional
+        Recording name; default: the file name without suffix.
+    separator : str, optional
+        CSV field separator; ``None`` = detect among ``,`` ``;`` and tab.
+    decimal : {".", ","}
+        CSV decimal mark.
+    mat_struct : str, optional
+        Name of the .mat variable holding the struct; ``None`` = the only struct in the file,
+        or the top-level variables as columns when there is no struct.
+    gap_factor : float
+        An interval longer than this many median intervals is reported as a gap.
+    """
+
+    time: str | None = None
+    current: str | None = None
+    voltage: str | None = None
+    temperature: str | None = None
+    soc_ref: str | None = None
+    ah_counter: str | None = None
+    time_unit: str = "s"
+    current_unit: str = "A"
+    voltage_unit: str = "V"
+    ah_unit: str = "Ah"
+    discharge_negative: bool = False
+    ah_discharge_negative: bool | None = None
+    ref_capacity_ah: float | None = None
+    ref_soc0: float | None = None
+    name: str | None = None
+    separator: str | None = None
+    decimal: str = "."
+    mat_struct: str | None = None
+    gap_factor: float = 5.0
+
+    def __post_init__(self) -> None:
+        for attr, table in (("time_unit", _TIME_UNITS), ("current_unit", _CURRENT_UNITS),
+                            ("voltage_unit", _VOLTAGE_UNITS), ("ah_unit", _AH_UNITS)):
+            if str(getattr(self, attr)).lower() not in table:
+                raise RecordingError(f"{attr} {getattr(self, attr)!r} is not one of "
+                                     f"{', '.join(sorted(table))}")
+        if self.decimal not in (".", ","):
+            raise RecordingError(f"decimal must be '.' or ',', not {self.decimal!r}")
+        if self.separator is not None and len(self.separator) != 1:
+            raise RecordingError(f"separator must be one character, not {self.separator!r}")
+        if self.decimal == "," and self.separator == ",":
+            raise RecordingError("decimal ',' and separator ',' together are ambiguous; use separator ';'")
+        if self.ref_capacity_ah is not None and not (math.isfinite(self.ref_capacity_ah)
+                                                     and self.ref_capacity_ah > 0):
+            raise RecordingError(f"ref_capacity_ah must be a positive number, not {self.ref_capacity_ah!r}")
+        if self.ref_soc0 is not None and not (0.0 <= self.ref_soc0 <= 1.0):
+            raise RecordingError(f"ref_soc0 is a fraction 0..1, not {self.ref_soc0!r}")
+        if (self.ref_capacity_ah is None) != (self.ref_soc0 is None):
+            raise RecordingError("a SOC reference from the amp-hour counter needs both ref_capacity_ah "
+                                 "and ref_soc0")
+        if self.ref_capacity_ah is not None:
+            if self.ah_counter is None:
+                raise RecordingError("ref_capacity_ah given but no amp-hour counter column (ah_counter)")
+            if self.soc_ref is not None:
+                raise RecordingError("give either a soc_ref column or an amp-hour counter with "
+                                     "ref_capacity_ah, not both")
+        if not (self.gap_factor > 1.0):
+            raise RecordingError(f"gap_factor must be > 1, not {self.gap_factor!r}")
+
+    # resolved source names ------------------------------------------------
+    @property
+    def time_col(self) -> str:
+        return self.time or "time_s"
+
+    @property
+    def current_col(self) -> str:
+        return self.current or "current_a"
+
+    @property
+    def voltage_col(self) -> str:
+        return self.voltage or "voltage_v"
+
+    def to_dict(self) -> dict:
+        """Plain dict of the options (for metadata and reports)."""
+        return asdict(self)
+
+
+#: Ready-made mappings for public dataset layouts.
+PRESETS: dict[str, dict[str, Any]] = {
+    # Kollmeyer, "Panasonic 18650PF Li-ion Battery Data", Mendeley Data 2018,
+    # doi:10.17632/wykht8y7tg.1: struct ``meas`` of (N,1) fields; discharge negative; the
+    # Ah counter goes negative on discharge.
+    "panasonic-18650pf": dict(time="Time", current="Current", voltage="Voltage",
+                              temperature="Battery_Temp_degC", ah_counter="Ah", time_unit="s",
+                              current_unit="A", voltage_unit="V", ah_unit="Ah",
+                              discharge_negative=True, mat_struct="meas"),
+}
+
+_FIELD_NAMES = tuple(f.name for f in fields(ColumnMap))
+
+
+def make_column_map(preset: str | None = None, mapping: ColumnMap | None = None, **options) -> ColumnMap:
+    """Build a :class:`ColumnMap` from a preset and/or a base mapping, then ``options``.
+
+    Later sources win: preset < ``mapping`` < keyword options.  Options set to ``None`` are
+    ignored (so argparse defaults do not override a preset).  Unknown option names are
+    refused, listing the valid ones.
+    """
+    unknown = sorted(k for k in options if k not in _FIELD_NAMES)
+    if unknown:
+        raise RecordingError(f"unknown loader option(s) {', '.join(unknown)}; valid: {', '.join(_FIELD_NAMES)}")
+    base: dict[str, Any] = {}
+    if preset is not None:
+        if preset not in PRESETS:
+            raise RecordingError(f"unknown preset {preset!r}; known: {', '.join(sorted(PRESETS))}")
+        base.update(PRESETS[preset])
+    if mapping is not None:
+        base.update({k: v for k, v in asdict(mapping).items() if v != getattr(ColumnMap, k, None)})
+    base.update({k: v for k, v in options.items() if v is not None})
+    return ColumnMap(**base)
+
+
+# ----------------------------------------------------------------------------- raw tables
+@dataclass(frozen=True, eq=False)
+class RawTable:
+    """Columns as read from a file, before mapping.
+
+    ``columns`` maps each source name to a 1-D array (strings for CSV, the stored dtype
+    otherwise); ``row_labels(k)`` says how to name data row ``k`` (0-based) in messages.
+    """
+
+    path: str
+    fmt: str
+    columns: Mapping[str, np.ndarray]
+    file_lines: np.ndarray | None = None   # CSV: 1-based file line of each data row
+    info: Mapping[str, Any] | None = None
+
+    @property
+    def n(self) -> int:
+        return len(next(iter(self.columns.values()))) if self.columns else 0
+
+    def where(self, k: int) -> str:
+        if self.file_lines is not None:
+            return f"data row {k + 1} (file line {int(self.file_lines[k])})"
+        return f"row {k + 1}"
+
+
+def _decode(raw: bytes) -> str:
+    if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
+        return raw.decode("utf-16")
+    raw = raw.replace(b"\x00", b"")
+    for enc in ("utf-8-sig", "cp1252", "latin-1"):
+        try:
+            return raw.decode(enc)
+        except UnicodeDecodeError:
+            continue
+    return raw.decode("latin-1", errors="replace")  # pragma: no cover - latin-1 never fails
+
+
+def _split(line: str, sep: str) -> list[str]:
+    return [f.strip().strip('"').strip() for f in next(csv.reader([line], delimiter=sep))]
+
+
+def _is_number(s: str) -> bool:
+    try:
+        float(s.replace(",", "."))
+        return True
+    except ValueError:
+        return False
+
+
+def _find_header(lines: list[str], wanted: tuple[str, ...], sep: str | None, path: str, decimal: str = ".",
+                 max_scan: int = 200):
+    """Index, separator and names of the header row: the first line holding the wanted names.
+
+    When no line holds all of them, the line holding most of them (or else the first
+    line that looks like a header) is returned, so the caller can list what exists.
+    """
+    seps = (sep,) if sep else tuple(s for s in _SEPARATORS if not (decimal == "," and s == ","))
+    best = None  # (score, index, sep, names)
+    for idx, line in enumerate(lines[:max_scan]):
+        if not line.strip():
+            continue
+        for s in seps:
+            if s not in line and len(seps) > 1:
+                continue
+            names = _split(line, s)
+            score = sum(1 for w in wanted if w in names)
+            if score == len(wanted):
+                return idx, s, names, True
+            looks = len([n for n in names if n]) >= 2 and not all(_is_number(n) for n in names if n)
+            if (score > 0 or looks) and (best is None or score > best[0]):
+                best = (score, idx, s, names)
+    if best is None:
+        raise RecordingError(f"{path}: no header row found in the first {min(len(lines), max_scan)} lines "
+                             f"(looked for columns {', '.join(wanted)})")
+    return best[1], best[2], best[3], False
+
+
+def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
+    raw = path.read_bytes()
+    nul = raw.count(b"\x00")
+    text = _decode(raw)
+    lines = text.splitlines()
+    if not text.strip():
+        raise RecordingError(f"{path}: the file is empty")
+    wanted = (cmap.time_col, cmap.current_col, cmap.voltage_col)
+    hidx, sep, names, complete = _find_header(lines, wanted, cmap.separator, str(path), cmap.decimal)
+    if not complete:
+        missing = [w for w in wanted if w not in names]
+        raise RecordingError(f"{path}: column {', '.join(repr(m) for m in missing)} not found; the header "
+                             f"(file line {hidx + 1}) has columns {', '.join(repr(n) for n in names if n)}")
+    body = lines[hidx + 1:]
+    reader = csv.reader(body, delimiter=sep)
+    rows, line_no = [], []
+    width = len(names)
+    for j, rec in enumerate(reader):
+        if not any(f.strip() for f in rec):
+            continue
+        if len(rec) > width and any(f.strip() for f in rec[width:]):
+            raise RecordingError(f"{path}: data row {len(rows) + 1} (file line {hidx + 2 + j}) has "
+                                 f"{len(rec)} fields, the header has {width}")
+        rec = (rec + [""] * width)[:width]
+        rows.append(rec)
+        line_no.append(hidx + 2 + j)
+    if not rows:
+        raise RecordingError(f"{path}: no data rows after the header (file line {hidx + 1})")
+    grid = np.array(rows, dtype=object)
+    cols: dict[str, np.ndarray] = {}
+    for c, nm in enumerate(names):
+        if not nm:
+            if all(not str(v).strip() for v in grid[:, c]):
+                continue  # trailing separator
+            nm = f"column_{c + 1}"
+        if nm in cols:
+            raise RecordingError(f"{path}: column {nm!r} appears twice in the header (file line {hidx + 1})")
+        cols[nm] = grid[:, c]
+    info = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul,
+            "preamble_lines": hidx}
+    return RawTable(str(path), "csv", cols, np.asarray(line_no), info)
+
+
+def _read_parquet(path: Path, cmap: ColumnMap) -> RawTable:
+    try:
+        import pyarrow.parquet as pq
+    except ImportError as e:
+        raise RecordingError(f"{path}: reading Parquet needs pyarrow: pip install socfuse[parquet]") from e
+    try:
+        df = pq.read_table(path).to_pandas()
+    except Exception as e:  # pyarrow raises its own types for corrupt files
+        raise RecordingError(f"{path}: not a readable Parquet file ({e})") from e
+    cols = {str(c): df[c].to_numpy() for c in df.columns}
+    if not cols or len(df) == 0:
+        raise RecordingError(f"{path}: the file is empty (no rows)")
+    return RawTable(str(path), "parquet", cols, None, {})
+
+
+def _read_mat(path: Path, cmap: ColumnMap) -> RawTable:
+    import scipy.io as sio
+
+    try:
+        data = sio.loadmat(path, squeeze_me=False, struct_as_record=True)
+    except NotImplementedError as e:
+        raise RecordingError(f"{path}: MATLAB v7.3 (HDF5) files are not supported; save with -v7") from e
+    except Exception as e:
+        raise RecordingError(f"{path}: not a readable MATLAB file ({e})") from e
+    variables = {k: v for k, v in data.items() if not k.startswith("__")}
+    if not variables:
+        raise RecordingError(f"{path}: the file is empty (no variables)")
+    structs = {k: v for k, v in variables.items() if isinstance(v, np.ndarray) and v.dtype.names}
+    if cmap.mat_struct is not None:
+        if cmap.mat_struct not in structs:
+            raise RecordingError(f"{path}: no struct {cmap.mat_struct!r}; variables: "
+                                 f"{', '.join(sorted(variables))}")
+        chosen = cmap.mat_struct
+    elif len(structs) == 1:
+        chosen = next(iter(structs))
+    elif len(structs) > 1:
+        raise RecordingError(f"{path}: several structs ({', '.join(sorted(structs))}); choose one with mat_struct")
+    else:
+        chosen = None
+    if chosen is not None:
+        s = structs[chosen]
+        if s.size != 1:
+            raise RecordingError(f"{path}: struct {chosen!r} is an array of {s.size} structs; expected one")
+        rec = s.reshape(-1)[0]
+        src = {f: rec[f] for f in s.dtype.names}
+    else:
+        src = variables
+    cols = {}
+    for k, v in src.items():
+        a = np.asarray(v)
+        if a.ndim == 2 and 1 in a.shape:
+            a = a.reshape(-1)
+        if a.ndim != 1:
+            continue  # not a column vector: not a recording column
+        if a.dtype == object:
+            a = np.array([_mat_scalar(x) for x in a], dtype=object)
+        cols[str(k)] = a
+    tcol = cmap.time_col
+    if tcol in cols:
+        n = cols[tcol].size
+        cols = {k: a for k, a in cols.items() if a.size == n}
+    if not cols or max(a.size for a in cols.values()) == 0:
+        raise RecordingError(f"{path}: the file is empty (no column vectors)")
+    return RawTable(str(path), "mat", cols, None, {"mat_struct": chosen})
+
+
+def _mat_scalar(x):
+    """Unwrap MATLAB cell contents (nested 1-element arrays) to a Python scalar or string."""
+    while isinstance(x, np.ndarray):
+        if x.size != 1:
+            return "" if x.size == 0 else str(x.tolist())
+        x = x.reshape(-1)[0]
+    return x
+
+
+def read_table(path, cmap: ColumnMap | None = None) -> RawTable:
+    """Read a file's columns without mapping them (for tools that list what a file holds)."""
+    p = Path(path)
+    cmap = cmap or ColumnMap()
+    if not p.exists():
+        raise FileNotFoundError(f"{p}: no such file")
+    if p.is_dir():
+        raise RecordingError(f"{p}: is a folder, not a recording file")
+    fmt = _SUFFIXES.get(p.suffix.lower())
+    if fmt is None:
+        raise RecordingError(f"{p}: unknown file type {p.suffix!r}; expected one of "
+                             f"{', '.join(sorted(_SUFFIXES))}")
+    if p.stat().st_size == 0:
+        raise RecordingError(f"{p}: the file is empty")
+    return {"csv": _read_csv, "parquet": _read_parquet, "mat": _read_mat}[fmt](p, cmap)
+
+
+# ----------------------------------------------------------------------------- conversion
+def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = True) -> np.ndarray | None:
+    """Column ``name`` as float; refuse (or, ``required=False``, give None for) bad values."""
+    import pandas as pd
+
+    a = table.columns[name]
+    if a.dtype.kind in "fiub":
+        vals = a.astype(float)
+        text_bad = np.zeros(vals.size, dtype=bool)
+        blank = ~np.isfinite(vals) if a.dtype.kind == "f" else np.zeros(vals.size, dtype=bool)
+        if a.dtype.kind == "f":
+            blank &= ~np.isinf(vals)
+    elif a.dtype.kind in "Mm":
+        if required:
+            raise RecordingError(f"{table.path}: column {name!r} holds dates or durations; "
+                                 "for time use the time unit 'iso'")
+        return None
+    else:
+        s = pd.Series(a, dtype=object).map(lambda x: "" if x is None else str(x).strip())
+        if decimal == ",":
+            s = s.str.replace(",", ".", regex=False)
+        blank = (s == "").to_numpy() | s.str.lower().isin(["nan", "na", "n/a", "null", "none"]).to_numpy()
+        vals = pd.to_numeric(s.where(~blank, None), errors="coerce").to_numpy(dtype=float)
+        text_bad = ~np.isfinite(vals) & ~blank
+        text_bad &= ~np.isinf(vals)
+    inf = np.isinf(vals)
+    if not required:
+        if np.any(text_bad | inf):
+            return None
+        return vals
+    if np.any(blank):
+        k = int(np.argmax(blank))
+        raise RecordingError(f"{table.path}: column {name!r} has a missing value at {table.where(k)}")
+    if np.any(text_bad | inf):
+        k = int(np.argmax(text_bad | inf))
+        raise RecordingError(f"{table.path}: column {name!r} has a non-numeric value "
+                             f"{str(a[k]).strip()!r} at {table.where(k)}")
+    return vals
+
+
+def _time_seconds(table: RawTable, cmap: ColumnMap) -> tuple[np.ndarray, dict]:
+    import pandas as pd
+
+    name = cmap.time_col
+    a = table.columns[name]
+    unit = cmap.time_unit.lower()
+    if unit != "iso" and a.dtype.kind not in "M":
+        return _numeric(table, name, cmap.decimal) * _TIME_UNITS[unit], {}
+    if a.dtype.kind == "M":
+        ts = pd.to_datetime(pd.Series(a), utc=True)
+        bad_blank = ts.isna().to_numpy()
+        text_bad = np.zeros_like(bad_blank)
+    else:
+        s = pd.Series(a, dtype=object).map(lambda x: "" if x is None else str(x).strip())
+        blank = (s == "").to_numpy()
+        ts = pd.to_datetime(s.where(~blank, None), utc=True, errors="coerce", format="ISO8601")
+        bad_blank = blank
+        text_bad = ts.isna().to_numpy() & ~blank
+    if np.any(bad_blank):
+        k = int(np.argmax(bad_blank))
+        raise RecordingError(f"{table.path}: column {name!r} has a missing timestamp at {table.where(k)}")
+    if np.any(text_bad):
+        k = int(np.argmax(text_bad))
+        raise RecordingError(f"{table.path}: column {name!r} has a value that is not an ISO timestamp "
+                             f"{str(a[k]).strip()!r} at {table.where(k)}")
+    t0 = ts.iloc[0]
+    secs = ((ts - t0).dt.total_seconds()).to_numpy(dtype=float)
+    return secs, {"time_origin": t0.isoformat()}
+
+
+def _require(table: RawTable, name: str) -> None:
+    if name not in table.columns:
+        have = ", ".join(repr(c) for c in table.columns)
+        raise RecordingError(f"{table.path}: column {name!r} not found; the file has columns {have}")
+
+
+def find_gaps(time_s: np.ndarray, factor: float = 5.0) -> list[tuple[float, float]]:
+    """Intervals longer than ``factor`` median intervals, as ``(time_s, length_s)`` pairs."""
+    t = np.asarray(time_s, dtype=float)
+    if t.size < 3:
+        return []
+    d = np.diff(t)
+    med = float(np.median(d))
+    idx = np.flatnonzero(d > factor * med)
+    return [(float(t[k]), float(d[k])) for k in idx]
+
+
+def recording_from_table(table: RawTable, cmap: ColumnMap) -> Recording:
+    """Map, convert and validate a :class:`RawTable` into a :class:`Recording`."""
+    path = table.path
+    for nm in (cmap.time_col, cmap.current_col, cmap.voltage_col):
+        _require(table, nm)
+    for nm in (cmap.temperature, cmap.soc_ref, cmap.ah_counter):
+        if nm is not None:
+            _require(table, nm)
+    if table.n == 0:
+        raise RecordingError(f"{path}: no data rows")
+    time_s, tinfo = _time_seconds(table, cmap)
+    sign = -1.0 if cmap.discharge_negative else 1.0
+    current_a = _numeric(table, cmap.current_col, cmap.decimal) * _CURRENT_UNITS[cmap.current_unit.lower()] * sign + 0.0
+    voltage_v = _numeric(table, cmap.voltage_col, cmap.decimal) * _VOLTAGE_UNITS[cmap.voltage_unit.lower()]
+    temp_name = cmap.temperature or ("temperature_c" if "temperature_c" in table.columns else None)
+    temperature_c = None if temp_name is None else _numeric(table, temp_name, cmap.decimal)
+    soc_name = cmap.soc_ref or ("soc_ref" if "soc_ref" in table.columns and cmap.ref_capacity_ah is None
+                                else None)
+    soc_ref = None if soc_name is None else _numeric(table, soc_name, cmap.decimal)
+    soc_source = None if soc_name is None else f"column {soc_name}"
+    ah = None
+    if cmap.ah_counter is not None:
+        ah = _numeric(table, cmap.ah_counter, cmap.decimal) * _AH_UNITS[cmap.ah_unit.lower()]
+    if cmap.ref_capacity_ah is not None:
+        neg = cmap.discharge_negative if cmap.ah_discharge_negative is None else cmap.ah_discharge_negative
+        s = 1.0 if neg else -1.0
+        soc_ref = cmap.ref_soc0 + s * (ah - ah[0]) / cmap.ref_capacity_ah
+        soc_source = (f"amp-hour counter {cmap.ah_counter}, capacity {cmap.ref_capacity_ah:g} Ah, "
+                      f"soc0 {cmap.ref_soc0:g}")
+
+    # time order: refuse going backwards, drop exact repeats
+    d = np.diff(time_s)
+    if np.any(d < 0):
+        k = int(np.argmax(d < 0)) + 1
+        raise RecordingError(f"{path}: column {cmap.time_col!r} decreases at {table.where(k)} "
+                             f"({time_s[k - 1]:g} s then {time_s[k]:g} s)")
+    keep = np.concatenate([[True], d > 0])
+    n_dup = int(np.count_nonzero(~keep))
+    if keep.sum() < 2:
+        raise RecordingError(f"{path}: only {int(keep.sum())} distinct time stamp(s); a recording needs at "
+                             "least 2 rows")
+
+    used = {cmap.time_col, cmap.current_col, cmap.voltage_col, temp_name, soc_name}
+    extras = {}
+    for nm in table.columns:
+        if nm in used:
+            continue
+        vals = _numeric(table, nm, cmap.decimal, required=False)
+        if vals is None or not np.any(np.isfinite(vals)):
+            continue
+        v = vals[keep].copy()
+        v.setflags(write=False)
+        extras[nm] = v
+    k_ = lambda a: None if a is None else a[keep]  # noqa: E731
+    meta = {
+        "source": path,
+        "format": table.fmt,
+        "mapping": cmap.to_dict(),
+        "rows_read": int(table.n),
+        "duplicates_dropped": n_dup,
+        "duplicate_rows": [table.where(int(k)) for k in np.flatnonzero(~keep)[:20]],
+        "gaps": find_gaps(time_s[keep], cmap.gap_factor),
+        "extras": extras,
+        "soc_ref_source": soc_source,
+        "temperature_column": temp_name,
+        "ah_counter_column": cmap.ah_counter,
+        **tinfo,
+        **(table.info or {}),
+    }
+    name = cmap.name if cmap.name is not None else Path(path).stem
+    return Recording(time_s[keep], current_a[keep], voltage_v[keep], k_(temperature_c), k_(soc_ref),
+                     name=name, metadata=meta)
+
+
+def load_recording(path, mapping: ColumnMap | None = None, *, preset: str | None = None,
+                   **options) -> Recording:
+    """Load one recording file (.csv/.txt/.tsv, .parquet/.pq, .mat) into a :class:`Recording`.
+
+    Parameters
+    ----------
+    path : str or Path
+        The file; the suffix chooses the reader.
+    mapping : ColumnMap, optional
+        Column names, units and sign.  Default: the canonical columns of DESIGN.md section 3.
+    preset : str, optional
+        A ready-made mapping from :data:`PRESETS` (e.g. ``"panasonic-18650pf"``).
+    **options
+        Any :class:`ColumnMap` field, overriding the preset and ``mapping``.
+
+    Returns
+    -------
+    Recording
+        SI units, current positive on discharge; ``metadata`` holds ``source``, ``format``,
+        ``mapping``, ``rows_read``, ``duplicates_dropped``, ``gaps`` [(time_s, length_s)],
+        ``extras`` {name: array}, ``soc_ref_source`` and reader details.
+
+    Raises
+    ------
+    RecordingError
+        Bad input, naming the file, the column and the row.
+    FileNotFoundError
+        No such file.
+    """
+    cmap = make_column_map(preset=preset, mapping=mapping, **options)
+    table = read_table(path, cmap)
+    return recording_from_table(table, cmap)
