@@ -59,7 +59,7 @@ __all__ = [
     "TruthParams", "C48_TRUTH", "SensorErrors", "IDEAL_SENSORS", "LAB_SENSORS", "FLEET_SENSORS",
     "TruthTrace", "Profile", "arrhenius_factor", "truth_ocv_curve", "truth_cell_model", "simulate_truth",
     "simulate_profile", "c20_test_profile", "pulse_test_profile", "delivery_day_profile", "DAY_KINDS",
-    "DEMO_SEED", "DEMO_FILES", "demo_file_specs", "generate_demo_data", "write_recording_csv",
+    "DEMO_SEED", "DEMO_FILES", "MANIFEST_SCHEMA", "demo_file_specs", "generate_demo_data", "write_recording_csv",
 ]
 
 KELVIN = 273.15
@@ -920,20 +920,38 @@ def _sampling_summary(t: np.ndarray) -> dict:
     return {"min_s": float(dt.min()), "median_s": float(np.median(dt)), "max_s": float(dt.max())}
 
 
-def generate_demo_data(out_dir, seed: int = DEMO_SEED, files=None, params: TruthParams = C48_TRUTH) -> list[Path]:
+MANIFEST_SCHEMA = "socfuse.demo-manifest/1"
+
+
+def _ours(folder: Path) -> bool:
+    """True when ``folder/manifest.json`` was written by :func:`generate_demo_data`."""
+    import json
+
+    try:
+        return json.loads((folder / "manifest.json").read_text()).get("schema") == MANIFEST_SCHEMA
+    except (OSError, ValueError, AttributeError):
+        return False
+
+
+def generate_demo_data(out_dir, seed: int = DEMO_SEED, files=None, params: TruthParams = C48_TRUTH,
+                       overwrite: bool = False) -> list[Path]:
     """Write the demo recordings and ``manifest.json`` into ``out_dir``; deterministic for a seed.
 
     Parameters
     ----------
     out_dir : path
-        Target folder (created if missing).  Existing demo files of the same names are replaced
-        (each written to a temporary name first, then renamed).
+        Target folder (created if missing).  Files of the same names are replaced only when the
+        folder already holds a demo manifest written by this function, or with ``overwrite``;
+        otherwise ``FileExistsError`` (a user's file is never overwritten by surprise).  Each file
+        is written to a temporary name first, then renamed.
     seed : int
         Route and noise seed (:data:`DEMO_SEED` for the bundled data).
     files : iterable of str, optional
         A subset of :data:`DEMO_FILES` (default all).
     params : TruthParams
         Truth parameters (default :data:`C48_TRUTH`).
+    overwrite : bool
+        Replace existing files of the same names even without a demo manifest.
 
     Returns
     -------
@@ -943,14 +961,18 @@ def generate_demo_data(out_dir, seed: int = DEMO_SEED, files=None, params: Truth
     import json
 
     out = Path(out_dir)
-    out.mkdir(parents=True, exist_ok=True)
     specs = demo_file_specs(seed)
     wanted = list(DEMO_FILES) if files is None else list(files)
     unknown = [f for f in wanted if f not in specs]
     if unknown:
         raise ValueError(f"unknown demo file(s) {unknown}; valid names are {', '.join(DEMO_FILES)}")
+    clash = [f for f in wanted + ["manifest.json"] if (out / f).exists()]
+    if clash and not overwrite and not _ours(out):
+        raise FileExistsError(f"{out}: {', '.join(clash)} already exist(s) and the folder holds no demo "
+                              "manifest; choose an empty folder or pass overwrite=True")
+    out.mkdir(parents=True, exist_ok=True)
     manifest = {
-        "schema": "socfuse.demo-manifest/1",
+        "schema": MANIFEST_SCHEMA,
         "generator": "models.truth.generate_demo_data",
         "seed": int(seed),
         "note": "demo cell C48 is invented; every truth parameter below is invented, not measured",

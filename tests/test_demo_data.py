@@ -88,3 +88,11 @@ def test_regenerating_one_file_reproduces_the_bundled_one(tmp_path, frames):
         # a different CPU or library build may flip a rare rounding by one quantum
         assert np.allclose(a, b, rtol=0, atol=0.0011), c
         assert np.mean(a == b) > 0.999, c
+
+
+def test_generator_never_overwrites_a_foreign_file(tmp_path):
+    user_file = tmp_path / "c48_day_lunch.csv"
+    user_file.write_text("my own measurements\n")
+    with pytest.raises(FileExistsError, match="c48_day_lunch.csv"):
+        generate_demo_data(tmp_path, files=["c48_day_lunch.csv"])
+    assert user_file.read_text() == "my own measurements\n"
