@@ -1,0 +1,117 @@
+"""Helpers for curves identified on a dense SOC grid: monotone projection and breakpoint choice.
+
+- :func:`isotonic_increasing`: least-squares projection of a sampled curve onto non-decreasing
+  sequences by the pool-adjacent-violators algorithm (Ayer, Brunk, Ewing, Reid and Silverman,
+  Ann. Math. Statist. 26, 1955; Barlow et al., "Statistical inference under order
+  restrictions", 1972), then a tiny ramp so the result is strictly increasing.
+- :func:`greedy_breakpoints`: choose ``n`` breakpoints where the curve bends by greedy
+  max-error insertion: start from the two ends, interpolate the breakpoints with PCHIP (the
+  interpolant :class:`models.OcvCurve` uses), insert the grid point with the largest absolute
+  error, repeat.  This is the classic adaptive piecewise-polynomial refinement (as in the
+  Douglas-Peucker polyline simplification, Cartographica 10, 1973, applied to the interpolant's
+  error rather than the chord distance).
+"""
+from __future__ import annotations
+
+import numpy as np
+from scipy.interpolate import PchipInterpolator
+
+from ..ocv import OcvCurve
+
+__all__ = ["isotonic_increasing", "greedy_breakpoints", "curve_from_dense", "MIN_STEP_V"]
+
+#: smallest voltage step between neighbouring breakpoints after the monotone projection (V)
+MIN_STEP_V = 1e-5
+
+
+def isotonic_increasing(y, weights=None, min_step: float = 0.0) -> np.ndarray:
+    """Weighted least-squares non-decreasing fit to ``y`` (pool adjacent violators).
+
+    Parameters
+    ----------
+    y : array_like (n,)
+    weights : array_like (n,), optional
+        Positive weights (default 1).
+    min_step : float
+        After the projection, a ramp makes every step at least ``min_step`` (the result is then
+        strictly increasing when ``min_step > 0``).
+
+    Returns
+    -------
+    ndarray (n,)
+    """
+    y = np.asarray(y, dtype=float)
+    w = np.ones_like(y) if weights is None else np.asarray(weights, dtype=float)
+    vals: list[float] = []
+    wts: list[float] = []
+    cnt: list[int] = []
+    for yi, wi in zip(y, w):
+        vals.append(yi)
+        wts.append(wi)
+        cnt.append(1)
+        while len(vals) > 1 and vals[-2] > vals[-1]:
+            v2, w2, c2 = vals.pop(), wts.pop(), cnt.pop()
+            v1, w1, c1 = vals.pop(), wts.pop(), cnt.pop()
+            wsum = w1 + w2
+            vals.append((v1 * w1 + v2 * w2) / wsum)
+            wts.append(wsum)
+            cnt.append(c1 + c2)
+    out = np.repeat(np.array(vals), np.array(cnt))
+    if min_step > 0 and out.size > 1:
+        # lift plateaus into gentle ramps: each step at least min_step
+        steps = np.maximum(np.diff(out), min_step)
+        out = out[0] + np.concatenate([[0.0], np.cumsum(steps)])
+        out += float(np.mean(y) - np.mean(out))  # keep the level unbiased
+    return out
+
+
+def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0) -> np.ndarray:
+    """Indices into ``grid`` of ``n_breakpoints`` breakpoints chosen by greedy max-error insertion.
+
+    Parameters
+    ----------
+    grid : ndarray (m,)
+        Strictly increasing abscissa (SOC).
+    values : ndarray (m,)
+        Strictly increasing curve values.
+    n_breakpoints : int
+        Number of breakpoints wanted (>= 2, at most m).
+    tol_v : float
+        Stop early once the PCHIP interpolant of the breakpoints is within ``tol_v`` of the curve.
+
+    Returns
+    -------
+    ndarray of int, sorted
+    """
+    grid = np.asarray(grid, dtype=float)
+    values = np.asarray(values, dtype=float)
+    m = grid.size
+    n = int(min(max(n_breakpoints, 2), m))
+    chosen = [0, m - 1]
+    while len(chosen) < n:
+        idx = np.array(sorted(chosen))
+        f = PchipInterpolator(grid[idx], values[idx])
+        err = np.abs(f(grid) - values)
+        err[idx] = -1.0
+        k = int(np.argmax(err))
+        if err[k] <= tol_v:
+            break
+        chosen.append(k)
+    return np.array(sorted(chosen))
+
+
+def curve_from_dense(grid, values, n_breakpoints: int, source: str, tol_v: float = 0.0):
+    """An :class:`~models.OcvCurve` from a dense curve: monotone projection, then breakpoints.
+
+    Returns
+    -------
+    curve : OcvCurve
+    max_error_v : float
+        Largest absolute difference between the curve's PCHIP and the monotone dense curve (V).
+    """
+    grid = np.asarray(grid, dtype=float)
+    mono = isotonic_increasing(values, min_step=MIN_STEP_V)
+    idx = greedy_breakpoints(grid, mono, n_breakpoints, tol_v)
+    curve = OcvCurve(grid[idx], mono[idx], source=source)
+    err = float(np.max(np.abs(curve.voltage(grid) - mono)))
+    return curve, err
