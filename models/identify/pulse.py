@@ -404,6 +404,7 @@ class PulseTestResult:
     source: str
     notes: tuple = ()
     soc: np.ndarray = field(default=None, repr=False)
+    recording: Recording | None = field(default=None, repr=False)
 
     @property
     def n_levels(self) -> int:
@@ -610,7 +611,7 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
             if vals:
                 pf.r0_ohm[n_rc] = float(np.mean(vals))
     rs, rv, _ = rest_points(rec, soc, threshold_a, rest_min_s, gap_s)
-    return PulseTestResult(tuple(fits_out), float(temperature_c), soc_label, rs, rv, where, tuple(notes), soc)
+    return PulseTestResult(tuple(fits_out), float(temperature_c), soc_label, rs, rv, where, tuple(notes), soc, rec)
 
 
 # ============================================================================ model order and tables
