@@ -71,7 +71,8 @@ def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
                    help="CSV numbers use a decimal comma (then fields are separated by ; or tab)")
     g.add_argument("--mat-struct", dest="map_mat_struct", default=None, metavar="NAME",
                    help=".mat variable holding the struct of columns (default: the only struct)")
-    g.add_argument("--name", dest="map_name", default=None, help="recording name (default: the file name)")
+    g.add_argument("--recording-name", dest="map_name", default=None, metavar="NAME",
+                   help="recording name used in reports (default: the file name)")
     return parser
 
 

@@ -273,8 +273,15 @@ def _find_header(lines: list[str], wanted: tuple[str, ...], sep: str | None, pat
             if score == len(wanted):
                 return idx, s, names, True
             looks = len([n for n in names if n]) >= 2 and not all(_is_number(n) for n in names if n)
-            if (score > 0 or looks) and (best is None or score > best[0]):
-                best = (score, idx, s, names)
+            if not (score > 0 or looks):
+                continue
+            # a header is followed by a numeric row of the same width
+            nxt = next((ln for ln in lines[idx + 1:idx + 4] if ln.strip()), "")
+            vals = _split(nxt, s) if nxt else []
+            follows = len(vals) == len(names) and sum(_is_number(v) for v in vals if v) >= len(vals) / 2
+            key = (score, follows)
+            if best is None or key > best[0]:
+                best = (key, idx, s, names)
     if best is None:
         raise RecordingError(f"{path}: no header row found in the first {min(len(lines), max_scan)} lines "
                              f"(looked for columns {', '.join(wanted)})")
@@ -292,7 +299,7 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
     hidx, sep, names, complete = _find_header(lines, wanted, cmap.separator, str(path), cmap.decimal)
     if not complete:
         missing = [w for w in wanted if w not in names]
-        raise RecordingError(f"{path}: column {', '.join(repr(m) for m in missing)} not found; the header "
+        raise RecordingError(f"{path}: column(s) {', '.join(repr(m) for m in missing)} not found; the header "
                              f"(file line {hidx + 1}) has columns {', '.join(repr(n) for n in names if n)}")
     body = lines[hidx + 1:]
     reader = csv.reader(body, delimiter=sep)
@@ -486,10 +493,12 @@ def _time_seconds(table: RawTable, cmap: ColumnMap) -> tuple[np.ndarray, dict]:
     return secs, {"time_origin": t0.isoformat()}
 
 
-def _require(table: RawTable, name: str) -> None:
-    if name not in table.columns:
+def _require(table: RawTable, names) -> None:
+    missing = [n for n in names if n is not None and n not in table.columns]
+    if missing:
         have = ", ".join(repr(c) for c in table.columns)
-        raise RecordingError(f"{table.path}: column {name!r} not found; the file has columns {have}")
+        raise RecordingError(f"{table.path}: column(s) {', '.join(repr(m) for m in missing)} not found; "
+                             f"the file has columns {have}")
 
 
 def find_gaps(time_s: np.ndarray, factor: float = 5.0) -> list[tuple[float, float]]:
@@ -506,11 +515,8 @@ def find_gaps(time_s: np.ndarray, factor: float = 5.0) -> list[tuple[float, floa
 def recording_from_table(table: RawTable, cmap: ColumnMap) -> Recording:
     """Map, convert and validate a :class:`RawTable` into a :class:`Recording`."""
     path = table.path
-    for nm in (cmap.time_col, cmap.current_col, cmap.voltage_col):
-        _require(table, nm)
-    for nm in (cmap.temperature, cmap.soc_ref, cmap.ah_counter):
-        if nm is not None:
-            _require(table, nm)
+    _require(table, (cmap.time_col, cmap.current_col, cmap.voltage_col, cmap.temperature, cmap.soc_ref,
+                     cmap.ah_counter))
     if table.n == 0:
         raise RecordingError(f"{path}: no data rows")
     time_s, tinfo = _time_seconds(table, cmap)

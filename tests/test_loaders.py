@@ -1,0 +1,204 @@
+"""Loader cases: each malformed input, unit and sign options, preamble/NUL, separators, .mat, Parquet.
+
+Outside references named beside the checks:
+- SI prefixes: 1 mA = 1e-3 A, 1 mV = 1e-3 V, 1 ms = 1e-3 s, 1 min = 60 s, 1 h = 3600 s
+  (common practice, no source).
+- ISO 8601 time offsets: 08:00:00+01:00 is the same instant as 07:00:00Z (ISO 8601-1:2019).
+- A 100 Ah pack with 30 Ah drawn is at 70 % SOC (common practice, no source).
+- Many cyclers log discharge as negative current (Panasonic 18650PF dataset SOURCE.md, Kollmeyer 2018).
+"""
+from __future__ import annotations
+
+import sys
+
+import numpy as np
+import pytest
+import scipy.io as sio
+
+from models.loaders import ColumnMap, load_recording, make_column_map
+from models.recording import RecordingError
+
+CANON = "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n2,-0.5,3.80\n"
+
+
+def _text(name, body, mode="w"):
+    def write(tmp):
+        p = tmp / name
+        if mode == "wb":
+            p.write_bytes(body)
+        else:
+            p.write_text(body)
+        return p
+    return write
+
+
+def _mat(fields, struct="meas", name="run.mat"):
+    def write(tmp):
+        p = tmp / name
+        sio.savemat(p, {struct: {k: np.asarray(v, dtype=float).reshape(-1, 1) for k, v in fields.items()}})
+        return p
+    return write
+
+
+def _parquet(cols, name="run.parquet"):
+    def write(tmp):
+        import pandas as pd
+
+        p = tmp / name
+        pd.DataFrame(cols).to_parquet(p, engine="pyarrow")
+        return p
+    return write
+
+
+OK_T = [0.0, 1.0, 2.0]
+OK_I = [1.0, 1.5, -0.5]
+OK_V = [3.70, 3.65, 3.80]
+
+# id, writer, options, expected {field: values} or ("error", [substrings])
+CASES = [
+    ("canonical", _text("a.csv", CANON), {}, dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V)),
+    ("decreasing-time", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n2,1,3.7\n1,1,3.7\n"), {},
+     ("error", ["a.csv", "'time_s'", "decreases", "data row 3 (file line 4)"])),
+    ("missing-value", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,\n2,1,3.6\n"), {},
+     ("error", ["'voltage_v'", "missing value", "data row 2 (file line 3)"])),
+    ("nan-text", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,NaN,3.6\n"), {},
+     ("error", ["'current_a'", "missing value", "data row 2"])),
+    ("non-numeric", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,3.6\n2,abc,3.6\n"), {},
+     ("error", ["'current_a'", "non-numeric", "'abc'", "data row 3 (file line 4)"])),
+    ("missing-column", _text("a.csv", "time_s,current_a,volts\n0,1,3.7\n1,1,3.6\n"), {},
+     ("error", ["'voltage_v' not found", "'time_s', 'current_a', 'volts'"])),
+    ("empty-file", _text("a.csv", ""), {}, ("error", ["a.csv", "empty"])),
+    ("blank-lines-only", _text("a.csv", "\n \n\n"), {}, ("error", ["a.csv", "empty"])),
+    ("header-only", _text("a.csv", "time_s,current_a,voltage_v\n"), {},
+     ("error", ["a.csv", "no data rows", "file line 1"])),
+    ("single-row", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n"), {},
+     ("error", ["a.csv", "at least 2 rows"])),
+    # SI prefixes (common practice, no source)
+    ("mA-mV", _text("a.csv", "t,i_ma,u_mv\n0,1000,3700\n1,1500,3650\n2,-500,3800\n"),
+     dict(time="t", current="i_ma", voltage="u_mv", current_unit="mA", voltage_unit="mV"),
+     dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V)),
+    ("ms", _text("a.csv", "time_ms,current_a,voltage_v\n0,1,3.7\n250,1,3.7\n1500,1,3.7\n"),
+     dict(time="time_ms", time_unit="ms"), dict(time_s=[0.0, 0.25, 1.5])),
+    ("min", _text("a.csv", "minutes,current_a,voltage_v\n0,1,3.7\n0.5,1,3.7\n2,1,3.7\n"),
+     dict(time="minutes", time_unit="min"), dict(time_s=[0.0, 30.0, 120.0])),
+    ("h", _text("a.csv", "hours,current_a,voltage_v\n1,1,3.7\n1.5,1,3.7\n3,1,3.7\n"),
+     dict(time="hours", time_unit="h"), dict(time_s=[3600.0, 5400.0, 10800.0])),
+    # ISO 8601 offsets: +01:00 at 08:00:30 is 07:00:30Z (ISO 8601-1:2019)
+    ("iso", _text("a.csv", "stamp,current_a,voltage_v\n2026-03-02T07:00:00Z,1,3.7\n"
+                           "2026-03-02T07:00:00.5Z,1,3.7\n2026-03-02T08:00:30+01:00,1,3.7\n"),
+     dict(time="stamp", time_unit="iso"), dict(time_s=[0.0, 0.5, 30.0])),
+    ("iso-bad", _text("a.csv", "stamp,current_a,voltage_v\n2026-03-02T07:00:00Z,1,3.7\nlater,1,3.7\n"),
+     dict(time="stamp", time_unit="iso"), ("error", ["'stamp'", "ISO timestamp", "'later'", "data row 2"])),
+    # discharge logged negative (Panasonic 18650PF SOURCE.md): flipped to + = discharge
+    ("discharge-negative", _text("a.csv", "time_s,current_a,voltage_v\n0,-1,3.7\n1,-1.5,3.65\n2,0.5,3.8\n"),
+     dict(discharge_negative=True), dict(current_a=OK_I)),
+    ("preamble-nul", _text("a.txt", b"Cycler export v2\x00\r\nChannel;7\r\n\r\nStart;2026-03-02\r\n"
+                                    b"time_s;current_a;voltage_v;\r\n0;1.0;3.70;\r\n1;1.5\x00;3.65;\r\n"
+                                    b"\r\n2;-0.5;3.80;\r\n", mode="wb"), {},
+     dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V, meta=dict(header_line=5, nul_bytes_removed=2,
+                                                                    separator=";"))),
+    ("semicolon-decimal-comma", _text("a.csv", "time_s;current_a;voltage_v\n0;1,0;3,70\n1;1,5;3,65\n"
+                                               "2;-0,5;3,80\n"),
+     dict(decimal=","), dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V)),
+    ("preamble-missing-column", _text("a.csv", "Lab: X;1\nTime;Amps\n0;1\n1;1\n"), {},
+     ("error", ["'time_s', 'current_a', 'voltage_v'", "not found", "file line 2", "'Time', 'Amps'"])),
+    ("duplicates", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1.5,3.65\n1,1.5,3.65\n"
+                                  "1,1.5,3.64\n2,-0.5,3.8\n"), {},
+     dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V, meta=dict(duplicates_dropped=2, rows_read=5))),
+    ("extras-and-temperature", _text("a.csv", "time_s,current_a,voltage_v,temperature_c,wh,note\n"
+                                              "0,1,3.7,25,0.0,x\n1,1,3.7,25.5,0.5,y\n"), {},
+     dict(temperature_c=[25.0, 25.5], meta=dict(extras_keys=["wh"]))),
+    ("mat-mapping", _mat({"Time": OK_T, "Current": [-1.0, -1.5, 0.5], "Voltage": OK_V,
+                          "Battery_Temp_degC": [25.0, 25.1, 25.2], "Wh": [0.0, -0.1, -0.2],
+                          "Ah": [0.0, -0.01, -0.02]}),
+     dict(preset="panasonic-18650pf"),
+     dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V, temperature_c=[25.0, 25.1, 25.2],
+          meta=dict(extras_keys=["Ah", "Wh"], format="mat"))),
+    # 100 Ah pack, 30 Ah drawn -> 70 % SOC (common practice, no source); counter starts off zero
+    ("mat-ah-counter-soc", _mat({"t": [0.0, 1800.0, 3600.0], "i": [-30.0, -30.0, -30.0], "v": [3.7, 3.6, 3.5],
+                                 "ah": [5.0, -10.0, -25.0]}, struct="log"),
+     dict(time="t", current="i", voltage="v", ah_counter="ah", discharge_negative=True,
+          ref_capacity_ah=100.0, ref_soc0=1.0),
+     dict(soc_ref=[1.0, 0.85, 0.70], current_a=[30.0, 30.0, 30.0])),
+    ("ah-counter-discharge-positive", _text("a.csv", "time_s,current_a,voltage_v,ah_out\n0,30,3.7,0\n"
+                                                     "3600,30,3.5,30\n"),
+     dict(ah_counter="ah_out", ref_capacity_ah=100.0, ref_soc0=1.0), dict(soc_ref=[1.0, 0.70])),
+    ("mat-nan-row", _mat({"Time": OK_T, "Current": OK_I, "Voltage": [3.7, 3.6, np.nan]}),
+     dict(time="Time", current="Current", voltage="Voltage"),
+     ("error", ["'Voltage'", "missing value", "row 3"])),
+    ("mat-missing-field", _mat({"Time": OK_T, "Current": OK_I, "Volt": OK_V}),
+     dict(time="Time", current="Current", voltage="Voltage"),
+     ("error", ["'Voltage' not found", "'Time', 'Current', 'Volt'"])),
+    ("parquet", _parquet({"time_s": OK_T, "current_a": OK_I, "voltage_v": OK_V, "soc_ref": [0.9, 0.8, 0.7]}), {},
+     dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V, soc_ref=[0.9, 0.8, 0.7], meta=dict(format="parquet"))),
+    ("parquet-datetime", _parquet({"when": np.array(["2026-03-02T07:00:00", "2026-03-02T07:00:10",
+                                                     "2026-03-02T07:01:00"], dtype="datetime64[ns]"),
+                                   "current_a": OK_I, "voltage_v": OK_V}),
+     dict(time="when", time_unit="iso"), dict(time_s=[0.0, 10.0, 60.0])),
+    ("gaps", _text("a.csv", "time_s,current_a,voltage_v\n" + "".join(
+        f"{t},1,3.7\n" for t in [0, 1, 2, 3, 4, 5, 65, 66, 67]) ), {},
+     dict(meta=dict(gaps=[(5.0, 60.0)]))),
+    ("unknown-suffix", _text("a.xlsx", "x"), {}, ("error", ["a.xlsx", "unknown file type"])),
+]
+
+
+@pytest.mark.parametrize("writer, options, expected", [c[1:] for c in CASES], ids=[c[0] for c in CASES])
+def test_loader_case(tmp_path, writer, options, expected):
+    path = writer(tmp_path)
+    if isinstance(expected, tuple):
+        with pytest.raises(RecordingError) as exc:
+            load_recording(path, **options)
+        msg = str(exc.value)
+        for part in expected[1]:
+            assert part in msg, f"{part!r} not in {msg!r}"
+        return
+    rec = load_recording(path, **options)
+    expected = dict(expected)
+    meta = expected.pop("meta", {})
+    for field_name, values in expected.items():
+        np.testing.assert_allclose(getattr(rec, field_name), values, rtol=0, atol=1e-12, err_msg=field_name)
+    for key, value in meta.items():
+        if key == "extras_keys":
+            assert sorted(rec.metadata["extras"]) == value
+        else:
+            assert rec.metadata[key] == value, key
+    assert rec.name == path.stem
+    assert rec.metadata["source"] == str(path)
+
+
+def test_extras_keep_file_units_and_drop_duplicate_rows(tmp_path):
+    p = tmp_path / "e.csv"
+    p.write_text("time_s,current_a,voltage_v,wh\n0,1,3.7,0\n1,1,3.7,1\n1,1,3.7,1\n2,1,3.7,2\n")
+    rec = load_recording(p)
+    np.testing.assert_array_equal(rec.metadata["extras"]["wh"], [0.0, 1.0, 2.0])
+    assert rec.metadata["duplicate_rows"] == ["data row 3 (file line 4)"]
+
+
+def test_parquet_without_pyarrow_names_the_extra(tmp_path, monkeypatch):
+    p = tmp_path / "x.parquet"
+    p.write_bytes(b"PAR1")
+    monkeypatch.setitem(sys.modules, "pyarrow", None)
+    monkeypatch.setitem(sys.modules, "pyarrow.parquet", None)
+    with pytest.raises(RecordingError, match=r"pip install socfuse\[parquet\]"):
+        load_recording(p)
+
+
+def test_mapping_options_refused_when_ambiguous_or_unknown(tmp_path):
+    with pytest.raises(RecordingError, match="unknown loader option.*curent"):
+        make_column_map(curent="I")
+    with pytest.raises(RecordingError, match="ref_capacity_ah and ref_soc0"):
+        ColumnMap(ah_counter="Ah", ref_capacity_ah=2.9)
+    with pytest.raises(RecordingError, match="either a soc_ref column"):
+        ColumnMap(ah_counter="Ah", soc_ref="soc", ref_capacity_ah=2.9, ref_soc0=1.0)
+    with pytest.raises(RecordingError, match="current_unit 'kA'"):
+        ColumnMap(current_unit="kA")
+    with pytest.raises(RecordingError, match="unknown preset"):
+        make_column_map(preset="nope")
+    # a later option overrides the preset; None leaves it alone
+    m = make_column_map(preset="panasonic-18650pf", discharge_negative=False, voltage=None)
+    assert m.discharge_negative is False and m.voltage == "Voltage"
+
+
+def test_missing_file_is_file_not_found(tmp_path):
+    with pytest.raises(FileNotFoundError, match="nope.csv"):
+        load_recording(tmp_path / "nope.csv")
