@@ -96,6 +96,8 @@ class RelaxationFit:
         ``n ln(RSS/n) + k ln n`` with ``k = 1 + 2 n_rc`` (RSS floored at ``n * RSS_FLOOR_V**2``).
     ok : bool
         Converged with finite, distinct time constants inside the bounds.
+    span_s : float
+        Length of the fitted window from the time origin (s).
     """
 
     v_inf_v: float
@@ -105,6 +107,7 @@ class RelaxationFit:
     n: int
     bic: float
     ok: bool
+    span_s: float = float("nan")
 
     @property
     def n_rc(self) -> int:
@@ -201,7 +204,7 @@ def fit_relaxation(time_s, voltage_v, n_rc: int = 1, tau_min_s: float | None = N
               and np.all(taus > lo * 1.0001) and taus[-1] <= span / min_span_ratio
               and (n_rc == 1 or np.all(taus[1:] / taus[:-1] > 1.5)))
     return RelaxationFit(float(coef[0]), tuple(float(a) for a in coef[1:]), tuple(float(s) for s in taus),
-                         float(np.sqrt(rss / n)), int(n), float(bic), ok)
+                         float(np.sqrt(rss / n)), int(n), float(bic), ok, span)
 
 
 def rc_from_rectangular_pulse(amplitude_v, tau_s, current_a: float, duration_s: float):
@@ -225,7 +228,9 @@ class Pulse:
     rest follows); ``rest_before_start`` = first sample of the rest before (or ``start`` when
     none).  ``current_a`` is the mean sample current (positive discharge), ``duration_s`` the
     time from the sample before to the last pulse sample plus half of the two edge intervals
-    (the interval-mean convention), ``direction`` +1 discharge, -1 charge/regen.
+    (the interval-mean convention), ``direction`` +1 discharge, -1 charge/regen.  ``kind`` is
+    ``"pulse"``, or ``"move"`` for a longer step (e.g. the constant-current discharge between
+    SOC levels) whose following rest is still used for the RC fit.
     """
 
     start: int
@@ -235,6 +240,7 @@ class Pulse:
     current_a: float
     duration_s: float
     direction: int
+    kind: str = "pulse"
 
 
 def _gap_mask(t, gap_s):
@@ -245,7 +251,8 @@ def _gap_mask(t, gap_s):
 
 
 def detect_pulses(rec: Recording, threshold_a: float | None = None, max_pulse_s: float = 120.0,
-                  jump_fraction: float = 0.2, gap_s: float | None = None) -> list[Pulse]:
+                  jump_fraction: float = 0.2, gap_s: float | None = None,
+                  include_moves: bool = False) -> list[Pulse]:
     """Find the pulses of a pulse test (no hand-entered indices).
 
     Parameters
@@ -260,6 +267,8 @@ def detect_pulses(rec: Recording, threshold_a: float | None = None, max_pulse_s:
     gap_s : float, optional
         Intervals longer than this are gaps that end a rest; default
         ``max(60 s, 20 x median interval)``.
+    include_moves : bool
+        Also return the longer active runs, with ``kind="move"``.
 
     Returns
     -------
@@ -287,7 +296,8 @@ def detect_pulses(rec: Recording, threshold_a: float | None = None, max_pulse_s:
             continue
         lo, hi = max(s - 1, 0), min(e, n - 1)
         dur = float(0.5 * (t[e - 1] + t[hi]) - 0.5 * (t[lo] + t[s]))
-        if dur > max_pulse_s or e - s < 1:
+        kind = "pulse" if dur <= max_pulse_s else "move"
+        if (kind == "move" and not include_moves) or e - s < 1:
             continue
         # rest after: following runs that are inactive, up to a gap
         rest_stop = e - 1
@@ -298,7 +308,7 @@ def detect_pulses(rec: Recording, threshold_a: float | None = None, max_pulse_s:
         if s > 0 and not active[s - 1]:
             rb = starts[k - 1]
         cur = float(np.mean(i[s:e]))
-        out.append(Pulse(int(s), int(e), int(rest_stop), int(rb), cur, dur, 1 if cur > 0 else -1))
+        out.append(Pulse(int(s), int(e), int(rest_stop), int(rb), cur, dur, 1 if cur > 0 else -1, kind))
     return out
 
 
@@ -519,8 +529,8 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
             temperature_c = 25.0
             notes.append("no temperature column: the test is taken as 25 degC")
     soc, soc_label = pulse_soc(rec, capacity_ah, soc_mode, soc0)
-    pulses = detect_pulses(rec, threshold_a, max_pulse_s, gap_s=gap_s)
-    if not pulses:
+    pulses = detect_pulses(rec, threshold_a, max_pulse_s, gap_s=gap_s, include_moves=True)
+    if not any(p.kind == "pulse" for p in pulses):
         raise PulseError(f"{where}: no pulses found (active runs of at most {max_pulse_s:g} s in column current_a)")
     bad_v = ~np.isfinite(v)
     n_list = (1, 2) if rc_pairs is None else (int(rc_pairs),)
@@ -531,9 +541,10 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
         a, b = p.start, p.stop
         soc_before = float(soc[a - 1]) if a > 0 else float(soc[a])
         soc_after = float(soc[min(b, t.size - 1)])
-        if prev_soc_after is not None and abs(soc_before - prev_soc_after) > level_gap:
+        if prev_soc_after is not None and (abs(soc_before - prev_soc_after) > level_gap or p.kind == "move"):
             level += 1
         prev_soc_after = soc_after
+        soc_event = soc_after if p.kind == "move" else 0.5 * (soc_before + soc_after)
         # DOE/INL pulse resistance: sample before the pulse to last sample of the pulse
         kb = a - 1 if a > 0 else a
         di = i[b - 1] - i[kb]
@@ -580,13 +591,17 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
             if res is not None and np.isfinite(res[0]):
                 raw_vals.append(res[0])
         r0_raw = float(np.mean(raw_vals)) if raw_vals else np.nan
-        fits_out.append(PulseFit(p, 0.5 * (soc_before + soc_after), level, r0_raw, r0c, fits, rcs,
+        if p.kind == "move":
+            r0_raw, r_pulse = np.nan, np.nan
+        fits_out.append(PulseFit(p, soc_event, level, r0_raw, r0c, fits, rcs,
                                  float(r_pulse), float(v[kb]), float(temperature_c)))
     # R0 corrected for the RC charge and OCV change during the edge interval, with the pulse's
     # own RC fit or else the median fit of its SOC level (e.g. a discharge pulse followed by a
     # short rest and a regen pulse)
     for pf in fits_out:
         p = pf.pulse
+        if p.kind == "move":
+            continue
         a, b = p.start, p.stop
         edges = [(a - 1, a)] if a > 0 else []
         if b < t.size and abs(i[b]) < abs(p.current_a):
@@ -594,7 +609,7 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
         for n_rc in n_list:
             own = pf.rc(n_rc)
             if own is None:
-                same = [q.rc(n_rc) for q in fits_out if q.level == pf.level and q.rc(n_rc) is not None]
+                same = _level_rc([q for q in fits_out if q.level == pf.level], n_rc)
                 if not same:
                     continue
                 own = (tuple(np.median([x[0][j] for x in same]) for j in range(n_rc)),
@@ -618,9 +633,8 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
 def choose_rc_pairs(results, rc_pairs=None):
     """Number of RC pairs for the model, and a one-line reason.
 
-    ``rc_pairs`` given: that.  Otherwise 2 when, over all pulses with valid 1- and 2-pair fits,
-    the median BIC drop exceeds :data:`BIC_MARGIN` and at least half the fitted pulses have a
-    valid two-pair fit; else 1.
+    ``rc_pairs`` given: that.  Otherwise 2 when, over all rests with valid 1- and 2-pair fits
+    (at least 3 of them), the median BIC drop exceeds :data:`BIC_MARGIN`; else 1.
     """
     if rc_pairs is not None:
         return int(rc_pairs), f"{int(rc_pairs)} RC pair(s) as requested"
@@ -633,12 +647,26 @@ def choose_rc_pairs(results, rc_pairs=None):
             n2 += ok2
             if ok1 and ok2:
                 drops.append(pf.fits[1].bic - pf.fits[2].bic)
-    if not drops or n2 < 0.5 * max(n1, 1):
-        return 1, f"1 RC pair (two-pair fits valid on {n2} of {n1} pulses)"
+    if len(drops) < 3:
+        return 1, f"1 RC pair (two-pair fits valid on only {n2} of {n1} fitted rests)"
     med = float(np.median(drops))
     if med > BIC_MARGIN:
-        return 2, f"2 RC pairs (median BIC drop {med:.1f} > {BIC_MARGIN:g} over {len(drops)} pulses)"
-    return 1, f"1 RC pair (median BIC drop {med:.1f} <= {BIC_MARGIN:g} over {len(drops)} pulses)"
+        return 2, f"2 RC pairs (median BIC drop {med:.1f} > {BIC_MARGIN:g} over {len(drops)} rests)"
+    return 1, f"1 RC pair (median BIC drop {med:.1f} <= {BIC_MARGIN:g} over {len(drops)} rests)"
+
+
+def _level_rc(fits, n_rc: int, keep_fraction: float = 0.5):
+    """Valid ``(R, tau)`` fits of one level, from the longest rests only.
+
+    A rest much shorter than another at the same level pins the slow time constant down less
+    well, so fits whose window is shorter than ``keep_fraction`` of the level's longest window
+    are left out.
+    """
+    good = [(q.fits[n_rc].span_s, q.rc(n_rc)) for q in fits if q.rc(n_rc) is not None]
+    if not good:
+        return []
+    longest = max(g[0] for g in good)
+    return [g[1] for g in good if g[0] >= keep_fraction * longest]
 
 
 def _level_table(res: PulseTestResult, n_rc: int):
@@ -648,12 +676,11 @@ def _level_table(res: PulseTestResult, n_rc: int):
     for lv in levels:
         ps = [p for p in res.pulses if p.level == lv]
         s = float(np.median([p.soc for p in ps]))
-        r0 = [p.r0_ohm[n_rc] for p in ps if n_rc in p.r0_ohm]
+        r0 = [p.r0_ohm[n_rc] for p in ps if n_rc in p.r0_ohm and p.pulse.kind == "pulse"]
         if not r0:
             r0 = [p.r0_edge_ohm for p in ps if np.isfinite(p.r0_edge_ohm) and p.r0_edge_ohm > 0]
         r0v = float(np.median(r0)) if r0 else np.nan
-        rc = [p.rc(n_rc) for p in ps]
-        rc = [x for x in rc if x is not None]
+        rc = _level_rc(ps, n_rc)
         rj = [float(np.median([x[0][j] for x in rc])) if rc else np.nan for j in range(n_rc)]
         tj = [float(np.median([x[1][j] for x in rc])) if rc else np.nan for j in range(n_rc)]
         rows.append([s, r0v] + rj + tj)
@@ -764,6 +791,8 @@ def pulse_power_table(results, v_min_v: float, v_max_v: float) -> list[PowerRow]
     rows = []
     for res in results:
         for pf in res.pulses:
+            if pf.pulse.kind != "pulse":
+                continue
             r = pf.pulse_resistance_ohm
             if not (np.isfinite(r) and r > 0):
                 continue
