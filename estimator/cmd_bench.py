@@ -43,22 +43,15 @@ def register(sub) -> None:
 
 
 def _mapping_options(p) -> None:
-    try:
-        from models.loaders import add_mapping_options
-    except ImportError:
-        p.add_argument("--preset", default=None, help="column-mapping preset (e.g. panasonic-18650pf)")
-        return
+    from .cli_common import add_mapping_options
+
     add_mapping_options(p)
 
 
 def _load(path, args):
-    try:
-        from models.loaders import load_from_args
-    except ImportError:
-        from models.loaders import load_recording
+    from .cli_common import load_from_args
 
-        return load_recording(path, preset=getattr(args, "preset", None))
-    return load_from_args(path, args)
+    return load_from_args(args, path)
 
 
 def run(args) -> int:

@@ -200,7 +200,7 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
 
     # ---------------------------------------------------------------- identify
     t0 = time.perf_counter()
-    model, status = _identify(recs, quick)
+    model, status, ident_section = _identify(recs, quick)
     step("identify the cell model from the C/20 and pulse tests", t0, status)
     files["model.json"] = save_model(model, out / "model.json")
 
@@ -261,7 +261,7 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
 
     # ---------------------------------------------------------------- tolerance
     t0 = time.perf_counter()
-    sections = [s for s in (tuning_section,) if s is not None]
+    sections = [s for s in (ident_section, tuning_section) if s is not None]
     mc = _optional("estimator.montecarlo")
     if mc is None:
         step("Monte Carlo tolerance study", t0, "skipped: estimator.montecarlo is not available")
@@ -305,23 +305,33 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
 
 # ====================================================================== adapters
 def _identify(recs, quick):
-    """Identify the model with models.identify.pipeline, or fall back with a clear status."""
+    """Identify the model with models.identify.pipeline, or fall back with a clear status.
+
+    Returns ``(model, status, section)``; ``section`` is the report section with the
+    identification summary (None when skipped).
+    """
+    from .report import ReportSection
+
     pipe = _optional("models.identify.pipeline")
     ocv = recs[LAB_TESTS["ocv"][:-4]]
     pulses = [recs[p[:-4]] for p in LAB_TESTS["pulse"]]
     if pipe is not None and hasattr(pipe, "identify"):
         try:
-            res = _call(pipe.identify, ocv, pulses, ocv_test=ocv, pulse_tests=pulses, name="demo cell C48")
-            model = getattr(res, "model", res)
-            return model, "done"
-        except (ValueError, ArithmeticError, RuntimeError, TypeError) as e:
+            res = pipe.identify(ocv, pulses, name="demo cell C48 (identified)")
+        except (ValueError, ArithmeticError, RuntimeError) as e:
             reason = f"identification failed ({e})"
+        else:
+            text = res.summary() if hasattr(res, "summary") else str(res)
+            sec = ReportSection("Identified cell model",
+                                "<p>From the C/20 test and the pulse tests at 25 and 5 degC.</p>"
+                                f"<pre>{html.escape(text)}</pre>")
+            return res.model, "done", sec
     else:
         reason = "models.identify.pipeline is not available"
     from models.truth import truth_cell_model
 
     model = truth_cell_model(25.0).with_(name="demo cell C48 (truth parameters, identification skipped)")
-    return model, f"skipped: {reason}; the filter uses the truth model's parameters instead (flatters it)"
+    return model, f"skipped: {reason}; the filter uses the truth model's parameters instead (flatters it)", None
 
 
 def _bound_sigma(bmod, model, rec, settings) -> np.ndarray:
