@@ -41,9 +41,13 @@ def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
                    help="ready-made mapping for a public dataset layout; other options override it")
     for flag, dest, text in _COLUMN_FLAGS:
         g.add_argument(flag, dest=f"map_{dest}", metavar="NAME", default=None, help=text)
-    g.add_argument("--time-unit", dest="map_time_unit", choices=["s", "ms", "min", "h", "iso"], default=None,
-                   help="unit of the time column; iso = ISO 8601 timestamps, counted from the first row "
-                        "(default s)")
+    g.add_argument("--time-unit", dest="map_time_unit", choices=["s", "ms", "min", "h", "iso", "hms"],
+                   default=None,
+                   help="unit of the time column; iso = ISO 8601 timestamps counted from the first row; "
+                        "hms = elapsed hh:mm:ss[.fff] (default s)")
+    g.add_argument("--time-format", dest="map_time_format", default=None, metavar="FMT",
+                   help="with --time-unit iso: strftime format of non-ISO date-time text, "
+                        "e.g. '%%m/%%d/%%Y %%I:%%M:%%S %%p'")
     g.add_argument("--current-unit", dest="map_current_unit", choices=["A", "mA"], default=None,
                    help="unit of the current column (default A)")
     g.add_argument("--voltage-unit", dest="map_voltage_unit", choices=["V", "mV"], default=None,

@@ -51,7 +51,10 @@ CANONICAL_COLUMNS = ("time_s", "current_a", "voltage_v", "temperature_c", "soc_r
 
 _CURRENT_UNITS = {"a": 1.0, "ma": 1e-3}
 _VOLTAGE_UNITS = {"v": 1.0, "mv": 1e-3}
-_TIME_UNITS = {"s": 1.0, "ms": 1e-3, "min": 60.0, "h": 3600.0, "iso": None}
+_TIME_UNITS = {"s": 1.0, "ms": 1e-3, "min": 60.0, "h": 3600.0, "iso": None, "hms": None}
+# tokens a cycler writes in a units row under the header (compared lower-case, brackets stripped)
+_UNIT_TOKENS = {"s", "ms", "min", "h", "a", "ma", "v", "mv", "ah", "mah", "wh", "mwh", "kwh", "w", "kw", "mw",
+                "degc", "°c", "c", "k", "%", "ohm", "mohm", "hz", "1", "-"}
 _AH_UNITS = {"ah": 1.0, "mah": 1e-3}
 _SUFFIXES = {".csv": "csv", ".txt": "csv", ".tsv": "csv", ".parquet": "parquet", ".pq": "parquet",
              ".mat": "mat"}
@@ -74,9 +77,13 @@ class ColumnMap:
     ah_counter : str, optional
         Source name of a cycler amp-hour counter.  Kept in ``metadata["extras"]``; with
         ``ref_capacity_ah`` and ``ref_soc0`` it yields ``soc_ref``.
-    time_unit : {"s", "ms", "min", "h", "iso"}
-        ``iso``: ISO 8601 timestamps (or datetime values), converted to seconds after the
-        first row.  Numeric times keep their origin.
+    time_unit : {"s", "ms", "min", "h", "iso", "hms"}
+        ``iso``: ISO 8601 timestamps (or datetime values, or text in ``time_format``),
+        converted to seconds after the first row.  ``hms``: elapsed time as ``[d days]
+        hh:mm:ss[.fff]`` (hours may exceed 24).  Numeric times keep their origin.
+    time_format : str, optional
+        With ``time_unit="iso"``: a strftime format for non-ISO date-time text, e.g.
+        ``"%m/%d/%Y %I:%M:%S %p"``.
     current_unit : {"A", "mA"}
     voltage_unit : {"V", "mV"}
     ah_unit : {"Ah", "mAh"}
@@ -109,6 +116,7 @@ class ColumnMap:
     soc_ref: str | None = None
     ah_counter: str | None = None
     time_unit: str = "s"
+    time_format: str | None = None
     current_unit: str = "A"
     voltage_unit: str = "V"
     ah_unit: str = "Ah"
@@ -148,6 +156,8 @@ class ColumnMap:
             if self.soc_ref is not None:
                 raise RecordingError("give either a soc_ref column or an amp-hour counter with "
                                      "ref_capacity_ah, not both")
+        if self.time_format is not None and self.time_unit.lower() != "iso":
+            raise RecordingError("time_format applies to time_unit 'iso' only")
         if not (self.gap_factor > 1.0):
             raise RecordingError(f"gap_factor must be > 1, not {self.gap_factor!r}")
 
@@ -305,8 +315,13 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
     reader = csv.reader(body, delimiter=sep)
     rows, line_no = [], []
     width = len(names)
+    units_row = None
     for j, rec in enumerate(reader):
-        if not any(f.strip() for f in rec):
+        if not "".join(rec).strip():
+            continue
+        if not rows and units_row is None and _is_units_row(rec):
+            units_row = list(rec)
+            units_line = hidx + 2 + j
             continue
         if len(rec) > width and any(f.strip() for f in rec[width:]):
             raise RecordingError(f"{path}: data row {len(rows) + 1} (file line {hidx + 2 + j}) has "
@@ -318,17 +333,43 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
         raise RecordingError(f"{path}: no data rows after the header (file line {hidx + 1})")
     grid = np.array(rows, dtype=object)
     cols: dict[str, np.ndarray] = {}
+    final: dict[int, str] = {}
+    used = {cmap.time_col, cmap.current_col, cmap.voltage_col, cmap.temperature, cmap.soc_ref, cmap.ah_counter,
+            "temperature_c", "soc_ref"}
     for c, nm in enumerate(names):
         if not nm:
             if all(not str(v).strip() for v in grid[:, c]):
                 continue  # trailing separator
             nm = f"column_{c + 1}"
         if nm in cols:
-            raise RecordingError(f"{path}: column {nm!r} appears twice in the header (file line {hidx + 1})")
+            if nm in used:
+                raise RecordingError(f"{path}: column {nm!r} appears twice in the header (file line {hidx + 1}); "
+                                     "which one is meant is ambiguous")
+            k = 2
+            while f"{nm}.{k}" in cols:
+                k += 1
+            nm = f"{nm}.{k}"
         cols[nm] = grid[:, c]
+        final[c] = nm
     info = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul,
             "preamble_lines": hidx}
+    if units_row is not None:
+        info["units_row"] = {final[c]: f.strip() for c, f in enumerate(units_row[:width])
+                             if c in final and f.strip()}
+        info["units_line"] = units_line
     return RawTable(str(path), "csv", cols, np.asarray(line_no), info)
+
+
+def _is_units_row(fields: list[str]) -> bool:
+    """A row of units under the header, e.g. ``;;[V];[A];[Ah]`` or ``s,A,V``."""
+    vals = [f.strip() for f in fields if f.strip()]
+    if not vals:
+        return False
+    for v in vals:
+        bracketed = len(v) >= 2 and v[0] + v[-1] in ("[]", "()")
+        if not (bracketed or v.lower() in _UNIT_TOKENS):
+            return False
+    return True
 
 
 def _read_parquet(path: Path, cmap: ColumnMap) -> RawTable:
@@ -429,6 +470,13 @@ def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = Tr
     import pandas as pd
 
     a = table.columns[name]
+    if a.dtype == object and decimal == ".":
+        try:  # fast path: every cell parses as a finite float
+            vals = a.astype(float)
+        except (ValueError, TypeError):
+            vals = None
+        if vals is not None and np.all(np.isfinite(vals)):
+            return vals
     if a.dtype.kind in "fiub":
         vals = a.astype(float)
         text_bad = np.zeros(vals.size, dtype=bool)
@@ -469,25 +517,33 @@ def _time_seconds(table: RawTable, cmap: ColumnMap) -> tuple[np.ndarray, dict]:
     name = cmap.time_col
     a = table.columns[name]
     unit = cmap.time_unit.lower()
-    if unit != "iso" and a.dtype.kind not in "M":
+    if unit not in ("iso", "hms") and a.dtype.kind not in "M":
         return _numeric(table, name, cmap.decimal) * _TIME_UNITS[unit], {}
-    if a.dtype.kind == "M":
-        ts = pd.to_datetime(pd.Series(a), utc=True)
+    what = "an elapsed time hh:mm:ss" if unit == "hms" else (
+        f"a time in format {cmap.time_format!r}" if cmap.time_format else "an ISO timestamp")
+    if a.dtype.kind in "Mm":
+        ts = pd.to_datetime(pd.Series(a), utc=True) if a.dtype.kind == "M" else pd.to_timedelta(pd.Series(a))
         bad_blank = ts.isna().to_numpy()
         text_bad = np.zeros_like(bad_blank)
     else:
         s = pd.Series(a, dtype=object).map(lambda x: "" if x is None else str(x).strip())
         blank = (s == "").to_numpy()
-        ts = pd.to_datetime(s.where(~blank, None), utc=True, errors="coerce", format="ISO8601")
+        s = s.where(~blank, None)
+        if unit == "hms":
+            ts = pd.to_timedelta(s, errors="coerce")
+        else:
+            ts = pd.to_datetime(s, utc=True, errors="coerce", format=cmap.time_format or "ISO8601")
         bad_blank = blank
         text_bad = ts.isna().to_numpy() & ~blank
     if np.any(bad_blank):
         k = int(np.argmax(bad_blank))
-        raise RecordingError(f"{table.path}: column {name!r} has a missing timestamp at {table.where(k)}")
+        raise RecordingError(f"{table.path}: column {name!r} has a missing time value at {table.where(k)}")
     if np.any(text_bad):
         k = int(np.argmax(text_bad))
-        raise RecordingError(f"{table.path}: column {name!r} has a value that is not an ISO timestamp "
+        raise RecordingError(f"{table.path}: column {name!r} has a value that is not {what} "
                              f"{str(a[k]).strip()!r} at {table.where(k)}")
+    if ts.dtype.kind == "m":
+        return ts.dt.total_seconds().to_numpy(dtype=float), {}
     t0 = ts.iloc[0]
     secs = ((ts - t0).dt.total_seconds()).to_numpy(dtype=float)
     return secs, {"time_origin": t0.isoformat()}

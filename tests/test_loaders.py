@@ -138,6 +138,18 @@ CASES = [
     ("gaps", _text("a.csv", "time_s,current_a,voltage_v\n" + "".join(
         f"{t},1,3.7\n" for t in [0, 1, 2, 3, 4, 5, 65, 66, 67]) ), {},
      dict(meta=dict(gaps=[(5.0, 60.0)]))),
+    # a cycler export: units row under the header, a repeated (unused) column name, elapsed hh:mm:ss
+    ("units-row-hms", _text("a.csv", "Test;7\nStep;Prog Time;Voltage;Current;Step\n;;[V];[A];\n"
+                                     "1;00:00:00.5;3.70;1.0;x\n1;00:01:00.5;3.65;1.5;y\n2;25:00:00.5;3.80;-0.5;z\n"),
+     dict(time="Prog Time", time_unit="hms", voltage="Voltage", current="Current"),
+     dict(time_s=[0.5, 60.5, 90000.5], current_a=OK_I, voltage_v=OK_V,
+          meta=dict(units_row={"Voltage": "[V]", "Current": "[A]"}, units_line=3, extras_keys=["Step"]))),
+    ("repeated-used-column", _text("a.csv", "time_s,current_a,voltage_v,voltage_v\n0,1,3.7,3.7\n1,1,3.7,3.7\n"),
+     {}, ("error", ["'voltage_v' appears twice", "file line 1"])),
+    ("time-format", _text("a.csv", "Time Stamp;Voltage;Current\n4/27/2017 11:59:58 AM;3.70;1.0\n"
+                                   "4/27/2017 11:59:59 AM;3.65;1.5\n4/27/2017 12:00:08 PM;3.80;-0.5\n"),
+     dict(time="Time Stamp", time_unit="iso", time_format="%m/%d/%Y %I:%M:%S %p", voltage="Voltage",
+          current="Current"), dict(time_s=[0.0, 1.0, 10.0], current_a=OK_I)),
     ("unknown-suffix", _text("a.xlsx", "x"), {}, ("error", ["a.xlsx", "unknown file type"])),
 ]
 

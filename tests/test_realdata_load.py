@@ -70,3 +70,15 @@ def test_check_cli_on_real_mat(realdata, capsys):
     assert "duration                10983.9 s" in out  # SOURCE.md: 10,984 s
     assert "sign check              ok" in out
     assert "duplicates dropped      4" in out
+
+
+def test_check_cli_on_digatron_csv(realdata, capsys):
+    # a Digatron export with a 29-line preamble, ';' separators and a units row (SOURCE.md: eis/ folder)
+    path = realdata / "eis" / "3541_EIS00001.csv"
+    args = ["check", str(path), "--time-col", "Prog Time", "--time-unit", "hms", "--current-col", "Current",
+            "--voltage-col", "Voltage"]
+    assert main(args) == 0
+    out = capsys.readouterr().out
+    assert "samples                 54" in out
+    assert "current                 0 .. 0 A" in out
+    assert "sign check              not possible" in out
