@@ -17,7 +17,9 @@ Sources (names used by the CLI ``--ocv-source`` and in the model's provenance):
     rest points, linear in SOC between clusters and constant beyond the end clusters.
 ``auto``
     With a dynamic recording: the source with the lowest open-loop voltage RMS on it.  Without:
-    ``anchored`` when rest points exist, else ``average``.
+    ``average`` while the rest points lie within the low-rate half-gap of it (RMS distance), else
+    ``anchored`` (the low-rate test then does not describe the pulse-tested cell); ``anchored``
+    also when there is no average, ``discharge`` when there are no rest points.
 
 Why more than one: a low-rate test run weeks apart from the pulse test (the cell ages), or the
 charge/discharge mean on a cell with a large hysteresis, can sit tens of mV away from the

@@ -211,6 +211,19 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
             if refine is None:
                 notes.append("the OCV source was chosen on the validation recording itself; give --refine with a "
                              "different recording for an independent choice")
+        elif "anchored" in cands and "average" in cands and o.hysteresis_v is not None:
+            # no dynamic recording: keep the low-rate average while the rested voltages lie inside
+            # its hysteresis band (the half-gap); a larger distance means the low-rate test does
+            # not describe the cell of the pulse test (aged, or run weeks apart): anchor it
+            dist = info["average"].get("rest_point_rms_v")
+            if dist is not None and dist > o.hysteresis_v:
+                chosen = "anchored"
+                reason = (f"rest points {dist * 1000:.1f} mV RMS from the low-rate average, more than its "
+                          f"half-gap {o.hysteresis_v * 1000:.1f} mV (no dynamic recording given)")
+            else:
+                chosen = "average"
+                reason = (f"rest points {dist * 1000:.1f} mV RMS from the low-rate average, within its "
+                          f"half-gap {o.hysteresis_v * 1000:.1f} mV (no dynamic recording given)")
         elif "anchored" in cands:
             chosen, reason = "anchored", "default when pulse-test rest points exist (no dynamic recording given)"
         else:
