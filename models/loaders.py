@@ -8,6 +8,11 @@ positive on discharge) and validates every row.
 
 Rules (the same for every format):
 
+- CSV: the header row is found after any preamble lines (the first line holding the time,
+  current and voltage names); stray NUL bytes are removed; ``,`` ``;`` or tab separators are
+  detected; a units row right under the header (``[V]``, ``A``, ...) is skipped and kept in
+  ``metadata["units_row"]``; a repeated column name is renamed ``name.2`` unless it is one the
+  mapping uses (then refused as ambiguous).
 - Required columns: time, current, voltage.  A missing column is refused, listing the columns
   the file has.  Temperature and ``soc_ref`` are optional: taken when present under the
   canonical name, required when named explicitly.
@@ -553,8 +558,10 @@ def _require(table: RawTable, names) -> None:
     missing = [n for n in names if n is not None and n not in table.columns]
     if missing:
         have = ", ".join(repr(c) for c in table.columns)
+        hint = "".join(f" (the layout of preset {k!r} fits)" for k, p in PRESETS.items()
+                       if all(p[f] in table.columns for f in ("time", "current", "voltage")))
         raise RecordingError(f"{table.path}: column(s) {', '.join(repr(m) for m in missing)} not found; "
-                             f"the file has columns {have}")
+                             f"the file has columns {have}{hint}")
 
 
 def find_gaps(time_s: np.ndarray, factor: float = 5.0) -> list[tuple[float, float]]:

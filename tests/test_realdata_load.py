@@ -82,3 +82,11 @@ def test_check_cli_on_digatron_csv(realdata, capsys):
     assert "samples                 54" in out
     assert "current                 0 .. 0 A" in out
     assert "sign check              not possible" in out
+
+
+def test_check_cli_real_mat_without_mapping_exits_2(realdata, capsys):
+    assert main(["check", str(realdata / CYCLE1)]) == 2
+    err = capsys.readouterr().err
+    assert len(err.strip().splitlines()) == 1
+    assert "'time_s', 'current_a', 'voltage_v' not found" in err and "'Battery_Temp_degC'" in err
+    assert "preset 'panasonic-18650pf'" in err
