@@ -100,8 +100,15 @@ class Recording:
         """Rows ``start:stop`` as a new recording."""
         s = np.s_[start:stop]
         opt = lambda a: None if a is None else a[s]  # noqa: E731
-        return Recording(self.time_s[s], self.current_a[s], self.voltage_v[s], opt(self.temperature_c),
-                         opt(self.soc_ref), self.name, self.metadata)
+        meta = dict(self.metadata)
+        extras = meta.get("extras")
+        if isinstance(extras, dict):
+            meta["extras"] = {k: (v[s] if np.shape(v) == self.time_s.shape else v) for k, v in extras.items()}
+        t = self.time_s[s]
+        if "gaps" in meta and t.size:
+            meta["gaps"] = [g for g in meta["gaps"] if t[0] <= g[0] <= t[-1]]
+        return Recording(t, self.current_a[s], self.voltage_v[s], opt(self.temperature_c),
+                         opt(self.soc_ref), self.name, meta)
 
     def to_frame(self):
         """A pandas DataFrame with the canonical columns."""
