@@ -1,0 +1,566 @@
+"""Compiled kernels: EKF step/run, coulomb counting with OCV reseed, batched runs (the only copy).
+
+Everything here is plain scalar numba code (``@njit(cache=True)``, explicit loops over the
+small state, no allocation inside the per-sample loops) and also runs as pure Python under
+``NUMBA_DISABLE_JIT=1``.  Python wrappers live in :mod:`estimator.ekf` and
+:mod:`estimator.coulomb`; the C export mirrors these functions line by line.
+
+Model and sampling rule (DEVELOPERS.md, models/thevenin.py): over ``[t_k, t_k+1]`` the
+current is ``u_k = (i_k + i_k+1)/2 - b`` (``b`` the bias state when estimated); with
+parameters at ``(z_k, T_k)``::
+
+    z'   = z - eta(u) u dt / Q                       eta = 1 (u >= 0), eta_charge (u < 0)
+    v_j' = a_j v_j + R_j (1 - a_j) u                 a_j = exp(-dt / tau_j)   (exact ZOH)
+    b'   = b
+    h'   = e h - (1 - e) sgn(u)                      e = exp(-|eta u gamma dt / Q|)  (Plett 2004, part 2)
+    y_k  = OCV(z_k, T_k) + M h_k - sum_j v_j,k - R0(z_k, T_k) (i_k - b_k)
+
+The EKF is that of Plett, J. Power Sources 134 (2004) 277-292 (part 3): ``F = dx'/dx`` ignores
+the SOC dependence of ``a_j, R_j`` (as Plett does), ``G = dx'/du``, ``Q_k = G G^T
+sigma_i^2 + diag(q) dt``, ``H`` from the tabulated OCV slope and dR0/dSOC, and the update is
+the Joseph form ``P = (I - K H) P (I - K H)^T + K R K^T`` (Bucy and Joseph 1968), evaluated
+for the scalar measurement in O(n^2) through the rank-one structure of ``I - K H``, then
+symmetrised.
+
+Layout of the parameter vector ``prm`` (float64): see the ``P_*`` constants.  The state
+layout is ``[soc, v_rc_1..n, (bias), (h)]`` with ``i_b`` / ``i_h`` the indices of the
+optional states (-1 when absent).
+"""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+from numba import njit, prange
+
+__all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
+           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "N_PRM", "table_value", "ocv_lookup",
+           "ocv_inverse", "measure", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
+
+P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
+P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP = 9, 10, 11, 12, 13, 14
+N_PRM = 15
+DEFAULT_TEMP_C = 25.0
+
+
+# ----------------------------------------------------------------------------- look-ups
+@njit(cache=True)
+def _soc_index(tab, z):
+    """Lower node and weight on the uniform SOC grid (clamped to the table)."""
+    n_s = tab.shape[2]
+    s = z * (n_s - 1)
+    if not (s > 0.0):          # also catches NaN
+        return 0, 0.0
+    if s >= n_s - 1:
+        return n_s - 2, 1.0
+    i = int(s)
+    if i > n_s - 2:
+        i = n_s - 2
+    return i, s - i
+
+
+@njit(cache=True)
+def _temp_index(tab, t_c, t_min, t_step):
+    """Rows and weight on the uniform temperature grid (clamped; NaN -> 25 degC)."""
+    n_t = tab.shape[1]
+    if n_t == 1:
+        return 0, 0, 0.0
+    if not (t_c == t_c):
+        t_c = DEFAULT_TEMP_C
+    x = (t_c - t_min) / t_step
+    if x <= 0.0:
+        return 0, 1, 0.0
+    if x >= n_t - 1:
+        return n_t - 2, n_t - 1, 1.0
+    i = int(x)
+    if i > n_t - 2:
+        i = n_t - 2
+    return i, i + 1, x - i
+
+
+@njit(cache=True)
+def _bil(tab, row, it0, it1, wt, is0, ws):
+    a = tab[row, it0, is0]
+    b = tab[row, it0, is0 + 1]
+    lo = a + ws * (b - a)
+    if wt == 0.0:
+        return lo
+    c = tab[row, it1, is0]
+    d = tab[row, it1, is0 + 1]
+    hi = c + ws * (d - c)
+    return lo + wt * (hi - lo)
+
+
+@njit(cache=True)
+def table_value(tab, row, z, t_c, t_min, t_step):
+    """Bilinear value of packed table ``row`` at SOC ``z`` and temperature ``t_c`` (degC)."""
+    it0, it1, wt = _temp_index(tab, t_c, t_min, t_step)
+    is0, ws = _soc_index(tab, z)
+    return _bil(tab, row, it0, it1, wt, is0, ws)
+
+
+@njit(cache=True)
+def _ocv_at(tab, z, it0, it1, wt):
+    """OCV (V) and slope (V/unit SOC); linear continuation with the end slope outside 0..1."""
+    is0, ws = _soc_index(tab, z)
+    v = _bil(tab, 0, it0, it1, wt, is0, ws)
+    d = _bil(tab, 1, it0, it1, wt, is0, ws)
+    if z < 0.0:
+        v += d * z
+    elif z > 1.0:
+        v += d * (z - 1.0)
+    return v, d
+
+
+@njit(cache=True)
+def ocv_lookup(tab, z, t_c, t_min, t_step):
+    """OCV (V) and dOCV/dSOC at SOC ``z``, temperature ``t_c`` (degC) from the tables."""
+    it0, it1, wt = _temp_index(tab, t_c, t_min, t_step)
+    return _ocv_at(tab, z, it0, it1, wt)
+
+
+@njit(cache=True)
+def ocv_inverse(tab, v, t_c, t_min, t_step):
+    """SOC whose tabulated OCV at ``t_c`` equals ``v`` (the exact inverse of the piecewise-linear
+    table in SOC, found by bisection over the nodes); clamped to [0, 1]."""
+    it0, it1, wt = _temp_index(tab, t_c, t_min, t_step)
+    n_s = tab.shape[2]
+    f0 = tab[0, it0, 0] + wt * (tab[0, it1, 0] - tab[0, it0, 0])
+    fn = tab[0, it0, n_s - 1] + wt * (tab[0, it1, n_s - 1] - tab[0, it0, n_s - 1])
+    if not (v > f0):
+        return 0.0
+    if v >= fn:
+        return 1.0
+    lo = 0
+    hi = n_s - 1
+    while hi - lo > 1:
+        mid = (lo + hi) // 2
+        fm = tab[0, it0, mid] + wt * (tab[0, it1, mid] - tab[0, it0, mid])
+        if fm <= v:
+            lo = mid
+        else:
+            hi = mid
+    flo = tab[0, it0, lo] + wt * (tab[0, it1, lo] - tab[0, it0, lo])
+    fhi = tab[0, it0, hi] + wt * (tab[0, it1, hi] - tab[0, it0, hi])
+    return (lo + (v - flo) / (fhi - flo)) / (n_s - 1)
+
+
+# ----------------------------------------------------------------------------- model pieces
+@njit(cache=True)
+def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c, xn, d, g, cache):
+    """One interval of the sampling rule.
+
+    Writes the next state ``xn``, the diagonal ``d`` of ``F`` and the input Jacobian
+    ``g = dx'/du``; the full ``F`` is ``diag(d)`` with column ``i_b`` equal to ``-g`` (and
+    ``F[i_b, i_b] = 1``).  ``cache`` (length 2 n_rc + 1) holds the last ``dt``, ``tau_j`` and
+    ``a_j`` so a repeated ``dt/tau`` reuses its exponential.
+    """
+    cap = prm[P_CAP]
+    z = x[0]
+    u = u_meas
+    if i_b >= 0:
+        u = u_meas - x[i_b]
+    eta = 1.0 if u >= 0.0 else prm[P_ETA]
+    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
+    is0, ws = _soc_index(tab, z)
+    xn[0] = z - eta * u * dt / cap
+    d[0] = 1.0
+    g[0] = -eta * dt / cap
+    same_dt = dt == cache[0]
+    cache[0] = dt
+    for j in range(n_rc):
+        r = _bil(tab, 4 + j, it0, it1, wt, is0, ws)
+        tau = _bil(tab, 4 + n_rc + j, it0, it1, wt, is0, ws)
+        if same_dt and tau == cache[1 + j]:
+            a = cache[1 + n_rc + j]
+        else:
+            a = math.exp(-dt / tau)
+            cache[1 + j] = tau
+            cache[1 + n_rc + j] = a
+        b = r * (1.0 - a)
+        xn[1 + j] = a * x[1 + j] + b * u
+        d[1 + j] = a
+        g[1 + j] = b
+    if i_b >= 0:
+        xn[i_b] = x[i_b]
+        d[i_b] = 1.0
+        g[i_b] = 0.0
+    if i_h >= 0:
+        h = x[i_h]
+        k = eta * prm[P_HG] * dt / cap
+        e = math.exp(-abs(eta * u * prm[P_HG] * dt / cap))
+        sg = 0.0
+        if u > 0.0:
+            sg = 1.0
+        elif u < 0.0:
+            sg = -1.0
+        xn[i_h] = e * h - (1.0 - e) * sg
+        d[i_h] = e
+        g[i_h] = -(h + sg) * e * k * sg
+
+
+@njit(cache=True)
+def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c, hrow):
+    """Predicted terminal voltage at state ``x`` and current sample ``i_k``; writes ``H``."""
+    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
+    z = x[0]
+    ocv, docv = _ocv_at(tab, z, it0, it1, wt)
+    is0, ws = _soc_index(tab, z)
+    r0 = _bil(tab, 2, it0, it1, wt, is0, ws)
+    dr0 = _bil(tab, 3, it0, it1, wt, is0, ws)
+    ie = i_k
+    if i_b >= 0:
+        ie = i_k - x[i_b]
+    y = ocv - r0 * ie
+    hrow[0] = docv - dr0 * ie
+    for j in range(n_rc):
+        y -= x[1 + j]
+        hrow[1 + j] = -1.0
+    if i_b >= 0:
+        hrow[i_b] = r0
+    if i_h >= 0:
+        y += prm[P_HM] * x[i_h]
+        hrow[i_h] = prm[P_HM]
+    return y
+
+
+@njit(cache=True)
+def _qdiag(n_rc, i_b, i_h, est_h, prm, q):
+    q[0] = prm[P_QSOC]
+    for j in range(n_rc):
+        q[1 + j] = prm[P_QRC]
+    if i_b >= 0:
+        q[i_b] = prm[P_QB]
+    if i_h >= 0:
+        q[i_h] = prm[P_QH] if est_h else 0.0
+
+
+@njit(cache=True)
+def measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c):
+    """Python-callable measurement model: ``(y_pred_v, H)`` at state ``x`` (n_x,)."""
+    hrow = np.zeros(x.size)
+    y = _measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c, hrow)
+    return y, hrow
+
+
+@njit(cache=True)
+def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_next):
+    """The EKF's linearisation of one step, for other modules (bounds, tests).
+
+    Parameters
+    ----------
+    x : ndarray (n_x,)   state at ``t_k`` (after the update)
+    i_prev, i_next : float   current samples ``i_k``, ``i_k+1`` (A)
+    dt : float   ``t_k+1 - t_k`` (s)
+    t_prev, t_next : float   temperatures at ``t_k``, ``t_k+1`` (degC, NaN -> 25)
+
+    Returns
+    -------
+    x_pred : (n_x,)    state at ``t_k+1`` by the sampling rule
+    F : (n_x, n_x)     dx'/dx
+    G : (n_x,)         dx'/du (input Jacobian; current noise enters through it)
+    Q : (n_x, n_x)     G G^T current_noise_a^2 + diag(q) dt
+    H : (n_x,)         dy/dx at ``x_pred`` with ``i_next``
+    y_pred : float     predicted terminal voltage at ``t_k+1``
+    """
+    nx = x.size
+    xn = np.zeros(nx)
+    d = np.zeros(nx)
+    g = np.zeros(nx)
+    cache = np.full(2 * n_rc + 1, np.nan)
+    _transition(tab, n_rc, i_b, i_h, prm, x, 0.5 * (i_prev + i_next), dt, t_prev, xn, d, g, cache)
+    f = np.zeros((nx, nx))
+    for i in range(nx):
+        f[i, i] = d[i]
+        if i_b >= 0 and i != i_b:
+            f[i, i_b] = -g[i]
+    q = np.zeros(nx)
+    _qdiag(n_rc, i_b, i_h, est_h, prm, q)
+    gq = g.copy()
+    if i_h >= 0 and not est_h:
+        gq[i_h] = 0.0
+    s2 = prm[P_IN] * prm[P_IN]
+    qm = np.zeros((nx, nx))
+    for i in range(nx):
+        for j in range(nx):
+            qm[i, j] = gq[i] * gq[j] * s2
+        qm[i, i] += q[i] * dt
+    hrow = np.zeros(nx)
+    y = _measure(tab, n_rc, i_b, i_h, prm, xn, i_next, t_next, hrow)
+    return xn, f, g, qm, hrow, y
+
+
+# ----------------------------------------------------------------------------- EKF
+@njit(cache=True)
+def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
+            x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
+    """Run the EKF over one recording; returns the number of gated samples.
+
+    Parameters
+    ----------
+    time_s, current_a, voltage_v, temp_c : ndarray (N,)
+        Samples (s, A positive on discharge, V with NaN = missing, degC with NaN = 25).
+    tab : ndarray (4 + 2 n_rc, n_t, n_s)   packed :class:`estimator.tables.KernelTables`
+    n_rc, i_b, i_h : int    RC pairs; index of the bias / hysteresis state or -1
+    est_h : bool            hysteresis estimated (else propagated with zero noise)
+    prm : ndarray (N_PRM,)  settings and model scalars (``P_*`` layout)
+    x0, p0 : ndarray (n_x,), (n_x, n_x)   prior at the first sample
+    x_out : (N, n_x); sig_out, vpred_out, innov_out, s_out : (N,)   outputs (posterior state,
+        SOC sigma, predicted voltage, innovation (NaN when no voltage), innovation variance)
+    store : bool
+        When True also write ``p_out`` (posterior P), ``ppred_out`` (prior P) and ``f_out``
+        (the F that led to sample k; identity at k = 0), each (N, n_x, n_x).
+    """
+    n = time_s.size
+    nx = x0.size
+    x = x0.copy()
+    p = p0.copy()
+    xn = np.zeros(nx)
+    d = np.zeros(nx)
+    g = np.zeros(nx)
+    hrow = np.zeros(nx)
+    ph = np.zeros(nx)
+    kg = np.zeros(nx)
+    mh = np.zeros(nx)
+    pn = np.zeros((nx, nx))
+    q = np.zeros(nx)
+    cache = np.full(2 * n_rc + 1, np.nan)
+    _qdiag(n_rc, i_b, i_h, est_h, prm, q)
+    s2 = prm[P_IN] * prm[P_IN]
+    r_meas = prm[P_VN] * prm[P_VN]
+    gate = prm[P_GATE]
+    smin = prm[P_SMIN]
+    smax = prm[P_SMAX]
+    no_h_noise = i_h >= 0 and not est_h
+    gh = 0.0
+    gated = 0
+    for k in range(n):
+        tk = temp_c[k]
+        if k > 0:
+            dt = time_s[k] - time_s[k - 1]
+            u = 0.5 * (current_a[k - 1] + current_a[k])
+            _transition(tab, n_rc, i_b, i_h, prm, x, u, dt, temp_c[k - 1], xn, d, g, cache)
+            for i in range(nx):
+                x[i] = xn[i]
+            if no_h_noise:
+                gh = g[i_h]
+                g[i_h] = 0.0
+            # P- = F P F^T + G G^T s2 + diag(q) dt, with F = diag(d) + c e_b^T, c = -g (c_b = 0)
+            for i in range(nx):
+                for j in range(i + 1):
+                    v = d[i] * d[j] * p[i, j]
+                    if i_b >= 0:
+                        ci = 0.0 if i == i_b else -g[i]
+                        cj = 0.0 if j == i_b else -g[j]
+                        if no_h_noise:
+                            if i == i_h:
+                                ci = -gh
+                            if j == i_h:
+                                cj = -gh
+                        v += d[i] * p[i, i_b] * cj + ci * p[i_b, j] * d[j] + ci * cj * p[i_b, i_b]
+                    v += g[i] * g[j] * s2
+                    if i == j:
+                        v += q[i] * dt
+                    pn[i, j] = v
+                    pn[j, i] = v
+            for i in range(nx):
+                for j in range(nx):
+                    p[i, j] = pn[i, j]
+            if store:
+                for i in range(nx):
+                    for j in range(nx):
+                        f_out[k, i, j] = 0.0
+                    f_out[k, i, i] = d[i]
+                    if i_b >= 0 and i != i_b:
+                        f_out[k, i, i_b] = -gh if (no_h_noise and i == i_h) else -g[i]
+        elif store:
+            for i in range(nx):
+                for j in range(nx):
+                    f_out[k, i, j] = 0.0
+                f_out[k, i, i] = 1.0
+        if store:
+            for i in range(nx):
+                for j in range(nx):
+                    ppred_out[k, i, j] = p[i, j]
+        # measurement
+        y = _measure(tab, n_rc, i_b, i_h, prm, x, current_a[k], tk, hrow)
+        sv = r_meas
+        for i in range(nx):
+            acc = 0.0
+            for j in range(nx):
+                acc += p[i, j] * hrow[j]
+            ph[i] = acc
+            sv += hrow[i] * acc
+        vpred_out[k] = y
+        s_out[k] = sv
+        vk = voltage_v[k]
+        if vk == vk:
+            innov = vk - y
+            innov_out[k] = innov
+            if gate > 0.0 and abs(innov) > gate * math.sqrt(sv):
+                gated += 1
+            else:
+                for i in range(nx):
+                    kg[i] = ph[i] / sv
+                    x[i] += kg[i] * innov
+                # Joseph form: M = (I - K H) P = P - K PH^T;  P+ = M (I - K H)^T + K R K^T
+                for i in range(nx):
+                    for j in range(nx):
+                        pn[i, j] = p[i, j] - kg[i] * ph[j]
+                for i in range(nx):
+                    acc = 0.0
+                    for j in range(nx):
+                        acc += pn[i, j] * hrow[j]
+                    mh[i] = acc
+                for i in range(nx):
+                    for j in range(nx):
+                        pn[i, j] = pn[i, j] - mh[i] * kg[j] + r_meas * kg[i] * kg[j]
+                for i in range(nx):
+                    for j in range(i + 1):
+                        v = 0.5 * (pn[i, j] + pn[j, i])
+                        p[i, j] = v
+                        p[j, i] = v
+        else:
+            innov_out[k] = np.nan
+        if x[0] < smin:
+            x[0] = smin
+        elif x[0] > smax:
+            x[0] = smax
+        for i in range(nx):
+            x_out[k, i] = x[i]
+        sig_out[k] = math.sqrt(p[0, 0]) if p[0, 0] > 0.0 else 0.0
+        if store:
+            for i in range(nx):
+                for j in range(nx):
+                    p_out[k, i, j] = p[i, j]
+    return gated
+
+
+@njit(cache=True, parallel=True)
+def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
+                  cap_scale, x0s, p0s, x_out, sig_out, vpred_out, innov_out, s_out, gated_out):
+    """Many recordings of one model in parallel (numba ``prange`` over recordings).
+
+    Recordings are concatenated; recording ``r`` occupies rows ``offsets[r]:offsets[r+1]``.
+    ``cap_scale[r]`` multiplies the capacity, ``x0s[r]``/``p0s[r]`` are the priors.
+    """
+    nrec = offsets.size - 1
+    nx = x0s.shape[1]
+    dummy = np.zeros((1, nx, nx))
+    for r in prange(nrec):
+        a = offsets[r]
+        b = offsets[r + 1]
+        pr = prm.copy()
+        pr[P_CAP] = prm[P_CAP] * cap_scale[r]
+        gated_out[r] = ekf_run(time_s[a:b], current_a[a:b], voltage_v[a:b], temp_c[a:b], tab, n_rc, i_b, i_h,
+                               est_h, pr, x0s[r], p0s[r], x_out[a:b], sig_out[a:b], vpred_out[a:b],
+                               innov_out[a:b], s_out[a:b], False, dummy, dummy, dummy)
+
+
+# ----------------------------------------------------------------------------- baseline
+@njit(cache=True)
+def _rest_ocv(time_s, voltage_v, current_a, tab, t_c, prm, start, end, early_s, z):
+    """OCV estimate at the end of a rest ``start..end`` (inclusive), or NaN.
+
+    Full rest: the last finite voltage plus the ``R0 i`` drop of its (small) current.  Early
+    reseed (``early_s > 0``): the asymptote of an exponential through three equally spaced
+    points over the rest's second half (Aitken's delta-squared extrapolation; falls back to
+    the last voltage when the points are not monotone-converging).
+    """
+    kk = end
+    while kk >= start and not (voltage_v[kk] == voltage_v[kk]):
+        kk -= 1
+    if kk < start:
+        return np.nan
+    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
+    v_last = voltage_v[kk]
+    if early_s > 0.0:
+        t0 = time_s[start]
+        dur = time_s[kk] - t0
+        ta = t0 + 0.5 * dur
+        tm = t0 + 0.75 * dur
+        va = np.nan
+        vm = np.nan
+        for m in range(start, kk):
+            if time_s[m] <= ta <= time_s[m + 1]:
+                w = (ta - time_s[m]) / (time_s[m + 1] - time_s[m])
+                va = voltage_v[m] + w * (voltage_v[m + 1] - voltage_v[m])
+            if time_s[m] <= tm <= time_s[m + 1]:
+                w = (tm - time_s[m]) / (time_s[m + 1] - time_s[m])
+                vm = voltage_v[m] + w * (voltage_v[m + 1] - voltage_v[m])
+        d1 = vm - va
+        d2 = v_last - vm
+        if d1 * d2 > 0.0 and abs(d2) < abs(d1):
+            v_last = v_last - d2 * d2 / (d2 - d1)
+    is0, ws = _soc_index(tab, z)
+    r0 = _bil(tab, 2, it0, it1, wt, is0, ws)
+    return v_last + r0 * current_a[kk]
+
+
+@njit(cache=True)
+def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest_i, rest_min_s,
+                do_reseed, early_s, soc_out, sig_out, rs_time, rs_before, rs_after):
+    """Coulomb counting (trapezoid rule, coulombic efficiency on charge) with OCV reseed.
+
+    A rest is a run of samples with ``|i| <= rest_i``.  At its last sample, when it lasted
+    ``>= rest_min_s`` (or ``>= early_s`` with the relaxation extrapolated, when ``early_s >
+    0``), SOC is reseeded from the OCV inverse of the rested voltage at the sample's
+    temperature.  The variance grows by ``(eta dt / Q)^2 sigma_i^2 + q_soc dt`` per interval
+    and is reset at a reseed to ``(sigma_v / |dOCV/dSOC|)^2`` with ``sigma_v^2 =
+    voltage_noise^2 + M^2`` (M the hysteresis magnitude; slope floored at 1 mV per unit SOC,
+    sigma capped at 0.5).  Returns the number of reseeds written to ``rs_*``.
+    """
+    n = time_s.size
+    cap = prm[P_CAP]
+    eta_c = prm[P_ETA]
+    s2 = prm[P_IN] * prm[P_IN]
+    qs = prm[P_QSOC]
+    smin = prm[P_SMIN]
+    smax = prm[P_SMAX]
+    sv2 = prm[P_VN] * prm[P_VN] + prm[P_HM] * prm[P_HM]
+    z = soc0
+    var = var0
+    rest_start = -1
+    nrs = 0
+    for k in range(n):
+        if k > 0:
+            dt = time_s[k] - time_s[k - 1]
+            u = 0.5 * (current_a[k - 1] + current_a[k])
+            eta = 1.0 if u >= 0.0 else eta_c
+            z = z - eta * u * dt / cap
+            c = eta * dt / cap
+            var += c * c * s2 + qs * dt
+            if z < smin:
+                z = smin
+            elif z > smax:
+                z = smax
+        if abs(current_a[k]) <= rest_i:
+            if rest_start < 0:
+                rest_start = k
+            if k == n - 1 or abs(current_a[k + 1]) > rest_i:
+                dur = time_s[k] - time_s[rest_start]
+                use = do_reseed and (dur >= rest_min_s or (early_s > 0.0 and dur >= early_s))
+                if use:
+                    ex = early_s if dur < rest_min_s else 0.0
+                    ocv = _rest_ocv(time_s, voltage_v, current_a, tab, temp_c[k], prm, rest_start, k, ex, z)
+                    if ocv == ocv:
+                        zn = ocv_inverse(tab, ocv, temp_c[k], prm[P_TMIN], prm[P_TSTEP])
+                        if zn < smin:
+                            zn = smin
+                        elif zn > smax:
+                            zn = smax
+                        rs_time[nrs] = time_s[k]
+                        rs_before[nrs] = z
+                        rs_after[nrs] = zn
+                        nrs += 1
+                        z = zn
+                        _, slope = ocv_lookup(tab, zn, temp_c[k], prm[P_TMIN], prm[P_TSTEP])
+                        slope = max(abs(slope), 1e-3)
+                        sig = min(math.sqrt(sv2) / slope, 0.5)
+                        var = sig * sig
+                rest_start = -1
+        else:
+            rest_start = -1
+        soc_out[k] = z
+        sig_out[k] = math.sqrt(var)
+    return nrs

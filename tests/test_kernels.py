@@ -1,0 +1,115 @@
+"""Kernel tables, settings files and the compiled EKF basics (outside references named per check)."""
+from __future__ import annotations
+
+import json
+import os
+import subprocess
+import sys
+
+import numpy as np
+import pytest
+
+from ekf_cases import simulated_recording, tiny_model
+from estimator import kernels as K
+from estimator.ekf import run_ekf, run_ekf_batch, setup
+from estimator.run import estimate
+from estimator.settings import (FilterSettings, SettingsError, default_settings, load_settings,
+                                save_settings)
+from estimator.tables import KernelTables
+
+
+def test_settings_round_trip_and_unknown_keys(tmp_path):
+    m = tiny_model()
+    s = default_settings(m)
+    # 1 % SOC per hour random walk: 0.01^2 / 3600 (common practice, no source)
+    assert s.q_soc_per_s == pytest.approx(0.01 ** 2 / 3600)
+    assert s.rest_min_s == 3600.0  # US DOE / INL HPPC practice: one hour's rest before an OCV reading
+    assert s.current_noise_a == pytest.approx(0.048)
+    p = save_settings(s.with_(gate_sigma=3.0), tmp_path / "f.json")
+    d = json.loads(p.read_text())
+    assert d["schema"] == "socfuse.filter/1"
+    assert load_settings(p) == s.with_(gate_sigma=3.0)
+    d["gate_sigmaa"] = 1
+    p.write_text(json.dumps(d))
+    with pytest.raises(SettingsError, match="gate_sigmaa.*valid keys are.*gate_sigma"):
+        load_settings(p)
+    with pytest.raises(SettingsError, match="voltage_noise_v"):
+        FilterSettings(voltage_noise_v=-1.0)
+
+
+def test_tables_match_model_functions():
+    m = tiny_model(temperature=True)
+    tab = KernelTables.from_model(m, 401)
+    assert tab.temp_grid.tolist() == [5.0, 25.0, 45.0]
+    z = np.linspace(0.01, 0.99, 37)
+    # PCHIP curve (scipy PchipInterpolator inside OcvCurve) vs the 401-point linear table:
+    # the linear-interpolation error bound h^2/8 max|f''| is far below 1 mV here.
+    for temp in (5.0, 12.0, 25.0, 40.0):
+        ocv = tab.lookup(0, z, temp)
+        assert np.max(np.abs(ocv - m.ocv.voltage(z, temp))) < 1e-5
+        r0 = tab.lookup(2, z, temp)
+        assert np.max(np.abs(r0 - m.r0_ohm.at(z, temp))) < 1e-9  # linear tables are reproduced exactly
+    inv = np.array([K.ocv_inverse(tab.packed, v, 25.0, tab.t_min, tab.t_step) for v in tab.lookup(0, z, 25.0)])
+    np.testing.assert_allclose(inv, z, atol=1e-12)
+
+
+def test_ekf_tracks_simulation_and_batch_equals_single():
+    m = tiny_model(n_rc=2)
+    rec, sim = simulated_recording(m, n=1500, soc0=0.75, uneven=True)
+    tr = estimate(m, rec, "ekf")  # starts from the OCV inverse at the first sample
+    assert abs(tr.soc[0] - 0.75) < 0.05
+    assert np.sqrt(np.mean(tr.soc_error[300:] ** 2)) < 0.01
+    assert np.all(np.isfinite(tr.states)) and tr.n_gated == 0
+    recs = [rec, rec.slice(0, 700), rec.slice(100, 1400)]
+    batch = run_ekf_batch(m, recs, None, [0.7, None, 0.6])
+    for r, z, b in zip(recs, [0.7, None, 0.6], batch):
+        one = run_ekf(m, r, None, z)
+        np.testing.assert_array_equal(one.states, b.states)
+        np.testing.assert_array_equal(one.soc_sigma, b.soc_sigma)
+
+
+def test_linearise_matches_finite_differences():
+    m = tiny_model(n_rc=2, hysteresis=True)
+    su = setup(m, default_settings(m).with_(estimate_bias=True))
+    x = np.array([0.6, 0.01, 0.02, 0.1, 0.3])
+    xp, f, g, q, h, y = su.linearise(x, 2.0, 3.0, 1.5)
+    # central differences (textbook numerical Jacobian) of the same transition
+    eps = 1e-6
+    for j in range(1, 5):  # soc column omitted: F ignores the SOC dependence of the RC parameters
+        dx = np.zeros(5)
+        dx[j] = eps
+        fd = (su.linearise(x + dx, 2.0, 3.0, 1.5)[0] - su.linearise(x - dx, 2.0, 3.0, 1.5)[0]) / (2 * eps)
+        np.testing.assert_allclose(f[:, j], fd, atol=1e-8)
+    for j in range(1, 5):
+        dx = np.zeros(5)
+        dx[j] = eps
+        fd = (su.measure(xp + dx, 3.0)[0] - su.measure(xp - dx, 3.0)[0]) / (2 * eps)
+        assert h[j] == pytest.approx(fd, abs=1e-6)
+    # SOC column: the PCHIP slope (scipy PchipInterpolator derivative) minus dR0/dSOC * (i - bias);
+    # R0 = 0.02 - 0.005 soc, so dR0/dSOC = -0.005 ohm exactly
+    assert h[0] == pytest.approx(float(m.ocv.slope(xp[0])) + 0.005 * (3.0 - xp[3]), abs=1e-4)
+
+
+def test_pure_python_equals_compiled(tmp_path):
+    m = tiny_model(n_rc=1)
+    rec, _ = simulated_recording(m, n=150, uneven=True)
+    tr = run_ekf(m, rec)
+    np.save(tmp_path / "ref.npy", np.column_stack([tr.states, tr.soc_sigma, tr.voltage_pred_v]))
+    code = f"""
+import sys, numpy as np
+sys.path[:0] = [{os.getcwd()!r}, {os.path.dirname(__file__)!r}]
+from ekf_cases import simulated_recording, tiny_model
+from estimator.ekf import run_ekf
+from estimator.coulomb import run_coulomb
+m = tiny_model(n_rc=1)
+rec, _ = simulated_recording(m, n=150, uneven=True)
+tr = run_ekf(m, rec)
+ref = np.load({str(tmp_path / 'ref.npy')!r})
+out = np.column_stack([tr.states, tr.soc_sigma, tr.voltage_pred_v])
+assert np.max(np.abs(out - ref)) <= 1e-12, np.max(np.abs(out - ref))
+print("same")
+"""
+    env = dict(os.environ, NUMBA_DISABLE_JIT="1")
+    res = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0, res.stderr[-2000:]
+    assert "same" in res.stdout
