@@ -46,6 +46,11 @@ class EkfSetup:
                            np.asarray(x, dtype=float), float(i_prev), float(i_next), float(dt_s),
                            float(t_prev), float(t_next))
 
+    def transition(self, x, u_a, dt_s, t_c=np.nan):
+        """State after one interval with mean measured current ``u_a`` (A) over ``dt_s`` (s)."""
+        return K.transition(self.tables.packed, self.n_rc, self.i_b, self.i_h, self.prm,
+                            np.asarray(x, dtype=float), float(u_a), float(dt_s), float(t_c))
+
     def measure(self, x, i_k, t_c=np.nan):
         """``(y_pred_v, H)`` at state ``x``."""
         return K.measure(self.tables.packed, self.n_rc, self.i_b, self.i_h, self.prm,

@@ -35,7 +35,7 @@ from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "N_PRM", "table_value", "ocv_lookup",
-           "ocv_inverse", "measure", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
+           "ocv_inverse", "measure", "transition", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
 
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
 P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP = 9, 10, 11, 12, 13, 14
@@ -241,6 +241,18 @@ def measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c):
     hrow = np.zeros(x.size)
     y = _measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c, hrow)
     return y, hrow
+
+
+@njit(cache=True)
+def transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c):
+    """Python-callable process model: the state after one interval with mean current ``u_meas``."""
+    nx = x.size
+    xn = np.zeros(nx)
+    d = np.zeros(nx)
+    g = np.zeros(nx)
+    cache = np.full(2 * n_rc + 1, np.nan)
+    _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c, xn, d, g, cache)
+    return xn
 
 
 @njit(cache=True)
