@@ -47,7 +47,7 @@ ALL_FILES = (LAB_TESTS["ocv"],) + LAB_TESTS["pulse"] + DEMO_DAYS
 FULL_SCENARIOS = ("nominal", "soc0", "offset", "gain", "vnoise", "fade", "toffset", "vdrop", "ocv_offset",
                   "combined:soc0+offset+gain+vnoise+fade")
 QUICK_SCENARIOS = ("nominal", "soc0", "offset", "combined:soc0+offset+gain+vnoise+fade")
-UKF_SCENARIOS_FULL = ("nominal", "soc0", "offset", "combined")
+UKF_SCENARIOS_FULL = ("nominal", "offset", "combined")
 
 
 class DemoError(ValueError):
@@ -335,16 +335,9 @@ def _identify(recs, quick):
 
 
 def _bound_sigma(bmod, model, rec, settings) -> np.ndarray:
-    for name in ("pcrb_soc_sigma", "soc_bound_sigma", "pcrb", "posterior_crb", "bound"):
-        fn = getattr(bmod, name, None)
-        if fn is None:
-            continue
-        res = _call(fn, model, rec, settings=settings)
-        for attr in ("soc_sigma", "sigma_soc", "sigma"):
-            if hasattr(res, attr):
-                return np.asarray(getattr(res, attr), dtype=float)
-        return np.asarray(res, dtype=float)
-    raise AttributeError("estimator.bound offers no SOC-sigma function")
+    """SOC sigma of the posterior Cramer-Rao bound (estimator.bound.pcrb_soc_sigma) along ``rec``."""
+    res = bmod.pcrb_soc_sigma(model, rec, settings)
+    return np.asarray(res.soc_sigma, dtype=float)
 
 
 def _tuning_section(res):

@@ -32,7 +32,7 @@ __all__ = ["ReportSection", "ReportFiles", "write_report", "figure_png", "df_to_
 
 METHOD_COLOURS = {"ekf": "#1f5fa8", "ukf": "#2a9d5c", "coulomb": "#c8641e", "reference": "#111111"}
 METHOD_LABELS = {"ekf": "EKF", "ukf": "UKF (sigma-point)", "coulomb": "coulomb + OCV reseed"}
-MAX_PLOT_POINTS = 3000
+MAX_PLOT_POINTS = 2000
 
 SAFETY_PARAGRAPH = (
     "These figures describe an estimator on recorded data; they are not evidence that a battery is "
@@ -106,7 +106,7 @@ def figure_png(fig, dpi: int = 110) -> bytes:
     """PNG bytes of a Matplotlib figure (the figure is closed)."""
     plt = _plt()
     buf = io.BytesIO()
-    fig.savefig(buf, format="png", dpi=dpi, bbox_inches="tight")
+    fig.savefig(buf, format="png", dpi=dpi)
     plt.close(fig)
     return buf.getvalue()
 
@@ -155,9 +155,11 @@ def _safe_stem(s: str) -> str:
 def _scenario_figure(rec_name: str, scenario: str, traces: Mapping, bound=None):
     """2 x 2 figure of one recording under one scenario (module docstring)."""
     plt = _plt()
-    fig, ax = plt.subplots(2, 2, figsize=(12.5, 7.2))
+    fig, ax = plt.subplots(2, 2, figsize=(12.5, 7.6))
+    fig.subplots_adjust(left=0.07, right=0.985, bottom=0.075, top=0.91, wspace=0.2, hspace=0.36)
     (a_soc, a_err), (a_res, a_hist) = ax
     ref_done = False
+    res_all = []
     for method, tr in traces.items():
         c = METHOD_COLOURS.get(method, None)
         s = _stride(tr.time_s.size)
@@ -180,6 +182,8 @@ def _scenario_figure(rec_name: str, scenario: str, traces: Mapping, bound=None):
         if method != "coulomb" and np.any(np.isfinite(tr.innovation_v)):
             inn = np.asarray(tr.innovation_v, dtype=float)
             a_res.plot(th, 1e3 * inn[s], color=c, lw=0.6, alpha=0.8, label=METHOD_LABELS.get(method, method))
+            if np.any(np.isfinite(inn)):
+                res_all.append(1e3 * inn[np.isfinite(inn)])
             var = np.asarray(tr.innovation_var_v2, dtype=float)
             ok = np.isfinite(inn) & np.isfinite(var) & (var > 0)
             if ok.sum() > 10:
@@ -192,7 +196,7 @@ def _scenario_figure(rec_name: str, scenario: str, traces: Mapping, bound=None):
         bh = (np.asarray(bt) - bt[0]) / 3600.0
         s = _stride(len(bh))
         a_err.plot(bh[s], 300 * np.asarray(bs)[s], color="#7b2d8e", lw=1.2, ls="--",
-                   label="+-3 sigma, Cramer-Rao bound")
+                   label="+-3 sigma, Cramer-Rao bound (model, fault-free)")
         a_err.plot(bh[s], -300 * np.asarray(bs)[s], color="#7b2d8e", lw=1.2, ls="--")
     for y in (-2, 2):
         a_err.axhline(y, color="#888888", lw=0.8, ls=":")
@@ -204,20 +208,24 @@ def _scenario_figure(rec_name: str, scenario: str, traces: Mapping, bound=None):
     lim = a_err.get_ylim()
     a_err.set_ylim(max(lim[0], -30), min(lim[1], 30))
     a_res.set(xlabel="time (h)", ylabel="voltage residual (mV)", title="innovation (measured - predicted voltage)")
+    if res_all:
+        lo, hi = np.nanpercentile(np.concatenate(res_all), [0.2, 99.8])
+        pad = 0.3 * max(hi - lo, 1e-3)
+        a_res.set_ylim(lo - pad, hi + pad)
     a_hist.set(xlabel="normalised innovation nu / sqrt(S) (-)", ylabel="density (-)",
                title="innovation histogram (clipped at +-6)")
     for a in (a_soc, a_err, a_res, a_hist):
         a.grid(True, alpha=0.3)
         if a.get_legend_handles_labels()[0]:
             a.legend(fontsize=8, loc="best")
-    fig.suptitle(f"scenario: {scenario}", fontsize=13, y=1.0)
-    fig.tight_layout()
+    fig.suptitle(f"scenario: {scenario}", fontsize=13)
     return fig
 
 
 def _rmse_figure(summary, scenarios: Sequence[str], methods: Sequence[str]):
     plt = _plt()
-    fig, (a1, a2) = plt.subplots(1, 2, figsize=(12.5, 4.3))
+    fig, (a1, a2) = plt.subplots(1, 2, figsize=(12.5, 4.6))
+    fig.subplots_adjust(left=0.07, right=0.985, bottom=0.3, top=0.92, wspace=0.2)
     x = np.arange(len(scenarios))
     w = 0.8 / max(1, len(methods))
     for k, m in enumerate(methods):
@@ -233,7 +241,6 @@ def _rmse_figure(summary, scenarios: Sequence[str], methods: Sequence[str]):
         a.set(ylabel=yl, title=t)
         a.grid(True, axis="y", alpha=0.3)
         a.legend(fontsize=8)
-    fig.tight_layout()
     return fig
 
 
@@ -242,7 +249,8 @@ def _energy_figure(model, trace=None):
 
     plt = _plt()
     n = 2 if trace is not None else 1
-    fig, ax = plt.subplots(1, n, figsize=(6.2 * n, 4.2))
+    fig, ax = plt.subplots(1, n, figsize=(6.2 * n, 4.4))
+    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.13, top=0.9, wspace=0.25)
     ax = np.atleast_1d(ax)
     z = np.linspace(0, 1, 201)
     for t_c, ls in ((25.0, "-"), (5.0, "--")):
@@ -261,7 +269,6 @@ def _energy_figure(model, trace=None):
         ax[1].set(xlabel="time (h)", ylabel="SOC (%)", title=f"SOC_C and SOC_E side by side: {trace.name}")
         ax[1].grid(True, alpha=0.3)
         ax[1].legend(fontsize=8)
-    fig.tight_layout()
     return fig
 
 
