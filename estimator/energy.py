@@ -26,11 +26,12 @@ change a result.
 
 Energy at a load (:func:`usable_energy`): the model is discharged from a given state at a
 constant current or a constant power until the *terminal* voltage reaches ``model.v_min_v``
-or the SOC reaches 0 (the model's empty point; its OCV below SOC 0 is an extrapolation), with
-the project's one simulator :func:`models.thevenin.simulate` (sampling rule of DEVELOPERS.md:
-exact zero-order hold for the RC pairs, so a constant current is integrated without
-discretisation error in the RC dynamics).  Constant power is solved by a fixed-point
-iteration on the current profile, ``i_k = P / v_k``, each pass a full simulation.  This is
+or the SOC reaches 0 (the model's empty point; its OCV below SOC 0 is an extrapolation), by
+simulating the model under the sampling rule of DEVELOPERS.md (exact zero-order hold for the
+RC pairs, so a constant current is integrated without discretisation error in the RC
+dynamics) with :func:`models.identify.fastsim.simulate_fast`, the vectorised form of
+:func:`models.thevenin.simulate` that equals it to rounding.  Constant power is solved by a
+fixed-point iteration on the current profile, ``i_k = P / v_k``, each pass a full simulation.  This is
 better than a steady-state (``R0 + sum R_j``) shortcut when an RC time constant is not small
 next to the runtime.  At zero load the result is the rest energy.
 
@@ -49,7 +50,8 @@ import numpy as np
 from scipy.interpolate import PchipInterpolator
 
 from models.tables import as_axis, clamp_weights
-from models.thevenin import SECONDS_PER_HOUR, CellModel, simulate
+from models.identify.fastsim import simulate_fast
+from models.thevenin import SECONDS_PER_HOUR, CellModel
 
 __all__ = [
     "EnergyError", "EnergyTable", "energy_table", "soc_c_to_e", "soc_e_to_c", "rest_energy_wh",
@@ -432,7 +434,8 @@ def usable_energy(model: CellModel, *, current_a: float | None = None, power_w: 
 
     Notes
     -----
-    The discharge is simulated with :func:`models.thevenin.simulate` (exact ZOH RC dynamics,
+    The discharge is simulated with :func:`models.identify.fastsim.simulate_fast` (equal to
+    :func:`models.thevenin.simulate` to rounding; exact ZOH RC dynamics,
     resistances at the running SOC and temperature), the energy is the trapezoid of
     ``v * i`` over the samples and the cut-off time is interpolated linearly inside the last
     interval.  The discharge ends at the first of ``v <= v_min_v`` or ``SOC <= 0``.
@@ -471,7 +474,7 @@ def usable_energy(model: CellModel, *, current_a: float | None = None, power_w: 
         # first guess: current at the OCV along a coulomb count at P / OCV(soc0)
         i_prof = np.full(time_s.shape, p_cell / float(model.ocv.voltage(soc0, temp)))
         for _ in range(int(max_iter)):
-            sim = simulate(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
+            sim = simulate_fast(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
             cross = _first_crossing(sim.voltage_v, sim.soc, model.v_min_v)
             last = sim.voltage_v.size if cross is None else cross[0] + 2
             v = np.maximum(sim.voltage_v, 0.2 * model.v_min_v)
@@ -488,7 +491,7 @@ def usable_energy(model: CellModel, *, current_a: float | None = None, power_w: 
                               "the load may exceed the cell's maximum power")
     else:
         i_prof = np.full(time_s.shape, i_cell)
-    sim = simulate(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
+    sim = simulate_fast(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
     v, soc = sim.voltage_v, sim.soc
     cross = _first_crossing(v, soc, model.v_min_v)
     if cross is None:  # pragma: no cover - t_end covers SOC 0 by construction

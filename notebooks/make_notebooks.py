@@ -1,0 +1,162 @@
+"""Write the worked-example notebooks of this folder (without outputs).
+
+    python notebooks/make_notebooks.py          # rewrites 01_*.ipynb and 02_*.ipynb here
+
+The notebooks are kept as code here so their JSON is always valid and reviewable; the test
+suite executes them (tests/test_notebooks.py).  Demo data: demo cell C48 (invented), see
+datasets/README.md.
+"""
+from __future__ import annotations
+
+from pathlib import Path
+
+import nbformat
+from nbformat.v4 import new_code_cell, new_markdown_cell, new_notebook
+
+HERE = Path(__file__).resolve().parent
+
+SETUP = '''\
+import sys
+from pathlib import Path
+
+# run from notebooks/ (Jupyter's default) or from the repository root
+REPO = Path.cwd().parent if (Path.cwd().parent / "models").is_dir() else Path.cwd()
+if str(REPO) not in sys.path:
+    sys.path.insert(0, str(REPO))
+DATA = REPO / "datasets"
+
+import numpy as np
+import matplotlib
+import matplotlib.pyplot as plt
+from estimator.cli import SAFETY_NOTE
+%matplotlib inline'''
+
+IDENTIFY = '''\
+from models.loaders import load_recording
+from models.identify.pipeline import identify
+
+c20 = load_recording(DATA / "c48_c20_25degC.csv")
+pulses = [load_recording(DATA / "c48_pulse_25degC.csv"), load_recording(DATA / "c48_pulse_05degC.csv")]
+result = identify(c20, pulses, name="demo cell C48 (identified)")
+model = result.model'''
+
+NB1 = [
+    new_markdown_cell(
+        "# Characterise demo cell C48 and estimate its SOC\n\n"
+        "A courier co-operative runs electric cargo tricycles with 14s4p packs of demo cell C48 (an invented "
+        "4.8 Ah NMC cell; the data in `datasets/` comes from a richer truth simulator, see its README).\n\n"
+        "1. identify a Thevenin model from the C/20 test and the pulse tests at 25 and 5 degC;\n"
+        "2. run the EKF and the coulomb-counting baseline (with OCV reseed after rests) over a delivery "
+        "day with a lunch break;\n"
+        "3. compare both with the recording's reference SOC."),
+    new_code_cell(SETUP),
+    new_code_cell(IDENTIFY + "\nprint(result.summary())"),
+    new_code_cell('''\
+s = np.linspace(0, 1, 201)
+fig, ax = plt.subplots(figsize=(6, 3.5))
+ax.plot(100 * c20.soc_ref, c20.voltage_v, lw=0.6, color="0.6", label="C/20 test (terminal voltage)")
+ax.plot(100 * s, model.ocv.voltage(s, 25.0), lw=2, label="identified OCV")
+ax.set_xlabel("SOC (%)"); ax.set_ylabel("voltage (V)"); ax.legend(); ax.grid(alpha=0.3)
+print(f"R0 at 50 % SOC, 25 degC: {1000 * float(model.r0_ohm.at(0.5, 25.0)):.1f} mOhm; "
+      f"{model.n_rc} RC pair(s)")'''),
+    new_markdown_cell("## A delivery day: EKF beside coulomb counting\n\n"
+                      "Neither estimator is told the starting SOC: both take it from the first voltage sample."),
+    new_code_cell('''\
+from estimator.run import estimate
+from estimator.metrics import trace_metrics
+
+day = load_recording(DATA / "c48_day_lunch.csv")
+traces = {m: estimate(model, day, m) for m in ("ekf", "coulomb")}
+for name, tr in traces.items():
+    f = trace_metrics(tr)
+    print(f"{name:8s} RMSE {f.rmse_pct:.2f} %  max {f.max_abs_pct:.2f} %  final {f.final_abs_pct:.2f} %  "
+          f"reseeds {len(tr.reseeds)}")'''),
+    new_code_cell('''\
+hours = day.time_s / 3600
+fig, (a1, a2) = plt.subplots(2, 1, figsize=(7, 5), sharex=True)
+a1.plot(hours, 100 * day.soc_ref, "k", lw=1, label="reference")
+for name, tr in traces.items():
+    a1.plot(hours, 100 * tr.soc, lw=1, label=name)
+    a2.plot(hours, 100 * tr.soc_error, lw=1, label=name)
+ekf = traces["ekf"]
+a2.fill_between(hours, -300 * ekf.soc_sigma, 300 * ekf.soc_sigma, color="C0", alpha=0.15, label="EKF 3 sigma")
+a1.set_ylabel("SOC (%)"); a2.set_ylabel("error (points)"); a2.set_xlabel("time (h)")
+a1.legend(); a2.legend(); a1.grid(alpha=0.3); a2.grid(alpha=0.3)
+print(SAFETY_NOTE)'''),
+]
+
+NB2 = [
+    new_markdown_cell(
+        "# Energy-based SOC and remaining energy\n\n"
+        "Capacity-based SOC (SOC_C) counts charge; a rider needs energy. At rest the energy left is "
+        "`E(z) = Q * integral_0^z OCV(s) ds`, and SOC_E = E(z) / E(1). Because the OCV is higher when the "
+        "cell is full, SOC_E sits below SOC_C mid-range. Under load the terminal voltage reaches the 2.5 V "
+        "cut-off earlier, so less energy is usable; `estimator.energy.usable_energy` simulates the "
+        "identified model to the cut-off at a constant current or power."),
+    new_code_cell(SETUP),
+    new_code_cell(IDENTIFY),
+    new_code_cell('''\
+from estimator.energy import energy_table, soc_c_to_e, soc_e_to_c, usable_energy, parse_pack
+
+table = energy_table(model)
+z = np.linspace(0, 1, 11)
+print(" SOC_C %   SOC_E %   rest energy per cell (Wh)")
+for zc, ze, e in zip(z, table.soc_e(z), table.energy_wh(z)):
+    print(f"{100 * zc:7.0f} {100 * ze:9.2f} {e:12.2f}")
+print(f"half the energy is left at SOC_C {100 * soc_e_to_c(model, 0.5):.1f} %")
+s = np.linspace(0, 1, 201)
+fig, ax = plt.subplots(figsize=(6, 3))
+ax.plot(100 * s, 100 * (soc_c_to_e(model, s) - s))
+ax.set_xlabel("SOC_C (%)"); ax.set_ylabel("SOC_E - SOC_C (points)"); ax.grid(alpha=0.3)'''),
+    new_markdown_cell("## The 14s4p pack at a steady load\n\nA cargo tricycle draws a few hundred watts on the "
+                      "flat; the table shows how much of the rest energy each steady load can use."),
+    new_code_cell('''\
+pack = parse_pack("14s4p")
+rest = float(table.full_energy_wh()) * pack.n_cells
+print(f"pack {pack.label}: rest energy {rest:.0f} Wh")
+print("  load W   usable Wh   of rest   runtime h   cut-off SOC_C %")
+for p_w in (100, 300, 600, 1000, 1500):
+    r = usable_energy(model, power_w=p_w, pack=pack, n_steps=800)
+    print(f"{p_w:8.0f} {r.energy_wh:11.0f} {100 * r.energy_wh / rest:8.1f} % {r.runtime_s / 3600:10.2f} "
+          f"{100 * r.cutoff_soc:12.1f}")'''),
+    new_markdown_cell("## Remaining energy along a delivery day\n\nThe estimate trace carries `soc_e` and the "
+                      "rest energy left per cell; multiply by the cell count for the pack."),
+    new_code_cell('''\
+from estimator.run import estimate
+
+day = load_recording(DATA / "c48_day_long.csv")
+tr = estimate(model, day, "ekf")
+hours = day.time_s / 3600
+fig, (a1, a2) = plt.subplots(2, 1, figsize=(7, 4.5), sharex=True)
+a1.plot(hours, 100 * tr.soc, label="SOC_C (EKF)")
+a1.plot(hours, 100 * tr.soc_e, label="SOC_E at rest")
+a2.plot(hours, tr.energy_wh_remaining * pack.n_cells)
+a1.set_ylabel("SOC (%)"); a2.set_ylabel("pack energy left (Wh)"); a2.set_xlabel("time (h)")
+a1.legend(); a1.grid(alpha=0.3); a2.grid(alpha=0.3)
+print(f"end of day: SOC_C {100 * tr.soc[-1]:.1f} %, SOC_E {100 * tr.soc_e[-1]:.1f} %, "
+      f"{tr.energy_wh_remaining[-1] * pack.n_cells:.0f} Wh left at rest")
+print(SAFETY_NOTE)'''),
+]
+
+NOTEBOOKS = {"01_characterise_and_estimate.ipynb": NB1, "02_energy_soc.ipynb": NB2}
+
+
+def build(folder: Path = HERE) -> list[Path]:
+    """Write the notebooks into ``folder``; returns their paths."""
+    out = []
+    for name, cells in NOTEBOOKS.items():
+        nb = new_notebook(cells=cells, metadata={
+            "kernelspec": {"name": "python3", "display_name": "Python 3", "language": "python"},
+            "language_info": {"name": "python"}})
+        nbformat.validate(nb)
+        path = Path(folder) / name
+        tmp = path.with_suffix(".ipynb.tmp")
+        nbformat.write(nb, tmp)
+        tmp.replace(path)
+        out.append(path)
+    return out
+
+
+if __name__ == "__main__":
+    for p in build():
+        print(p)
