@@ -1,0 +1,356 @@
+"""Noise tuning: choose the EKF's process and measurement noise (and initial covariance) from data.
+
+Two objectives, both evaluated by running the compiled EKF (:func:`estimator.kernels.ekf_run_batch`,
+all recordings at once) for each trial setting:
+
+``"likelihood"`` (no reference needed)
+    Maximise the innovation (prediction-error) log-likelihood of the recordings::
+
+        log L = sum_k log N(nu_k; 0, S_k) = -1/2 sum_k [log(2 pi S_k) + nu_k^2 / S_k]
+
+    over the logarithms of the chosen noise parameters.  For a linear Gaussian model this is the
+    exact likelihood of the data (the prediction-error decomposition; Schweppe, IEEE Trans. Inf.
+    Theory 11 (1965) 61-70; Harvey, *Forecasting, Structural Time Series Models and the Kalman
+    Filter*, 1989, ch. 3.4); for the EKF it is the usual approximation.
+``"soc-error"`` (every recording needs ``soc_ref``)
+    Minimise the SOC RMSE against the reference subject to consistency, as a penalty on the
+    time-averaged NIS leaving its chi-square band (Bar-Shalom, Li, Kirubarajan 2001, ch. 5)::
+
+        J = RMSE * (1 + w * e^2),  e = max(0, log(mean NIS / hi), log(lo / mean NIS))
+
+    so that a setting that wins RMSE by claiming an unrealistically small voltage noise (an
+    overconfident filter) is refused.
+
+Search: bounded Nelder-Mead (``scipy.optimize.minimize``) on ``log10`` of each parameter, with
+an initial simplex of half a decade along each axis; parameters that behave like variances or
+sigmas are all positive, so the log scale is natural and keeps them positive.
+
+What is identifiable: the voltage noise sets the innovation floor and is well determined.
+Current-sensor noise reaches the voltage only through the SOC and RC states (``Q = G G^T
+sigma_i^2``), so it is determined only when it dominates the other process noise; it is
+strongly confounded with ``q_soc_per_s`` and ``q_rc_v2_per_s`` (tune either, not all three, when
+the data are short).  On a cell whose true behaviour is richer than the filter's model (the usual
+case) the tuned values are *effective* values that absorb model error, not sensor data-sheet
+figures.
+"""
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from scipy import optimize
+
+from . import kernels as K
+from .consistency import ConsistencyResult, nis_test
+from .ekf import _arrays, _prior, initial_soc, setup
+from .settings import FilterSettings, default_settings
+
+__all__ = ["TUNABLE", "TuneResult", "TuningError", "default_params", "ekf_raw", "innovation_nll",
+           "evaluate", "tune"]
+
+#: Tunable settings: (kind, lower, upper) with absolute bounds in the setting's own unit.
+#: Wide on purpose (common practice, no source): they only stop the search from running away.
+TUNABLE = {
+    "voltage_noise_v": ("sigma", 1e-5, 0.5),
+    "current_noise_a": ("sigma", 1e-6, 50.0),
+    "q_soc_per_s": ("density", 1e-18, 1e-4),
+    "q_rc_v2_per_s": ("density", 1e-18, 1e-2),
+    "q_bias_a2_per_s": ("density", 1e-18, 1e-2),
+    "q_hyst_per_s": ("density", 1e-16, 1.0),
+    "p0_soc": ("sigma", 1e-4, 0.5),
+    "p0_rc_v": ("sigma", 1e-6, 1.0),
+    "p0_bias_a": ("sigma", 1e-6, 20.0),
+    "p0_hyst": ("sigma", 1e-4, 2.0),
+}
+
+OBJECTIVES = ("likelihood", "soc-error")
+_LOG2PI = math.log(2.0 * math.pi)
+
+
+class TuningError(ValueError):
+    """Bad tuning input (unknown parameter or objective, no reference for ``soc-error``)."""
+
+
+@dataclass(frozen=True, eq=False)
+class TuneResult:
+    """Outcome of :func:`tune`.
+
+    Attributes
+    ----------
+    settings : FilterSettings
+        The tuned settings (the start settings with the chosen values).
+    start : FilterSettings
+    objective : str
+        ``"likelihood"`` or ``"soc-error"``.
+    params : tuple of str
+        Settings that were tuned.
+    objective_before, objective_after : float
+        The minimised objective: mean negative log-likelihood per innovation (nats) for
+        ``likelihood``; penalised SOC RMSE (fraction) for ``soc-error``.
+    nll_before, nll_after : float
+        Mean negative log-likelihood per innovation (nats), both objectives.
+    rmse_before, rmse_after : float or None
+        SOC RMSE (fraction) when every recording has ``soc_ref``.
+    nis_before, nis_after : ConsistencyResult
+        Pooled NIS test over all recordings.
+    iterations, evaluations : int
+        Optimiser iterations and EKF evaluations (each runs all recordings).
+    converged : bool
+    message : str
+    recordings : tuple of str
+    n_samples : int
+        Innovations used.
+    """
+
+    settings: FilterSettings
+    start: FilterSettings
+    objective: str
+    params: tuple
+    objective_before: float
+    objective_after: float
+    nll_before: float
+    nll_after: float
+    rmse_before: float | None
+    rmse_after: float | None
+    nis_before: ConsistencyResult
+    nis_after: ConsistencyResult
+    iterations: int
+    evaluations: int
+    converged: bool
+    message: str
+    recordings: tuple = ()
+    n_samples: int = 0
+    history: tuple = field(default=(), repr=False)
+
+    def values(self) -> dict:
+        """Chosen values of the tuned settings."""
+        return {p: getattr(self.settings, p) for p in self.params}
+
+    def to_frame(self):
+        """DataFrame: ``setting``, ``before``, ``after``, ``ratio`` (after / before)."""
+        import pandas as pd
+
+        rows = []
+        for p in self.params:
+            b, a = getattr(self.start, p), getattr(self.settings, p)
+            rows.append({"setting": p, "before": b, "after": a, "ratio": a / b if b > 0 else np.nan})
+        return pd.DataFrame(rows)
+
+    def describe(self) -> str:
+        """Multi-line text for the CLI and the report."""
+        lines = [f"noise tuning ({self.objective}) on {len(self.recordings)} recording(s), "
+                 f"{self.n_samples} innovations; {self.evaluations} EKF evaluations, {self.iterations} "
+                 f"iterations ({'converged' if self.converged else 'stopped: ' + self.message})"]
+        w = max(len(p) for p in self.params) if self.params else 10
+        for p in self.params:
+            lines.append(f"  {p:<{w}}  {getattr(self.start, p):.4g} -> {getattr(self.settings, p):.4g}")
+        lines.append(f"  mean negative log-likelihood per innovation: {self.nll_before:.5g} -> {self.nll_after:.5g} nats")
+        if self.rmse_before is not None:
+            lines.append(f"  SOC RMSE: {100 * self.rmse_before:.3f} % -> {100 * self.rmse_after:.3f} %")
+        if self.objective == "soc-error":
+            lines.append(f"  objective (penalised RMSE): {self.objective_before:.5g} -> {self.objective_after:.5g}")
+        lines.append(f"  before: {self.nis_before.describe()}")
+        lines.append(f"  after:  {self.nis_after.describe()}")
+        return "\n".join(lines)
+
+
+# ----------------------------------------------------------------------------- evaluation
+def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=None) -> dict:
+    """Run the compiled batched EKF and return the raw arrays (no Trace, no energy SOC).
+
+    The same kernel and priors as :func:`estimator.ekf.run_ekf_batch`, for loops that only need
+    the SOC, its sigma and the innovations (tuning, Monte Carlo).
+
+    Returns
+    -------
+    dict with ``offsets`` (M+1,), ``soc``, ``soc_sigma``, ``innovation_v``, ``innovation_var_v2``
+    (all concatenated over the recordings, total length sum N) and ``n_gated`` (M,).
+    """
+    recs = list(recs)
+    su = setup(model, settings)
+    m = len(recs)
+    if soc0s is None or np.isscalar(soc0s):
+        soc0s = [soc0s] * m
+    if len(soc0s) != m:
+        raise TuningError(f"{len(soc0s)} soc0 values for {m} recordings")
+    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
+    lens = np.array([r.n for r in recs])
+    offsets = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
+    nx = su.n_x
+    x0s = np.empty((m, nx))
+    p0s = np.empty((m, nx, nx))
+    for r, (rec, z) in enumerate(zip(recs, soc0s)):
+        x0s[r], p0s[r] = _prior(su, *initial_soc(su, rec, z))
+    cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[_arrays(r) for r in recs])]
+    n = int(offsets[-1])
+    x_out = np.empty((n, nx))
+    sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    gated = np.zeros(m, dtype=np.int64)
+    K.ekf_run_batch(offsets, *cat, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, scales,
+                    x0s, p0s, x_out, sig, vp, inn, sv, gated)
+    return {"offsets": offsets, "soc": x_out[:, 0].copy(), "soc_sigma": sig, "innovation_v": inn,
+            "innovation_var_v2": sv, "n_gated": gated}
+
+
+def innovation_nll(innovation_v, innovation_var_v2) -> tuple[float, int]:
+    """Total negative log-likelihood ``1/2 sum [log(2 pi S) + nu^2/S]`` (nats) and the count.
+
+    NaN innovations (predict-only samples) are skipped.
+    """
+    nu = np.asarray(innovation_v, dtype=float)
+    s = np.asarray(innovation_var_v2, dtype=float)
+    ok = np.isfinite(nu) & np.isfinite(s) & (s > 0)
+    n = int(ok.sum())
+    if n == 0:
+        return math.inf, 0
+    return float(0.5 * np.sum(_LOG2PI + np.log(s[ok]) + nu[ok] ** 2 / s[ok])), n
+
+
+@dataclass(frozen=True)
+class _Eval:
+    nll: float
+    n: int
+    rmse: float | None
+    nis: ConsistencyResult
+
+
+def evaluate(model, recs, settings: FilterSettings, soc0s=None, confidence: float = 0.95) -> _Eval:
+    """Likelihood, SOC RMSE (when all recordings have ``soc_ref``) and pooled NIS of one setting."""
+    recs = list(recs)
+    raw = ekf_raw(model, recs, settings, soc0s)
+    nll, n = innovation_nll(raw["innovation_v"], raw["innovation_var_v2"])
+    rmse = None
+    if all(r.soc_ref is not None for r in recs):
+        ref = np.concatenate([np.asarray(r.soc_ref, dtype=float) for r in recs])
+        rmse = float(np.sqrt(np.mean((raw["soc"] - ref) ** 2)))
+    nis = nis_test(raw["innovation_v"], raw["innovation_var_v2"], confidence)
+    return _Eval(nll, n, rmse, nis)
+
+
+def default_params(model, settings: FilterSettings, objective: str = "likelihood", with_p0: bool = False) -> tuple:
+    """Default set of tuned settings: voltage and current noise, the SOC random walk, the RC random
+    walk when the model has RC pairs, the bias random walk when the bias is estimated, and
+    ``p0_soc`` when ``with_p0`` (an initial SOC is given)."""
+    p = ["voltage_noise_v", "current_noise_a", "q_soc_per_s"]
+    if model.n_rc > 0:
+        p.append("q_rc_v2_per_s")
+    if settings.estimate_bias:
+        p.append("q_bias_a2_per_s")
+    if with_p0:
+        p.append("p0_soc")
+    return tuple(p)
+
+
+def _penalised(rmse: float, nis: ConsistencyResult, weight: float) -> float:
+    lo, hi = nis.band_lo, nis.band_hi
+    e = max(0.0, math.log(nis.mean / hi), math.log(lo / nis.mean)) if nis.mean > 0 else 50.0
+    return rmse * (1.0 + weight * e * e)
+
+
+def tune(model, recs, settings: FilterSettings | None = None, objective: str = "likelihood", params=None,
+         soc0s=None, max_evaluations: int = 150, penalty_weight: float = 10.0, confidence: float = 0.95,
+         xatol_decades: float = 0.01, quiet: bool = True) -> TuneResult:
+    """Tune the filter noise on one or more recordings.
+
+    Parameters
+    ----------
+    model : models.CellModel
+    recs : Recording or sequence of Recording
+    settings : FilterSettings, optional
+        Start values and everything that is not tuned (default :func:`default_settings`).
+    objective : ``"likelihood"`` or ``"soc-error"``
+    params : sequence of str, optional
+        Settings to tune (keys of :data:`TUNABLE`); default :func:`default_params`.
+    soc0s : None, float or sequence, optional
+        Initial SOC per recording (fraction); ``p0_soc`` is only meaningful with it.
+    max_evaluations : int
+        Budget of EKF evaluations (each runs every recording once).
+    penalty_weight : float
+        ``w`` of the NIS-band penalty of the ``soc-error`` objective.
+    confidence : float
+        Probability of the NIS band.
+    xatol_decades : float
+        Convergence tolerance of the search in decades (0.01 = 2.3 %).
+    quiet : bool
+        No progress bar.
+
+    Returns
+    -------
+    TuneResult
+    """
+    from .progress import ProgressBar
+
+    if not hasattr(recs, "__len__") or hasattr(recs, "time_s"):
+        recs = [recs]
+    recs = list(recs)
+    if not recs:
+        raise TuningError("no recordings to tune on")
+    if objective not in OBJECTIVES:
+        raise TuningError(f"unknown objective {objective!r}; choose one of {', '.join(OBJECTIVES)}")
+    start = default_settings(model) if settings is None else settings
+    if objective == "soc-error":
+        missing = [r.name or f"#{j}" for j, r in enumerate(recs) if r.soc_ref is None]
+        if missing:
+            raise TuningError(f"objective soc-error needs soc_ref in every recording; missing in {', '.join(missing)}")
+    with_p0 = soc0s is not None and (np.isscalar(soc0s) or any(z is not None for z in soc0s))
+    params = tuple(default_params(model, start, objective, with_p0) if params is None else params)
+    bad = [p for p in params if p not in TUNABLE]
+    if bad or not params:
+        raise TuningError(f"cannot tune {', '.join(bad) or 'nothing'}; tunable settings: {', '.join(TUNABLE)}")
+    if len(set(params)) != len(params):
+        raise TuningError("a setting is listed twice in params")
+    lo = np.array([math.log10(TUNABLE[p][1]) for p in params])
+    hi = np.array([math.log10(TUNABLE[p][2]) for p in params])
+    x0 = np.array([math.log10(min(max(getattr(start, p), TUNABLE[p][1] * 10), TUNABLE[p][2] / 10)) for p in params])
+
+    def to_settings(x):
+        return start.with_(**{p: float(10.0 ** v) for p, v in zip(params, np.clip(x, lo, hi))})
+
+    cache: dict = {}
+    history = []
+    bar = ProgressBar(max_evaluations, "tune", quiet, unit="eval")
+
+    def fun(x):
+        key = tuple(np.round(x, 6))
+        if key in cache:
+            return cache[key][0]
+        ev = evaluate(model, recs, to_settings(x), soc0s, confidence)
+        if objective == "likelihood":
+            f = ev.nll if math.isfinite(ev.nll) else 1e300
+        else:
+            f = _penalised(ev.rmse, ev.nis, penalty_weight)
+        cache[key] = (f, ev)
+        history.append((tuple(float(10.0 ** v) for v in x), f))
+        bar.update(1)
+        return f
+
+    try:
+        f_before = fun(x0)
+        ev_before = cache[tuple(np.round(x0, 6))][1]
+        simplex = np.vstack([x0] + [x0 + 0.5 * np.eye(len(params))[j] for j in range(len(params))])
+        simplex = np.clip(simplex, lo, hi)
+        for j in range(1, len(simplex)):  # a start on the upper bound steps down instead
+            if np.allclose(simplex[j], x0):
+                simplex[j, j - 1] = x0[j - 1] - 0.5
+        fatol = 0.01 if objective == "likelihood" else 1e-7
+        res = optimize.minimize(fun, x0, method="Nelder-Mead", bounds=list(zip(lo, hi)),
+                                options={"initial_simplex": simplex, "maxfev": max(int(max_evaluations) - 1, 1),
+                                         "xatol": xatol_decades, "fatol": fatol})
+    finally:
+        bar.close()
+    best_key = min(cache, key=lambda k: cache[k][0])
+    f_after, ev_after = cache[best_key]
+    if f_after > f_before:  # never return something worse than the start
+        best_key, f_after, ev_after = tuple(np.round(x0, 6)), f_before, ev_before
+    tuned = to_settings(np.array(best_key))
+    n = ev_after.n
+    return TuneResult(
+        settings=tuned, start=start, objective=objective, params=params,
+        objective_before=f_before / ev_before.n if objective == "likelihood" else f_before,
+        objective_after=f_after / n if objective == "likelihood" else f_after,
+        nll_before=ev_before.nll / ev_before.n, nll_after=ev_after.nll / n,
+        rmse_before=ev_before.rmse, rmse_after=ev_after.rmse, nis_before=ev_before.nis, nis_after=ev_after.nis,
+        iterations=int(getattr(res, "nit", 0)), evaluations=len(cache), converged=bool(res.success),
+        message=str(res.message), recordings=tuple(r.name for r in recs), n_samples=n, history=tuple(history))
+

@@ -1,0 +1,102 @@
+"""Noise tuning by innovation likelihood and by SOC error under a NIS constraint."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+from scipy import stats
+
+from ekf_cases import drive_profile
+from estimator.settings import default_settings
+from estimator.tuning import TuningError, innovation_nll, tune
+from models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
+
+SIGMA_V = 0.005  # true voltage-sensor noise, V
+SIGMA_I = 0.2    # true current-sensor noise, A
+
+
+def _model():
+    # invented NMC-like cell for the test: R0 10 mohm, one RC pair 40 mohm / 30 s
+    soc = np.linspace(0.0, 1.0, 11)
+    return CellModel(4.8, OcvCurve(soc, 3.0 + 1.0 * soc + 0.25 * soc ** 2), ParamTable.constant(0.01, "r0_ohm"),
+                     (RcPair(ParamTable.constant(0.04, "r1_ohm"), ParamTable.constant(30.0, "tau1_s")),), 1.0,
+                     name="tuning test cell")
+
+
+@pytest.fixture(scope="module")
+def data():
+    model = _model()
+    recs = []
+    for seed in (0, 1):
+        t, i = drive_profile(20000, seed)
+        i = i - i.mean() + 0.4  # net C/12 discharge: stays inside 0..1 SOC over 5.5 h
+        sim = simulate(model, t, i, soc0=0.95)
+        rng = np.random.default_rng(10 + seed)
+        recs.append(Recording(t, i + rng.normal(0.0, SIGMA_I, t.size), sim.voltage_v + rng.normal(0.0, SIGMA_V, t.size),
+                              soc_ref=sim.soc, name=f"sim{seed}"))
+    start = default_settings(model).with_(q_soc_per_s=1e-16, q_rc_v2_per_s=1e-16, gate_sigma=0.0,
+                                          voltage_noise_v=0.02, current_noise_a=0.02)
+    return model, recs, start
+
+
+def test_likelihood_recovers_known_noise(data):
+    model, recs, start = data
+    res = tune(model, recs, start, params=("voltage_noise_v", "current_noise_a"), soc0s=[0.95, 0.95],
+               max_evaluations=80)
+    v, i = res.settings.voltage_noise_v, res.settings.current_noise_a
+    # maximum-likelihood estimates of the noise levels of simulated data (prediction-error
+    # decomposition, Schweppe 1965): within a factor of 1.5 of the simulated sigmas.  The filter
+    # lumps the current noise seen through R0 (10 mohm x 0.2 A = 2 mV) into its voltage noise, so the
+    # voltage estimate sits near sqrt(5^2 + 2^2) = 5.4 mV.
+    assert SIGMA_V / 1.5 < v < SIGMA_V * 1.5
+    assert v == pytest.approx(np.hypot(SIGMA_V, 0.01 * SIGMA_I), rel=0.1)
+    assert SIGMA_I / 1.5 < i < SIGMA_I * 1.5
+    # the tuned filter is consistent: mean NIS inside the 95 % chi-square band (scipy.stats.chi2,
+    # Bar-Shalom et al. 2001 ch. 5)
+    n = res.nis_after.n_samples
+    assert res.nis_after.band_hi == pytest.approx(stats.chi2.ppf(0.975, n) / n, rel=1e-12)
+    assert res.nis_after.passed
+    # the start (20 mV, 0.02 A) is pessimistic and fails the same test
+    assert res.nis_before.verdict == "pessimistic"
+    assert res.nll_after < res.nll_before
+    assert res.objective_after == pytest.approx(res.nll_after)
+    assert res.evaluations <= 80 and set(res.values()) == {"voltage_noise_v", "current_noise_a"}
+    df = res.to_frame()
+    assert list(df["setting"]) == ["voltage_noise_v", "current_noise_a"]
+    assert "voltage_noise_v" in res.describe()
+
+
+def test_innovation_nll_matches_scipy_norm():
+    # log N(nu; 0, S) summed: scipy.stats.norm.logpdf as the reference
+    rng = np.random.default_rng(5)
+    s = rng.uniform(1e-6, 1e-4, 50)
+    nu = rng.normal(0, np.sqrt(s))
+    nu[3] = np.nan
+    total, n = innovation_nll(nu, s)
+    ok = np.isfinite(nu)
+    assert n == 49
+    assert total == pytest.approx(-np.sum(stats.norm.logpdf(nu[ok], scale=np.sqrt(s[ok]))), rel=1e-12)
+
+
+def test_soc_error_objective_keeps_consistency(data):
+    model, recs, start = data
+    # start far too confident in the voltage (1 mV): good RMSE is not allowed to come from that
+    s0 = start.with_(voltage_noise_v=0.001, current_noise_a=0.2)
+    res = tune(model, recs, s0, objective="soc-error", params=("voltage_noise_v", "current_noise_a"),
+               soc0s=[0.95, 0.95], max_evaluations=40)
+    assert res.rmse_after is not None and res.rmse_after <= res.rmse_before * 1.0001
+    assert res.objective_after < res.objective_before
+    # the NIS penalty pulls the overconfident start (mean NIS >> 1) to within a few percent of 1
+    assert res.nis_before.verdict == "overconfident"
+    assert abs(np.log(res.nis_after.mean)) < 0.05
+    assert res.settings.voltage_noise_v > 0.004
+
+
+def test_bad_tuning_input(data):
+    model, recs, start = data
+    with pytest.raises(TuningError, match="cannot tune"):
+        tune(model, recs, start, params=("wobble",))
+    with pytest.raises(TuningError, match="objective"):
+        tune(model, recs, start, objective="vibes")
+    no_ref = [r.with_(soc_ref=None) for r in recs]
+    with pytest.raises(TuningError, match="soc_ref"):
+        tune(model, no_ref, start, objective="soc-error")
