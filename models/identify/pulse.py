@@ -688,7 +688,20 @@ def _level_table(res: PulseTestResult, n_rc: int):
     arr = arr[np.argsort(arr[:, 0])]
     # merge levels closer than 0.001 in SOC
     keep = np.concatenate([[True], np.diff(arr[:, 0]) > 1e-3])
-    return arr[keep]
+    arr = arr[keep]
+    # RC values: 3-point running median over neighbouring levels (ends kept), so one odd level
+    # (a rest disturbed by a temperature step, a fit caught between two time scales) does not
+    # make a spike in the table; R0 is left as measured
+    if arr.shape[0] >= 3:
+        rc = arr[:, 2:].copy()
+        for c in range(rc.shape[1]):
+            col = arr[:, 2 + c]
+            for k in range(1, arr.shape[0] - 1):
+                win = col[k - 1:k + 2]
+                if np.all(np.isfinite(win)):
+                    rc[k, c] = float(np.median(win))
+        arr[:, 2:] = rc
+    return arr
 
 
 def _fill(soc, col, name, where):

@@ -5,7 +5,9 @@ and frequencies.  Each table ``p(SOC[, T])`` is scaled per SOC breakpoint,
 ``p'(s_j, T) = p(s_j, T) exp(m_j)`` (positivity kept, temperature ratios kept), and the
 log-multipliers ``m`` minimise::
 
-    sum_k (v_sim,k - v_k)^2 / n  +  w_s^2 sum_j (m_{j-1} - 2 m_j + m_{j+1})^2  +  w_p^2 sum_j m_j^2
+    sum_k (v_sim,k - v_k)^2 / n  +  w_s^2 sum_j (D2 log p')_j^2  +  w_p^2 sum_j m_j^2
+
+with ``D2`` the second difference over the SOC breakpoints (of the temperature-mean log values)
 
 by ``scipy.optimize.least_squares`` (Levenberg-Marquardt) with an analytic Jacobian.  The
 second term is a discrete second-difference (Tikhonov / Whittaker) smoothness penalty over SOC
@@ -115,7 +117,8 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
         ``soc_ref`` or a rested first sample).
     soc0 : float, optional
     smooth_v : float
-        Weight ``w_s`` of the second-difference penalty (V per unit of log-curvature).
+        Weight ``w_s`` of the second-difference penalty on the log of the refined table (V per
+        unit of log-curvature).
     prior_v : float
         Weight ``w_p`` pulling multipliers to 1 (V per unit log change).
     refine_tau : bool
@@ -187,13 +190,16 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
         return v, mults, states
 
     d2 = [_d2(s) for s in sizes]
+    # the smoothness penalty acts on the refined table itself (log of the pulse-test values plus
+    # the multipliers), so a spike the pulse test left is smoothed rather than kept
+    logs = [np.log(tab.values).mean(axis=0) for _, _, tab in blocks]
 
     def fun(theta):
         v, _, _ = simulate(theta)
         parts = [(v[use] - vm) * scale]
         for b in range(len(blocks)):
             m = theta[offs[b]:offs[b + 1]]
-            parts.append(smooth_v * (d2[b] @ m))
+            parts.append(smooth_v * (d2[b] @ (logs[b] + m)))
             parts.append(prior_v * m)
         return np.concatenate(parts)
 
