@@ -1,6 +1,6 @@
 """Compiled kernels: EKF step/run, coulomb counting with OCV reseed, batched runs (the only copy).
 
-Everything here is plain scalar numba code (``@njit(cache=True)``, explicit loops over the
+Everything here is plain scalar numba code (``@njit(cache=True, error_model="numpy")``, explicit loops over the
 small state, no allocation inside the per-sample loops) and also runs as pure Python under
 ``NUMBA_DISABLE_JIT=1``.  Python wrappers live in :mod:`estimator.ekf` and
 :mod:`estimator.coulomb`; the C export mirrors these functions line by line.
@@ -44,7 +44,7 @@ DEFAULT_TEMP_C = 25.0
 
 
 # ----------------------------------------------------------------------------- look-ups
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _soc_index(tab, z):
     """Lower node and weight on the uniform SOC grid (clamped to the table)."""
     n_s = tab.shape[2]
@@ -59,7 +59,7 @@ def _soc_index(tab, z):
     return i, s - i
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _temp_index(tab, t_c, t_min, t_step):
     """Rows and weight on the uniform temperature grid (clamped; NaN -> 25 degC)."""
     n_t = tab.shape[1]
@@ -78,7 +78,7 @@ def _temp_index(tab, t_c, t_min, t_step):
     return i, i + 1, x - i
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _bil(tab, row, it0, it1, wt, is0, ws):
     a = tab[row, it0, is0]
     b = tab[row, it0, is0 + 1]
@@ -91,7 +91,7 @@ def _bil(tab, row, it0, it1, wt, is0, ws):
     return lo + wt * (hi - lo)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def table_value(tab, row, z, t_c, t_min, t_step):
     """Bilinear value of packed table ``row`` at SOC ``z`` and temperature ``t_c`` (degC)."""
     it0, it1, wt = _temp_index(tab, t_c, t_min, t_step)
@@ -99,7 +99,7 @@ def table_value(tab, row, z, t_c, t_min, t_step):
     return _bil(tab, row, it0, it1, wt, is0, ws)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _ocv_at(tab, z, it0, it1, wt):
     """OCV (V) and slope (V/unit SOC); linear continuation with the end slope outside 0..1."""
     is0, ws = _soc_index(tab, z)
@@ -112,14 +112,14 @@ def _ocv_at(tab, z, it0, it1, wt):
     return v, d
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def ocv_lookup(tab, z, t_c, t_min, t_step):
     """OCV (V) and dOCV/dSOC at SOC ``z``, temperature ``t_c`` (degC) from the tables."""
     it0, it1, wt = _temp_index(tab, t_c, t_min, t_step)
     return _ocv_at(tab, z, it0, it1, wt)
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def ocv_inverse(tab, v, t_c, t_min, t_step):
     """SOC whose tabulated OCV at ``t_c`` equals ``v`` (the exact inverse of the piecewise-linear
     table in SOC, found by bisection over the nodes); clamped to [0, 1]."""
@@ -146,8 +146,8 @@ def ocv_inverse(tab, v, t_c, t_min, t_step):
 
 
 # ----------------------------------------------------------------------------- model pieces
-@njit(cache=True)
-def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c, xn, d, g, cache):
+@njit(cache=True, error_model="numpy")
+def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache):
     """One interval of the sampling rule.
 
     Writes the next state ``xn``, the diagonal ``d`` of ``F`` and the input Jacobian
@@ -161,7 +161,6 @@ def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c, xn, d, g, cache):
     if i_b >= 0:
         u = u_meas - x[i_b]
     eta = 1.0 if u >= 0.0 else prm[P_ETA]
-    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
     is0, ws = _soc_index(tab, z)
     xn[0] = z - eta * u * dt / cap
     d[0] = 1.0
@@ -199,10 +198,9 @@ def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c, xn, d, g, cache):
         g[i_h] = -(h + sg) * e * k * sg
 
 
-@njit(cache=True)
-def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c, hrow):
+@njit(cache=True, error_model="numpy")
+def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow):
     """Predicted terminal voltage at state ``x`` and current sample ``i_k``; writes ``H``."""
-    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
     z = x[0]
     ocv, docv = _ocv_at(tab, z, it0, it1, wt)
     is0, ws = _soc_index(tab, z)
@@ -224,7 +222,7 @@ def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c, hrow):
     return y
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _qdiag(n_rc, i_b, i_h, est_h, prm, q):
     q[0] = prm[P_QSOC]
     for j in range(n_rc):
@@ -235,15 +233,16 @@ def _qdiag(n_rc, i_b, i_h, est_h, prm, q):
         q[i_h] = prm[P_QH] if est_h else 0.0
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c):
     """Python-callable measurement model: ``(y_pred_v, H)`` at state ``x`` (n_x,)."""
     hrow = np.zeros(x.size)
-    y = _measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c, hrow)
+    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
+    y = _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow)
     return y, hrow
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c):
     """Python-callable process model: the state after one interval with mean current ``u_meas``."""
     nx = x.size
@@ -251,11 +250,12 @@ def transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c):
     d = np.zeros(nx)
     g = np.zeros(nx)
     cache = np.full(2 * n_rc + 1, np.nan)
-    _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c, xn, d, g, cache)
+    it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
+    _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache)
     return xn
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_next):
     """The EKF's linearisation of one step, for other modules (bounds, tests).
 
@@ -280,7 +280,8 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
     d = np.zeros(nx)
     g = np.zeros(nx)
     cache = np.full(2 * n_rc + 1, np.nan)
-    _transition(tab, n_rc, i_b, i_h, prm, x, 0.5 * (i_prev + i_next), dt, t_prev, xn, d, g, cache)
+    it0, it1, wt = _temp_index(tab, t_prev, prm[P_TMIN], prm[P_TSTEP])
+    _transition(tab, n_rc, i_b, i_h, prm, x, 0.5 * (i_prev + i_next), dt, it0, it1, wt, xn, d, g, cache)
     f = np.zeros((nx, nx))
     for i in range(nx):
         f[i, i] = d[i]
@@ -298,12 +299,13 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
             qm[i, j] = gq[i] * gq[j] * s2
         qm[i, i] += q[i] * dt
     hrow = np.zeros(nx)
-    y = _measure(tab, n_rc, i_b, i_h, prm, xn, i_next, t_next, hrow)
+    it0, it1, wt = _temp_index(tab, t_next, prm[P_TMIN], prm[P_TSTEP])
+    y = _measure(tab, n_rc, i_b, i_h, prm, xn, i_next, it0, it1, wt, hrow)
     return xn, f, g, qm, hrow, y
 
 
 # ----------------------------------------------------------------------------- EKF
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
             x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
     """Run the EKF over one recording; returns the number of gated samples.
@@ -323,7 +325,14 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
         When True also write ``p_out`` (posterior P), ``ppred_out`` (prior P) and ``f_out``
         (the F that led to sample k; identity at k = 0), each (N, n_x, n_x).
     """
-    n = time_s.size
+    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
+                     x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out)
+
+
+@njit(cache=True, error_model="numpy")
+def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
+              x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
+    """The EKF loop over rows ``lo..hi-1`` of the (possibly concatenated) arrays; see :func:`ekf_run`."""
     nx = x0.size
     x = x0.copy()
     p = p0.copy()
@@ -341,17 +350,26 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
     s2 = prm[P_IN] * prm[P_IN]
     r_meas = prm[P_VN] * prm[P_VN]
     gate = prm[P_GATE]
+    gate2 = gate * gate
     smin = prm[P_SMIN]
     smax = prm[P_SMAX]
     no_h_noise = i_h >= 0 and not est_h
     gh = 0.0
     gated = 0
-    for k in range(n):
+    t_min = prm[P_TMIN]
+    t_step = prm[P_TSTEP]
+    pt0, pt1, pwt = 0, 0, 0.0
+    t_last = np.nan
+    for k in range(lo, hi):
         tk = temp_c[k]
-        if k > 0:
+        if tk == t_last:
+            it0, it1, wt = pt0, pt1, pwt
+        else:
+            it0, it1, wt = _temp_index(tab, tk, t_min, t_step)
+        if k > lo:
             dt = time_s[k] - time_s[k - 1]
             u = 0.5 * (current_a[k - 1] + current_a[k])
-            _transition(tab, n_rc, i_b, i_h, prm, x, u, dt, temp_c[k - 1], xn, d, g, cache)
+            _transition(tab, n_rc, i_b, i_h, prm, x, u, dt, pt0, pt1, pwt, xn, d, g, cache)
             for i in range(nx):
                 x[i] = xn[i]
             if no_h_noise:
@@ -395,7 +413,9 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
                 for j in range(nx):
                     ppred_out[k, i, j] = p[i, j]
         # measurement
-        y = _measure(tab, n_rc, i_b, i_h, prm, x, current_a[k], tk, hrow)
+        y = _measure(tab, n_rc, i_b, i_h, prm, x, current_a[k], it0, it1, wt, hrow)
+        pt0, pt1, pwt = it0, it1, wt
+        t_last = tk
         sv = r_meas
         for i in range(nx):
             acc = 0.0
@@ -409,11 +429,12 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
         if vk == vk:
             innov = vk - y
             innov_out[k] = innov
-            if gate > 0.0 and abs(innov) > gate * math.sqrt(sv):
+            if gate > 0.0 and innov * innov > gate2 * sv:
                 gated += 1
             else:
+                inv_s = 1.0 / sv
                 for i in range(nx):
-                    kg[i] = ph[i] / sv
+                    kg[i] = ph[i] * inv_s
                     x[i] += kg[i] * innov
                 # Joseph form: M = (I - K H) P = P - K PH^T;  P+ = M (I - K H)^T + K R K^T
                 for i in range(nx):
@@ -448,7 +469,7 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
     return gated
 
 
-@njit(cache=True, parallel=True)
+@njit(cache=True, parallel=True, error_model="numpy")
 def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
                   cap_scale, x0s, p0s, x_out, sig_out, vpred_out, innov_out, s_out, gated_out):
     """Many recordings of one model in parallel (numba ``prange`` over recordings).
@@ -464,13 +485,13 @@ def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b,
         b = offsets[r + 1]
         pr = prm.copy()
         pr[P_CAP] = prm[P_CAP] * cap_scale[r]
-        gated_out[r] = ekf_run(time_s[a:b], current_a[a:b], voltage_v[a:b], temp_c[a:b], tab, n_rc, i_b, i_h,
-                               est_h, pr, x0s[r], p0s[r], x_out[a:b], sig_out[a:b], vpred_out[a:b],
-                               innov_out[a:b], s_out[a:b], False, dummy, dummy, dummy)
+        gated_out[r] = _ekf_core(a, b, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr,
+                                 x0s[r], p0s[r], x_out, sig_out, vpred_out, innov_out, s_out, False, dummy,
+                                 dummy, dummy)
 
 
 # ----------------------------------------------------------------------------- baseline
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def _rest_ocv(time_s, voltage_v, current_a, tab, t_c, prm, start, end, early_s, z):
     """OCV estimate at the end of a rest ``start..end`` (inclusive), or NaN.
 
@@ -509,7 +530,7 @@ def _rest_ocv(time_s, voltage_v, current_a, tab, t_c, prm, start, end, early_s, 
     return v_last + r0 * current_a[kk]
 
 
-@njit(cache=True)
+@njit(cache=True, error_model="numpy")
 def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest_i, rest_min_s,
                 do_reseed, early_s, soc_out, sig_out, rs_time, rs_before, rs_after):
     """Coulomb counting (trapezoid rule, coulombic efficiency on charge) with OCV reseed.
