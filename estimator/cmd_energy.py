@@ -19,6 +19,9 @@ def register(sub) -> None:
                    help="constant discharge power at the pack terminals, W")
     p.add_argument("--pack", default=None, metavar="NsMp",
                    help="pack configuration, N cells in series by M in parallel, e.g. 14s4p (default 1s1p)")
+    p.add_argument("--peak-a", type=float, default=None, metavar="I",
+                   help="current peak the load may draw at any moment (A, pack terminals): the cut-off is then "
+                        "judged under a 10 s step to this current")
     p.add_argument("--temperature-c", type=float, default=None, metavar="T",
                    help="cell temperature, degC (default 25)")
     p.set_defaults(func=run)
@@ -43,7 +46,7 @@ def run(args) -> int:
         pack = parse_pack(args.pack)
     except EnergyError as e:
         raise CliError(f"--pack: {e}") from None
-    for name, val in (("--load-a", args.load_a), ("--load-w", args.load_w)):
+    for name, val in (("--load-a", args.load_a), ("--load-w", args.load_w), ("--peak-a", args.peak_a)):
         if val is not None and not (math.isfinite(val) and val >= 0):
             raise CliError(f"{name} is a discharge load >= 0, got {val}")
     model = load_model(args.model)
@@ -54,8 +57,11 @@ def run(args) -> int:
     e_rest = table.energy_wh(soc, temp) * pack.n_cells
     has_load = args.load_a is not None or args.load_w is not None
     load = dict(current_a=args.load_a) if args.load_a is not None else dict(power_w=args.load_w)
+    if args.peak_a is not None and not has_load:
+        raise CliError("--peak-a needs a steady load (--load-a or --load-w)")
     if has_load:
-        at_load = [usable_energy(model, soc0=float(z), temperature_c=temp, pack=pack, n_steps=1000, **load)
+        at_load = [usable_energy(model, soc0=float(z), temperature_c=temp, pack=pack, n_steps=1000,
+                                 peak_current_a=args.peak_a, **load)
                    for z in soc]
         full = at_load[-1]
         e_load = np.array([r.energy_wh for r in at_load])
@@ -76,10 +82,13 @@ def run(args) -> int:
     print(f"rest energy (full to empty): {e_rest[-1]:.2f} Wh")
     if has_load:
         what = f"{args.load_a:g} A" if args.load_a is not None else f"{args.load_w:g} W"
+        if args.peak_a is not None:
+            what += f" with {args.peak_a:g} A peaks"
         print(f"usable energy at {what}: {full.energy_wh:.2f} Wh "
               f"({100 * full.energy_wh / full.rest_energy_wh:.1f} % of the rest energy)")
         print(f"runtime at {what} from full: {_fmt_time(full.runtime_s)}")
-        reason = {"voltage": f"terminal voltage reaches {model.v_min_v:.3g} V per cell",
+        reason = {"voltage": f"terminal voltage{' under a peak' if args.peak_a is not None else ''} reaches "
+                             f"{model.v_min_v:.3g} V per cell",
                   "empty": "SOC 0 reached before the voltage cut-off", "rest": "no load"}[full.cutoff_reason]
         print(f"cut-off at SOC_C {100 * full.cutoff_soc:.1f} % ({reason})")
         if math.isfinite(full.mean_voltage_v):

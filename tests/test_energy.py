@@ -172,6 +172,28 @@ def test_constant_power_matches_analytic_resistive_load():
     assert res.mean_current_a == pytest.approx(i, rel=1e-6)
 
 
+def test_peak_current_brings_the_cut_off_forward():
+    # analytic: linear OCV a + b z behind R0 only, steady current I with peaks of I_pk: the cut-off
+    # arrives where a + b z - R0 I_pk = v_min, and the energy is I * Q * integral of (a + b z - R0 I) dz
+    # from that z to 1 (closed form)
+    a, b, r0, q, vmin, i, i_pk = 3.0, 1.2, 0.05, 4.8, 3.1, 2.4, 12.0
+    m = linear_model(a, b, r0, (), q, vmin)
+    z_cut = (vmin - a + r0 * i_pk) / b
+    energy = q * ((a - r0 * i) * (1 - z_cut) + 0.5 * b * (1 - z_cut ** 2))
+    res = usable_energy(m, current_a=i, peak_current_a=i_pk, n_steps=4000)
+    assert res.cutoff_soc == pytest.approx(z_cut, abs=1e-6)
+    assert res.energy_wh == pytest.approx(energy, rel=1e-6)
+    plain = usable_energy(m, current_a=i)
+    assert plain.energy_wh > res.energy_wh
+    # an RC pair adds R1 (1 - exp(-d / tau)) to the peak's drop (first-order RC step response)
+    r1, tau, d = 0.03, 20.0, 10.0
+    m_rc = linear_model(a, b, r0, ((r1, tau),), q, vmin)
+    res_rc = usable_energy(m_rc, current_a=i, peak_current_a=i_pk, peak_duration_s=d, n_steps=4000)
+    # by then the RC pair is in steady state at the running current: v = a + b z - (R0 + R1) I
+    z_cut_rc = (vmin - a + r0 * i_pk + r1 * i + r1 * (1 - math.exp(-d / tau)) * (i_pk - i)) / b
+    assert res_rc.cutoff_soc == pytest.approx(z_cut_rc, abs=1e-5)
+
+
 def test_usable_energy_refuses_bad_loads():
     m = nmc_model()
     with pytest.raises(EnergyError, match="exactly one"):
@@ -180,6 +202,8 @@ def test_usable_energy_refuses_bad_loads():
         usable_energy(m, current_a=1.0, power_w=1.0)
     with pytest.raises(EnergyError, match=">= 0"):
         usable_energy(m, current_a=-1.0)
+    with pytest.raises(EnergyError, match="peak"):
+        usable_energy(m, current_a=1.0, peak_current_a=5.0, peak_duration_s=0.0)
 
 
 # ----------------------------------------------------------------------------- pack
@@ -217,5 +241,9 @@ def test_cli_energy_table(tmp_path, capsys):
     row50 = next(line for line in out.splitlines() if line.split()[:1] == ["50"])
     assert float(row50.split()[1]) == pytest.approx(100 * float(soc_c_to_e(nmc_model(), 0.5)), abs=0.006)
     assert "runtime" in out and "cut-off at SOC_C" in out and "14s4p" in out
+    assert main(["energy", "--model", str(path), "--load-w", "300", "--peak-a", "40", "--pack", "14s4p"]) == 0
+    out = capsys.readouterr().out
+    expected = usable_energy(nmc_model(), power_w=300.0, peak_current_a=40.0, pack="14s4p", n_steps=1000)
+    assert f"usable energy at 300 W with 40 A peaks: {expected.energy_wh:.2f} Wh" in out
     assert main(["energy", "--model", str(path), "--pack", "14x4p"]) == 2
     assert "NsMp" in capsys.readouterr().err
