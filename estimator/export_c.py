@@ -206,7 +206,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         v_lo=c_float(max(0.0, model.v_min_v - 0.5 * v_span)), v_hi=c_float(model.v_max_v + 0.5 * v_span),
         t_lo=c_float(T_LIMITS_C[0]), t_hi=c_float(T_LIMITS_C[1]),
         nis_alpha=c_float(NIS_ALPHA), nis_cap=c_float(NIS_CAP), nis_high=c_float(NIS_HIGH),
-        nis_low=c_float(NIS_LOW), p_floor=c_float(P_FLOOR),
+        nis_low=c_float(NIS_LOW), p_floor=c_float(P_FLOOR), vrc_max=c_float(v_span),
         tables=_table_text(packed),
     )
     return {name: _template(name + ".in").substitute(subs) for name in SOURCE_FILES}
@@ -436,6 +436,7 @@ def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, note
     from .cli import SAFETY_NOTE
 
     name = safe_text(model.name or "unnamed cell model")
+    v_span = float(model.v_max_v - model.v_min_v)
     lines = [
         "# Exported SOC estimator (C99)",
         "",
@@ -494,8 +495,9 @@ def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, note
         "(outside the model limits widened by half their span) is predict-only; a NaN temperature uses 25 degC "
         f"as in Python, an implausible one (outside {T_LIMITS_C[0]:g}..{T_LIMITS_C[1]:g} degC) too. All are counted.",
         f"- Covariance: symmetrised after every update (as in Python) and its diagonal floored at {P_FLOOR:g}.",
-        f"- Health: unhealthy when a value is not finite (the EKF is then restarted from the baseline SOC) or "
-        f"when the running mean of the NIS (weight {NIS_ALPHA:.4g}, one sample capped at {NIS_CAP:g}) exceeds "
+        f"- Health: unhealthy when a value is not finite or a state leaves its physical range (|RC voltage| > "
+        f"{v_span:g} V, |bias| above the current limit, |h| > 1.5; the EKF is then restarted from the baseline "
+        f"SOC) or when the running mean of the NIS (weight {NIS_ALPHA:.4g}, one sample capped at {NIS_CAP:g}) exceeds "
         f"{NIS_HIGH:g}, far above its chi-square mean of 1 (Bar-Shalom, Li and Kirubarajan 2001); healthy again "
         f"below {NIS_LOW:g}. While unhealthy `out.soc` is the baseline.",
         "- The SOC sums (EKF and baseline) and the rest duration use compensated two-float sums.",
