@@ -109,16 +109,19 @@ fig, ax = plt.subplots(figsize=(6, 3))
 ax.plot(100 * s, 100 * (soc_c_to_e(model, s) - s))
 ax.set_xlabel("SOC_C (%)"); ax.set_ylabel("SOC_E - SOC_C (points)"); ax.grid(alpha=0.3)'''),
     new_markdown_cell("## The 14s4p pack at a steady load\n\nA cargo tricycle draws a few hundred watts on the "
-                      "flat; the table shows how much of the rest energy each steady load can use."),
+                      "flat; the table shows how much of the rest energy each steady load can use, and how much "
+                      "when the rider may ask for a 10 s, 40 A hill start at any moment (the cut-off is then "
+                      "judged under that peak)."),
     new_code_cell('''\
 pack = parse_pack("14s4p")
 rest = float(table.full_energy_wh()) * pack.n_cells
 print(f"pack {pack.label}: rest energy {rest:.0f} Wh")
-print("  load W   usable Wh   of rest   runtime h   cut-off SOC_C %")
+print("  load W   usable Wh   of rest   runtime h   cut-off SOC_C %   with 40 A peaks: Wh   cut-off %")
 for p_w in (100, 300, 600, 1000, 1500):
     r = usable_energy(model, power_w=p_w, pack=pack, n_steps=800)
+    rp = usable_energy(model, power_w=p_w, pack=pack, n_steps=800, peak_current_a=40.0)
     print(f"{p_w:8.0f} {r.energy_wh:11.0f} {100 * r.energy_wh / rest:8.1f} % {r.runtime_s / 3600:10.2f} "
-          f"{100 * r.cutoff_soc:12.1f}")'''),
+          f"{100 * r.cutoff_soc:12.1f} {rp.energy_wh:22.0f} {100 * rp.cutoff_soc:11.1f}")'''),
     new_markdown_cell("## Remaining energy along a delivery day\n\nThe estimate trace carries `soc_e` and the "
                       "rest energy left per cell; multiply by the cell count for the pack."),
     new_code_cell('''\
