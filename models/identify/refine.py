@@ -29,7 +29,7 @@ from ..thevenin import CellModel, RcPair, interval_current
 from .fastsim import njit, rc_filter, simulate_fast, soc_trajectory
 from .validate import initial_soc, recording_temperature
 
-__all__ = ["RefineResult", "refine_model", "rc_filter_columns"]
+__all__ = ["RefineResult", "refine_model"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -59,8 +59,13 @@ class RefineResult:
                 "multipliers": {k: [float(x) for x in v] for k, v in self.multipliers.items()}}
 
 
-def _basis(table: ParamTable, soc, temp) -> np.ndarray:
-    """``B[k, j]`` with ``table.at(soc_k, temp_k) = sum_j B[k, j]`` (linear in the values)."""
+def _basis(table: ParamTable, soc, temp):
+    """Two-entry form of the table's interpolation at ``(soc_k, temp_k)``.
+
+    Returns ``(j0, j1, c0, c1)`` with ``table.at(soc_k, temp_k) = c0_k + c1_k`` and, for values
+    scaled per SOC column by ``e^m``, ``c0_k e^{m[j0_k]} + c1_k e^{m[j1_k]}`` (linear
+    interpolation touches two SOC breakpoints).
+    """
     n_s = table.soc.size
     vals = table.values
     if table.temperature_c is None or vals.shape[0] == 1:
@@ -68,26 +73,43 @@ def _basis(table: ParamTable, soc, temp) -> np.ndarray:
     else:
         i0, w = clamp_weights(table.temperature_c, np.broadcast_to(temp, soc.shape))
         vt = (1.0 - w)[:, None] * vals[i0] + w[:, None] * vals[i0 + 1]
-    hat = np.zeros((soc.size, n_s))
+    rows = np.arange(soc.size)
     if n_s == 1:
-        hat[:, 0] = 1.0
-    else:
-        j0, wj = clamp_weights(table.soc, soc)
-        rows = np.arange(soc.size)
-        hat[rows, j0] += 1.0 - wj
-        hat[rows, j0 + 1] += wj
-    return hat * vt
+        j0 = np.zeros(soc.size, dtype=np.int64)
+        return j0, j0.copy(), np.asarray(vt[:, 0], dtype=float).copy(), np.zeros(soc.size)
+    j0, wj = clamp_weights(table.soc, soc)
+    j0 = j0.astype(np.int64)
+    j1 = j0 + 1
+    return j0, j1, (1.0 - wj) * vt[rows, j0], wj * vt[rows, j1]
 
 
 @njit(cache=True)
-def rc_filter_columns(a, drive):
-    """``x[k+1, c] = a[k] x[k, c] + drive[k, c]`` from ``x[0] = 0`` for every column (sensitivities)."""
-    n, m = drive.shape
-    out = np.zeros((n + 1, m))
+def _sensitivity(a, g, j0, j1, c0, c1, row_of, out, col0, sign):
+    """Columns ``col0..`` of the Jacobian for one RC table (one column per SOC breakpoint).
+
+    The sensitivity ``x_s`` of the RC voltage to the log-multiplier of breakpoint ``s`` obeys
+    ``x_s[k+1] = a[k] x_s[k] + g[k] (c0[k] [j0[k] = s] + c1[k] [j1[k] = s])`` from 0 (the
+    derivative of the ZOH recursion); ``out[row_of[k], col0 + s] = sign * x_s[k]`` for the used
+    samples (``row_of[k] >= 0``).
+    """
+    n = a.shape[0]
+    m = out.shape[1] - col0
+    n_s = 0
     for k in range(n):
-        for c in range(m):
-            out[k + 1, c] = a[k] * out[k, c] + drive[k, c]
-    return out
+        if j1[k] + 1 > n_s:
+            n_s = j1[k] + 1
+    if n_s > m:
+        n_s = m
+    x = np.zeros(n_s)
+    for k in range(n):
+        for c in range(n_s):
+            x[c] *= a[k]
+        x[j0[k]] += g[k] * c0[k]
+        x[j1[k]] += g[k] * c1[k]
+        r = row_of[k + 1]
+        if r >= 0:
+            for c in range(n_s):
+                out[r, col0 + c] = sign * x[c]
 
 
 def _d2(n):
@@ -168,7 +190,10 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
 
     def values(theta):
         mults = unpack(theta)
-        vals = [bases[b] @ mults[b] for b in range(len(blocks))]
+        vals = []
+        for b in range(len(blocks)):
+            j0, j1, c0, c1 = bases[b]
+            vals.append(c0 * mults[b][j0] + c1 * mults[b][j1])
         r0 = vals[0]
         pairs = []
         for j in range(model.n_rc):
@@ -203,21 +228,28 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
             parts.append(prior_v * m)
         return np.concatenate(parts)
 
+    row_of = np.full(t.size, -1, dtype=np.int64)
+    row_of[use] = np.arange(n_use)
+    use_idx = np.flatnonzero(use)
+
     def jac(theta):
         _, mults, states = simulate(theta)
         jd = np.zeros((n_use, n_par))
         for b, (kind, j, _) in enumerate(blocks):
-            cols = bases[b] * mults[b][None, :]  # d value_k / d m_s, one column per breakpoint
+            j0, j1, c0, c1 = bases[b]
+            e0 = c0 * mults[b][j0]
+            e1 = c1 * mults[b][j1]
             if kind == "r0":
-                dv = -cols * i[:, None]
+                rows = np.arange(n_use)
+                np.add.at(jd, (rows, offs[b] + j0[use_idx]), -e0[use_idx] * i[use_idx] * scale)
+                np.add.at(jd, (rows, offs[b] + j1[use_idx]), -e1[use_idx] * i[use_idx] * scale)
+                continue
+            a, vr, r, tau = states[j]
+            if kind == "r":
+                g = (1.0 - a) * u
             else:
-                a, vr, r, tau = states[j]
-                if kind == "r":
-                    drive = ((1.0 - a) * u)[:, None] * cols
-                else:
-                    drive = (a * dt / tau ** 2 * (vr[:-1] - r * u))[:, None] * cols
-                dv = -rc_filter_columns(a, drive)
-            jd[:, offs[b]:offs[b + 1]] = dv[use] * scale
+                g = a * dt / tau ** 2 * (vr[:-1] - r * u)
+            _sensitivity(a, g, j0, j1, e0, e1, row_of, jd, int(offs[b]), -scale)
         reg = []
         for b in range(len(blocks)):
             blk = np.zeros((d2[b].shape[0], n_par))
