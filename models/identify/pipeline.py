@@ -245,6 +245,8 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
     pulse_files = [r.source if not (pulse_tests[k].metadata or {}).get("source") else _file(pulse_tests[k])
                    for k, r in enumerate(results)]
     relax_rms = [pf.fits[n_rc].rms_v for r in results for pf in r.pulses if pf.rc(n_rc) is not None]
+    r0_dev = [pf.r0_ohm[n_rc] - float(r0.at(pf.soc, r.temperature_c)) for r in results for pf in r.pulses
+              if pf.pulse.kind == "pulse" and n_rc in pf.r0_ohm]
     prov = {
         "tool": "socfuse identify (models.identify.pipeline)",
         "capacity": {"file": _file(ocv_test), "test": "low-rate discharge (charge delivered between the limits)",
@@ -264,7 +266,10 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         "r0_ohm": {"file": pulse_files, "test": "pulse test, edge step (last sample before / first after each "
                                                 "edge), corrected for the RC charge in that interval",
                    "temperatures_c": [r.temperature_c for r in results],
-                   "pulses": int(sum(len(r.pulses) for r in results)),
+                   "pulses": int(sum(sum(p.pulse.kind == "pulse" for p in r.pulses) for r in results)),
+                   "residual_ohm": float(np.sqrt(np.mean(np.square(r0_dev)))) if r0_dev else None,
+                   "residual_note": "RMS of the single pulses' R0 about the table (current dependence "
+                                    "and scatter)",
                    "soc_placement": [r.soc_source for r in results]},
         "rc_pairs": {"file": pulse_files, "test": "pulse test relaxation fits (scipy.optimize.least_squares)",
                      "n_rc": n_rc, "choice": n_rc_reason,
