@@ -148,6 +148,8 @@ def build(folder: Path = HERE) -> list[Path]:
     """Write the notebooks into ``folder``; returns their paths."""
     out = []
     for name, cells in NOTEBOOKS.items():
+        for k, cell in enumerate(cells):
+            cell["id"] = f"{name[:2]}-cell-{k:02d}"  # stable ids: rebuilding does not churn the files
         nb = new_notebook(cells=cells, metadata={
             "kernelspec": {"name": "python3", "display_name": "Python 3", "language": "python"},
             "language_info": {"name": "python"}})
