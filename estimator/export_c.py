@@ -287,7 +287,7 @@ def _rounded(rec):
         raise ExportError(f"recording {safe_text(rec.name)}: no finite voltage sample")
     if ok[0] > 0:
         rec = rec.slice(int(ok[0]))
-    rnd = lambda a, d: np.array([float(f"%.{d}g" % x) for x in np.asarray(a, dtype=float)])  # noqa: E731
+    rnd = lambda a, d: np.char.mod(f"%.{d}g", np.asarray(a, dtype=float)).astype(float)  # noqa: E731
     temp = None if rec.temperature_c is None else rnd(rec.temperature_c, 9)
     return Recording(rnd(rec.time_s, 12), rnd(rec.current_a, 9), rnd(rec.voltage_v, 9), temp, None,
                      name=rec.name, metadata=rec.metadata)
@@ -320,13 +320,10 @@ def golden_frame(model, settings: FilterSettings | None, rec):
 
 
 def _golden_csv(frame) -> str:
-    lines = [",".join(GOLDEN_COLUMNS)]
-    cols = [frame[c].to_numpy() for c in GOLDEN_COLUMNS]
     fmts = ["%.12g", "%.9g", "%.9g", "%.9g", "%.12g", "%.9g", "%.10g", "%.12g", "%d"]
-    for row in zip(*cols):
-        lines.append(",".join("nan" if (isinstance(x, float) and not math.isfinite(x)) else f % x
-                              for f, x in zip(fmts, row)))
-    return "\n".join(lines) + "\n"
+    # "%g" writes NaN as "nan", which strtod reads back as NaN
+    cols = [np.char.mod(f, frame[c].to_numpy()) for f, c in zip(fmts, GOLDEN_COLUMNS)]
+    return ",".join(GOLDEN_COLUMNS) + "\n" + "\n".join(map(",".join, zip(*cols))) + "\n"
 
 
 # ----------------------------------------------------------------------------- compile + measure
@@ -474,7 +471,7 @@ def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, note
         f"({'measured by the harness' if fp.state_bytes_measured else 'computed for LP64'}) |",
         f"| const tables | {fp.table_bytes} bytes ({su.tables.packed.shape[0]} rows x {su.tables.packed.shape[1]} "
         f"temperatures x {su.tables.packed.shape[2]} SOC points, float) |",
-        f"| floating-point operations per step | {fp.flops_per_step} (+ - * /, worst case, counted from the source) "
+        f"| floating-point operations per step | about {fp.flops_per_step} (+ - * /, worst case, counted by hand from the source) "
         f"+ {fp.transcendentals_per_step} expf/sqrtf |",
         f"| worst-case stack | " + (f"{fp.stack_bytes} bytes (sum of the gcc -fstack-usage frames of the library)"
                                    if fp.stack_bytes is not None else "not measured (no C compiler)") + " |",
