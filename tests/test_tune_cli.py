@@ -1,0 +1,63 @@
+"""``socfuse tune`` on a small simulated CSV."""
+from __future__ import annotations
+
+import json
+
+import pytest
+
+from ekf_cases import simulated_recording, tiny_model
+from estimator.cli import SAFETY_NOTE, main
+from estimator.settings import FILTER_SCHEMA, load_settings
+from models.modelfile import save_model
+
+
+@pytest.fixture(scope="module")
+def files(tmp_path_factory):
+    d = tmp_path_factory.mktemp("tune")
+    model = tiny_model(n_rc=1)
+    rec, _ = simulated_recording(model, n=3000, soc0=0.8, noise_v=0.004, name="sim day")
+    rec.to_csv(d / "day.csv", float_format="%.9g")
+    rec.with_(soc_ref=None).to_csv(d / "day_noref.csv", float_format="%.9g")
+    save_model(model, d / "model.json")
+    return d
+
+
+def test_tune_writes_filter_json(files, capsys):
+    out = files / "filter.json"
+    code = main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out),
+                 "--params", "voltage_noise_v", "current_noise_a", "--max-evaluations", "40", "--quiet"])
+    text = capsys.readouterr().out
+    assert code == 0
+    assert json.loads(out.read_text())["schema"] == FILTER_SCHEMA
+    tuned = load_settings(out)
+    # the simulated voltage noise is 4 mV (ekf_cases.simulated_recording): the tuned value is near it
+    assert 0.004 / 1.5 < tuned.voltage_noise_v < 0.004 * 1.5
+    assert "voltage_noise_v" in text and "mean NIS" in text and "log-likelihood" in text
+    assert SAFETY_NOTE in text
+    # never overwrite a user's file
+    before = out.read_text()
+    assert main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out)]) == 2
+    assert out.read_text() == before
+
+
+def test_tune_soc_error_needs_reference(files, capsys):
+    out = files / "f2.json"
+    code = main(["tune", "--model", str(files / "model.json"), str(files / "day_noref.csv"), "-o", str(out),
+                 "--objective", "soc-error"])
+    assert code == 2 and not out.exists()
+    assert "no SOC reference" in capsys.readouterr().err
+    code = main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out),
+                 "--objective", "soc-error", "--soc0", "0.8", "--params", "voltage_noise_v",
+                 "--max-evaluations", "20", "--quiet"])
+    assert code == 0 and out.exists()
+    assert "SOC RMSE" in capsys.readouterr().out
+
+
+def test_tune_help_and_bad_options(files, capsys):
+    with pytest.raises(SystemExit) as e:
+        main(["tune", "--help"])
+    assert e.value.code == 0
+    assert "--objective" in capsys.readouterr().out
+    assert main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o",
+                 str(files / "x.json"), "--soc0", "1.7"]) == 2
+    assert not (files / "x.json").exists()
