@@ -289,7 +289,7 @@ def _rounded(rec):
         rec = rec.slice(int(ok[0]))
     rnd = lambda a, d: np.char.mod(f"%.{d}g", np.asarray(a, dtype=float)).astype(float)  # noqa: E731
     temp = None if rec.temperature_c is None else rnd(rec.temperature_c, 9)
-    return Recording(rnd(rec.time_s, 12), rnd(rec.current_a, 9), rnd(rec.voltage_v, 9), temp, None,
+    return Recording(rnd(rec.time_s, 15), rnd(rec.current_a, 9), rnd(rec.voltage_v, 9), temp, None,
                      name=rec.name, metadata=rec.metadata)
 
 
@@ -320,7 +320,7 @@ def golden_frame(model, settings: FilterSettings | None, rec):
 
 
 def _golden_csv(frame) -> str:
-    fmts = ["%.12g", "%.9g", "%.9g", "%.9g", "%.12g", "%.9g", "%.10g", "%.12g", "%d"]
+    fmts = ["%.15g", "%.9g", "%.9g", "%.9g", "%.12g", "%.9g", "%.10g", "%.12g", "%d"]
     # "%g" writes NaN as "nan", which strtod reads back as NaN
     cols = [np.char.mod(f, frame[c].to_numpy()) for f, c in zip(fmts, GOLDEN_COLUMNS)]
     return ",".join(GOLDEN_COLUMNS) + "\n" + "\n".join(map(",".join, zip(*cols))) + "\n"
