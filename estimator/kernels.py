@@ -202,8 +202,13 @@ def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g,
 def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow):
     """Predicted terminal voltage at state ``x`` and current sample ``i_k``; writes ``H``."""
     z = x[0]
-    ocv, docv = _ocv_at(tab, z, it0, it1, wt)
     is0, ws = _soc_index(tab, z)
+    ocv = _bil(tab, 0, it0, it1, wt, is0, ws)
+    docv = _bil(tab, 1, it0, it1, wt, is0, ws)
+    if z < 0.0:  # linear continuation with the end slope, as _ocv_at
+        ocv += docv * z
+    elif z > 1.0:
+        ocv += docv * (z - 1.0)
     r0 = _bil(tab, 2, it0, it1, wt, is0, ws)
     dr0 = _bil(tab, 3, it0, it1, wt, is0, ws)
     ie = i_k
