@@ -128,9 +128,21 @@ def _basis(x, taus):
     return np.column_stack([np.ones_like(x)] + [-np.exp(-x / tau) for tau in taus])
 
 
-def _solve(x, v, taus):
+def _solve(x, v, taus, exact: bool = False):
+    """Linear least squares for ``v_inf, A_j`` at fixed ``taus``; returns (coef, residual).
+
+    Normal equations (a 2x2..4x4 system, cheap inside the search) unless ``exact`` or they are
+    singular, then ``numpy.linalg.lstsq`` (SVD).
+    """
     phi = _basis(x, taus)
-    coef, *_ = np.linalg.lstsq(phi, v, rcond=None)
+    coef = None
+    if not exact:
+        try:
+            coef = np.linalg.solve(phi.T @ phi, phi.T @ v)
+        except np.linalg.LinAlgError:
+            coef = None
+    if coef is None or not np.all(np.isfinite(coef)):
+        coef, *_ = np.linalg.lstsq(phi, v, rcond=None)
     return coef, phi @ coef - v
 
 
@@ -192,11 +204,11 @@ def fit_relaxation(time_s, voltage_v, n_rc: int = 1, tau_min_s: float | None = N
         return _solve(x, v, np.exp(theta))[1]
 
     res = least_squares(fun, theta0, bounds=(np.log(lo), np.log(hi)), method="trf", x_scale=1.0,
-                        xtol=1e-12, ftol=1e-12, gtol=1e-12, max_nfev=200 * (n_rc + 1))
+                        xtol=1e-10, ftol=1e-10, gtol=1e-10, max_nfev=100 * (n_rc + 1))
     taus = np.exp(res.x)
     order = np.argsort(taus)
     taus = taus[order]
-    coef, r = _solve(x, v, taus)
+    coef, r = _solve(x, v, taus, exact=True)
     rss = float(r @ r)
     k = 1 + 2 * n_rc
     bic = n * np.log(max(rss, n * RSS_FLOOR_V ** 2) / n) + k * np.log(n)
