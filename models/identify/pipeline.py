@@ -85,7 +85,8 @@ class IdentifyResult:
                          f"{self.ocv_test.hysteresis_v * 1000:.1f} mV")
         temps = [p.temperature_c for p in self.pulse_tests]
         lines.append(f"pulse tests: {len(self.pulse_tests)} at {', '.join(f'{t:.1f}' for t in temps)} degC, "
-                     f"{sum(len(p.pulses) for p in self.pulse_tests)} pulses; {self.n_rc_reason}")
+                     f"{sum(sum(q.pulse.kind == 'pulse' for q in p.pulses) for p in self.pulse_tests)} pulses; "
+                     f"{self.n_rc_reason}")
         t_ref = temps[int(np.argmin(np.abs(np.array(temps) - 25.0)))]
         r0 = m.r0_ohm.at(0.5, t_ref)
         txt = f"at 50 % SOC, {t_ref:.1f} degC: R0 {r0 * 1000:.2f} mOhm"
