@@ -13,7 +13,7 @@ def register(sub) -> None:
                     "voltage noise 5 mV, temperature sensor +2 degC, initial SOC error 20 points, fade 15 %%.")
     p.add_argument("--out", required=True, help="output folder (new, or one written by an earlier demo run)")
     p.add_argument("--quick", action="store_true",
-                   help="smaller run (one day, four scenarios, UKF fault-free only): for tests and a first look")
+                   help="smaller run (3 h of one day, four scenarios, UKF fault-free only): for tests and a first look")
     p.add_argument("--workers", type=int, default=None, metavar="N",
                    help="benchmark on a local Dask cluster of N workers (needs the cluster extra)")
     p.add_argument("--quiet", action="store_true", help="no progress bars")
