@@ -83,3 +83,27 @@ def test_bad_input(small):
     rec, model, _ = small
     with pytest.raises(ValueError, match="no soc_ref"):
         run_bench(model, [rec.with_(soc_ref=None)], ["nominal"], ["coulomb"], quiet=True)
+
+
+def test_bench_command(repo, tmp_path, capsys):
+    from estimator.cli import SAFETY_NOTE, main
+    from models.modelfile import save_model
+
+    rec = load_recording(repo / "datasets" / "c48_day_lunch.csv").slice(0, 1200)
+    rec.to_csv(tmp_path / "day.csv")
+    save_model(truth_cell_model(25.0), tmp_path / "model.json")
+    out = tmp_path / "bench"
+    argv = ["bench", "--model", str(tmp_path / "model.json"), str(tmp_path / "day.csv"), "--out", str(out),
+            "--scenarios", "nominal", "offset=0.1", "--quiet"]
+    assert main(argv) == 0
+    text = capsys.readouterr().out
+    assert SAFETY_NOTE in text and "offset=0.1" in text
+    s = pd.read_csv(out / "summary.csv")
+    assert list(s.columns[:7]) == DESIGN_COLUMNS and len(s) == 4
+    assert (out / "report.html").is_file()
+    # DESIGN.md section 4: bad input exits 2 with one line; existing results are never overwritten
+    assert main(argv) == 2
+    assert "already holds" in capsys.readouterr().err
+    bad = [a if a != str(out) else str(tmp_path / "other") for a in argv[:-3]] + ["wobble=1"]
+    assert main(bad) == 2
+    assert "unknown fault 'wobble'" in capsys.readouterr().err
