@@ -282,7 +282,7 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
              "quantisation); its SOC is the reference, so NEES figures are against the truth. When the "
              f"filter is handed an initial SOC (the soc0 fault) it is told a sigma of {100 * DEMO_P0_SOC:.0f} "
              "points (p0_soc), as a BMS restoring a remembered SOC after an unknown rest should.</p>"
-             "<h3>Demo steps</h3><table class='t'><tr><th>step</th><th>s</th><th>status</th></tr>"
+             "<h3>Demo steps (before the report and the C export)</h3><table class='t'><tr><th>step</th><th>s</th><th>status</th></tr>"
              + "".join(f"<tr><td>{html.escape(n)}</td><td class='n'>{dt:.1f}</td><td>{html.escape(s)}</td></tr>"
                        for n, dt, s in steps) + "</table>")
     rep = write_report(out, bench, model, settings=settings, title="socfuse demo: demo cell C48 delivery days",

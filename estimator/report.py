@@ -387,6 +387,12 @@ def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse 
     if len(summary):
         add_figure("rmse_by_scenario", _rmse_figure(summary, scen_names, methods),
                    "SOC RMSE and worst error per scenario and method")
+        piv = summary.pivot_table(index="scenario", columns="method", values="rmse_pct", aggfunc="mean", sort=False)
+        piv = piv.reindex([sc for sc in scen_names if sc in piv.index])
+        piv = piv[[m for m in methods if m in piv.columns]].reset_index()
+        body.append("<h3>Mean SOC RMSE (percentage points) per scenario and method, over the recordings</h3>")
+        body.append(df_to_html(piv, headers={m: METHOD_LABELS.get(m, m) for m in methods}))
+        body.append("<h3>All runs</h3>")
         body.append(df_to_html(summary, [c for c in ["recording", "scenario", "method", "rmse_pct", "mae_pct",
                                                      "max_abs_pct", "final_abs_pct", "converge_s", "inside_3sigma",
                                                      "nis_mean", "nis_lo", "nis_hi", "nees_mean", "n_gated",
