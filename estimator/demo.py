@@ -62,6 +62,24 @@ def _has_all(folder: Path) -> bool:
     return folder.is_dir() and all((folder / f).is_file() for f in ALL_FILES)
 
 
+def _package_data_dirs() -> list:
+    """Folders of the installed ``socfuse_demo_data`` package (a regular or a namespace package:
+    the data folder has no ``__init__.py``, so ``importlib.resources.files`` may give a
+    multiplexed path; the import spec's search locations cover both)."""
+    import importlib.util
+
+    try:
+        spec = importlib.util.find_spec("socfuse_demo_data")
+    except (ImportError, ValueError):
+        return []
+    if spec is None:
+        return []
+    locs = list(spec.submodule_search_locations or [])
+    if not locs and spec.origin:
+        locs = [str(Path(spec.origin).parent)]
+    return [Path(p) for p in locs]
+
+
 def demo_data_dir(out_dir=None, seed: int | None = None) -> Path:
     """Folder holding the demo CSVs.
 
@@ -77,15 +95,9 @@ def demo_data_dir(out_dir=None, seed: int | None = None) -> Path:
     here = Path(__file__).resolve().parent.parent / "datasets"
     if _has_all(here):
         return here
-    try:
-        from importlib import resources
-
-        root = resources.files("socfuse_demo_data")
-        cand = Path(str(root))
+    for cand in _package_data_dirs():
         if _has_all(cand):
             return cand
-    except (ModuleNotFoundError, TypeError, FileNotFoundError):
-        pass
     if out_dir is None:
         raise DemoError("demo data not found (no datasets/ folder and no socfuse_demo_data package); "
                         "give an output folder to regenerate it")

@@ -62,3 +62,17 @@ def test_demo_refuses_a_foreign_folder(tmp_path):
 
 def test_demo_data_found_in_a_checkout(repo):
     assert demo_data_dir() == repo / "datasets"
+
+
+def test_installed_data_folder_is_found(tmp_path, monkeypatch):
+    # the installed data folder has no __init__.py: a namespace package (PEP 420)
+    import importlib
+    import sys
+
+    from estimator.demo import _package_data_dirs
+
+    (tmp_path / "socfuse_demo_data").mkdir()
+    monkeypatch.syspath_prepend(str(tmp_path))
+    monkeypatch.delitem(sys.modules, "socfuse_demo_data", raising=False)
+    importlib.invalidate_caches()
+    assert tmp_path / "socfuse_demo_data" in _package_data_dirs()
