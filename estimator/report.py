@@ -203,6 +203,8 @@ def _scenario_figure(rec_name: str, scenario: str, traces: Mapping, bound=None):
     z = np.linspace(-6, 6, 400)
     a_hist.plot(z, np.exp(-0.5 * z ** 2) / np.sqrt(2 * np.pi), color="k", lw=1.2, label="N(0, 1)")
     a_soc.set(xlabel="time (h)", ylabel="SOC (%)", title=f"SOC against reference: {rec_name}")
+    lo, hi = a_soc.get_ylim()
+    a_soc.set_ylim(max(lo, -5.0), min(hi, 105.0))
     a_err.set(xlabel="time (h)", ylabel="SOC error (percentage points)",
               title="error (shaded: filter +-3 sigma; dotted: +-2 points)")
     lim = a_err.get_ylim()
