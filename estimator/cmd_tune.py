@@ -32,6 +32,9 @@ def register(sub) -> None:
                    help="budget of filter runs over all recordings (default 150)")
     p.add_argument("--penalty-weight", type=float, default=10.0, metavar="W",
                    help="soc-error: weight of the NIS-band penalty (default 10)")
+    p.add_argument("--coverage", type=float, default=None, metavar="F",
+                   help="soc-error: also require this fraction (e.g. 0.95) of samples to have the SOC error "
+                        "inside the filter's +-3 sigma (penalised like the NIS band)")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     from .cli_common import add_mapping_options
 
@@ -54,6 +57,10 @@ def run(args) -> int:
         raise CliError(f"folder {out.parent} does not exist")
     if args.soc0 is not None and not (0.0 <= args.soc0 <= 1.0):
         raise CliError(f"--soc0 is a fraction 0..1, got {args.soc0}")
+    if args.coverage is not None and not (0.0 < args.coverage < 1.0):
+        raise CliError(f"--coverage is a fraction in (0, 1), got {args.coverage}")
+    if args.coverage is not None and args.objective != "soc-error":
+        raise CliError("--coverage needs --objective soc-error")
     if args.max_evaluations < 2:
         raise CliError(f"--max-evaluations must be at least 2, got {args.max_evaluations}")
     model = load_model(args.model)
@@ -66,7 +73,8 @@ def run(args) -> int:
                                "--ref-soc0); --objective soc-error needs one")
     soc0s = None if args.soc0 is None else [args.soc0] * len(recs)
     res = tune(model, recs, start, objective=args.objective, params=args.params, soc0s=soc0s,
-               max_evaluations=args.max_evaluations, penalty_weight=args.penalty_weight, quiet=args.quiet)
+               max_evaluations=args.max_evaluations, penalty_weight=args.penalty_weight, coverage=args.coverage,
+               quiet=args.quiet)
     save_settings(res.settings, out)
     print(res.describe())
     print(f"wrote {out}")

@@ -121,6 +121,8 @@ class TuneResult:
     message: str
     recordings: tuple = ()
     n_samples: int = 0
+    coverage_before: float | None = None
+    coverage_after: float | None = None
     history: tuple = field(default=(), repr=False)
 
     def values(self) -> dict:
@@ -148,6 +150,8 @@ class TuneResult:
         lines.append(f"  mean negative log-likelihood per innovation: {self.nll_before:.5g} -> {self.nll_after:.5g} nats")
         if self.rmse_before is not None:
             lines.append(f"  SOC RMSE: {100 * self.rmse_before:.3f} % -> {100 * self.rmse_after:.3f} %")
+            lines.append(f"  SOC error inside the filter's +-3 sigma: {100 * self.coverage_before:.1f} % -> "
+                         f"{100 * self.coverage_after:.1f} % of samples")
         if self.objective == "soc-error":
             lines.append(f"  objective (penalised RMSE): {self.objective_before:.5g} -> {self.objective_after:.5g}")
         lines.append(f"  before: {self.nis_before.describe()}")
@@ -213,6 +217,7 @@ class _Eval:
     n: int
     rmse: float | None
     nis: ConsistencyResult
+    coverage: float | None = None
 
 
 def evaluate(model, recs, settings: FilterSettings, soc0s=None, confidence: float = 0.95) -> _Eval:
@@ -220,12 +225,14 @@ def evaluate(model, recs, settings: FilterSettings, soc0s=None, confidence: floa
     recs = list(recs)
     raw = ekf_raw(model, recs, settings, soc0s)
     nll, n = innovation_nll(raw["innovation_v"], raw["innovation_var_v2"])
-    rmse = None
+    rmse = cover = None
     if all(r.soc_ref is not None for r in recs):
         ref = np.concatenate([np.asarray(r.soc_ref, dtype=float) for r in recs])
-        rmse = float(np.sqrt(np.mean((raw["soc"] - ref) ** 2)))
+        err = raw["soc"] - ref
+        rmse = float(np.sqrt(np.mean(err ** 2)))
+        cover = float(np.mean(np.abs(err) <= 3.0 * raw["soc_sigma"]))
     nis = nis_test(raw["innovation_v"], raw["innovation_var_v2"], confidence)
-    return _Eval(nll, n, rmse, nis)
+    return _Eval(nll, n, rmse, nis, cover)
 
 
 def default_params(model, settings: FilterSettings, objective: str = "likelihood", with_p0: bool = False) -> tuple:
@@ -242,15 +249,19 @@ def default_params(model, settings: FilterSettings, objective: str = "likelihood
     return tuple(p)
 
 
-def _penalised(rmse: float, nis: ConsistencyResult, weight: float) -> float:
+def _penalised(ev: _Eval, weight: float, coverage: float | None) -> float:
+    nis = ev.nis
     lo, hi = nis.band_lo, nis.band_hi
     e = max(0.0, math.log(nis.mean / hi), math.log(lo / nis.mean)) if nis.mean > 0 else 50.0
-    return rmse * (1.0 + weight * e * e)
+    c = 0.0
+    if coverage is not None:
+        c = max(0.0, math.log(coverage / max(ev.coverage, 1e-3)))
+    return ev.rmse * (1.0 + weight * (e * e + c * c))
 
 
 def tune(model, recs, settings: FilterSettings | None = None, objective: str = "likelihood", params=None,
          soc0s=None, max_evaluations: int = 150, penalty_weight: float = 10.0, confidence: float = 0.95,
-         xatol_decades: float = 0.01, quiet: bool = True) -> TuneResult:
+         coverage: float | None = None, xatol_decades: float = 0.01, quiet: bool = True) -> TuneResult:
     """Tune the filter noise on one or more recordings.
 
     Parameters
@@ -270,6 +281,11 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         ``w`` of the NIS-band penalty of the ``soc-error`` objective.
     confidence : float
         Probability of the NIS band.
+    coverage : float, optional
+        ``soc-error`` only: also require that at least this fraction of samples has
+        ``|soc - soc_ref| <= 3 soc_sigma`` (e.g. 0.95), penalised like the NIS band with
+        ``log(coverage / fraction)``.  Without it a filter can be innovation-consistent yet claim
+        a far smaller SOC sigma than its real error (model error is correlated in time).
     xatol_decades : float
         Convergence tolerance of the search in decades (0.01 = 2.3 %).
     quiet : bool
@@ -319,7 +335,7 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         if objective == "likelihood":
             f = ev.nll if math.isfinite(ev.nll) else 1e300
         else:
-            f = _penalised(ev.rmse, ev.nis, penalty_weight)
+            f = _penalised(ev, penalty_weight, coverage)
         cache[key] = (f, ev)
         history.append((tuple(float(10.0 ** v) for v in x), f))
         bar.update(1)
@@ -352,5 +368,6 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         nll_before=ev_before.nll / ev_before.n, nll_after=ev_after.nll / n,
         rmse_before=ev_before.rmse, rmse_after=ev_after.rmse, nis_before=ev_before.nis, nis_after=ev_after.nis,
         iterations=int(getattr(res, "nit", 0)), evaluations=len(cache), converged=bool(res.success),
-        message=str(res.message), recordings=tuple(r.name for r in recs), n_samples=n, history=tuple(history))
+        message=str(res.message), recordings=tuple(r.name for r in recs), n_samples=n,
+        coverage_before=ev_before.coverage, coverage_after=ev_after.coverage, history=tuple(history))
 

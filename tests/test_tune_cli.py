@@ -48,9 +48,10 @@ def test_tune_soc_error_needs_reference(files, capsys):
     assert "no SOC reference" in capsys.readouterr().err
     code = main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out),
                  "--objective", "soc-error", "--soc0", "0.8", "--params", "voltage_noise_v",
-                 "--max-evaluations", "20", "--quiet"])
+                 "--max-evaluations", "20", "--coverage", "0.9", "--quiet"])
     assert code == 0 and out.exists()
-    assert "SOC RMSE" in capsys.readouterr().out
+    text = capsys.readouterr().out
+    assert "SOC RMSE" in text and "inside the filter's +-3 sigma" in text
 
 
 def test_tune_help_and_bad_options(files, capsys):
