@@ -107,3 +107,13 @@ def test_bench_command(repo, tmp_path, capsys):
     bad = [a if a != str(out) else str(tmp_path / "other") for a in argv[:-3]] + ["wobble=1"]
     assert main(bad) == 2
     assert "unknown fault 'wobble'" in capsys.readouterr().err
+
+
+def test_progress_is_quiet_off_a_terminal(monkeypatch):
+    from estimator.progress import show_progress
+
+    monkeypatch.delenv("SOCFUSE_PROGRESS", raising=False)
+    assert show_progress(quiet=True) is False
+    assert show_progress() is False          # pytest captures output: not a terminal
+    monkeypatch.setenv("SOCFUSE_PROGRESS", "1")
+    assert show_progress() is True and show_progress(quiet=True) is False
