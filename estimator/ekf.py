@@ -23,7 +23,8 @@ from .settings import FilterSettings, default_settings
 from .tables import KernelTables
 from .trace import Trace, make_trace, state_names
 
-__all__ = ["EkfSetup", "setup", "initial_soc", "run_ekf", "run_ekf_batch", "run_ekf_store", "temperature_array"]
+__all__ = ["EkfSetup", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
+           "run_ekf_store", "temperature_array"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -154,6 +155,16 @@ def _prior(su: EkfSetup, z0: float, sig0: float):
     if su.i_h >= 0:
         p0[su.i_h, su.i_h] = s.p0_hyst ** 2 if su.est_h else 0.0
     return x0, p0
+
+
+def prior(su: EkfSetup, z0: float, sig0: float):
+    """Initial state ``x0`` (n_x,) and covariance ``P0`` (n_x, n_x) for SOC ``z0`` with sigma ``sig0``."""
+    return _prior(su, z0, sig0)
+
+
+def recording_arrays(rec):
+    """``(time_s, current_a, voltage_v, temperature_c)`` as contiguous float arrays for the kernels."""
+    return _arrays(rec)
 
 
 def _arrays(rec):

@@ -113,3 +113,13 @@ print("same")
     res = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120)
     assert res.returncode == 0, res.stderr[-2000:]
     assert "same" in res.stdout
+
+
+def test_temperature_model_tracks_cold_simulation():
+    m = tiny_model(n_rc=1, temperature=True)
+    rec, sim = simulated_recording(m, n=1500, soc0=0.8, temperature_c=12.0, seed=9)
+    tr = run_ekf(m, rec, soc0=0.8)
+    # the filter's model is the simulating model at 12 degC (between the 5 and 25 degC rows);
+    # a 25 degC-only look-up would bias the voltage by the 10 mohm R0 difference at 4 A
+    assert np.sqrt(np.mean(tr.soc_error ** 2)) < 0.005
+    assert np.sqrt(np.mean(tr.innovation_v ** 2)) < 0.0075  # voltage noise 5 mV (ekf_cases)
