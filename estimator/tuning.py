@@ -47,7 +47,7 @@ from .ekf import _arrays, _prior, initial_soc, setup
 from .settings import FilterSettings, default_settings
 
 __all__ = ["TUNABLE", "TuneResult", "TuningError", "default_params", "ekf_raw", "innovation_nll",
-           "evaluate", "tune"]
+           "evaluate", "tune", "AlsResult", "als_noise", "fixed_gain_innovations"]
 
 #: Tunable settings: (kind, lower, upper) with absolute bounds in the setting's own unit.
 #: Wide on purpose (common practice, no source): they only stop the search from running away.
@@ -371,3 +371,119 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         message=str(res.message), recordings=tuple(r.name for r in recs), n_samples=n,
         coverage_before=ev_before.coverage, coverage_after=ev_after.coverage, history=tuple(history))
 
+
+
+# ----------------------------------------------------------------------------- ALS (linear models)
+@dataclass(frozen=True, eq=False)
+class AlsResult:
+    """Autocovariance least-squares estimate of the noise of a linear time-invariant model.
+
+    Attributes
+    ----------
+    q_weights : ndarray (n_basis,)
+        Non-negative weights of the process-noise basis: ``Q = sum_i q_weights[i] Q_i``.
+    q : ndarray (n, n)
+        The estimated process-noise covariance.
+    r : float
+        The estimated measurement-noise variance.
+    autocov : ndarray (n_lags,)
+        Sample autocovariances of the innovations used (lags 0..n_lags-1).
+    residual : float
+        Norm of the least-squares residual.
+    """
+
+    q_weights: np.ndarray
+    q: np.ndarray
+    r: float
+    autocov: np.ndarray
+    residual: float
+
+
+def fixed_gain_innovations(A, C, L, y, x0=None, u=None):
+    """Innovations of the fixed-gain filter ``x^-_{k+1} = A (x^-_k + L nu_k) + u_k``, ``nu_k = y_k - C x^-_k``.
+
+    Parameters
+    ----------
+    A : (n, n); C : (n,); L : (n,) filter gain; y : (N,) scalar measurements;
+    x0 : (n,) initial prediction (default 0); u : (N, n) known input term per step (default 0).
+
+    Returns
+    -------
+    ndarray (N,)
+    """
+    A = np.asarray(A, dtype=float)
+    C = np.asarray(C, dtype=float).ravel()
+    L = np.asarray(L, dtype=float).ravel()
+    y = np.asarray(y, dtype=float)
+    x = np.zeros(A.shape[0]) if x0 is None else np.array(x0, dtype=float)
+    nu = np.empty(y.size)
+    for k in range(y.size):
+        nu[k] = y[k] - C @ x
+        x = A @ (x + L * nu[k])
+        if u is not None:
+            x = x + u[k]
+    return nu
+
+
+def als_noise(A, C, L, innovations, q_basis, n_lags: int = 15, skip: int = 0) -> AlsResult:
+    """Autocovariance least squares (Odelson, Rajamani, Rawlings, Automatica 42 (2006) 303-308).
+
+    For ``x' = A x + w`` (``w ~ N(0, Q)``), ``y = C x + v`` (``v ~ N(0, R)``, scalar) filtered with any
+    stable fixed gain ``L`` (:func:`fixed_gain_innovations`), the prediction error ``e`` obeys
+    ``e' = Abar e + w - A L v`` with ``Abar = A - A L C`` and the innovation ``nu = C e + v`` has the
+    autocovariances::
+
+        c_0 = C P C^T + R,   c_j = C Abar^j P C^T - C Abar^(j-1) A L R   (j >= 1)
+        P = Abar P Abar^T + Q + A L R L^T A^T
+
+    which are linear in ``Q`` and ``R``.  With ``Q = sum_i theta_i Q_i`` the sample autocovariances
+    give a non-negative least-squares problem in ``(theta, R)`` (``scipy.optimize.nnls``; the
+    Lyapunov equations by ``scipy.linalg.solve_discrete_lyapunov``).
+
+    Parameters
+    ----------
+    A : (n, n); C : (n,); L : (n,)
+    innovations : (N,)
+    q_basis : sequence of (n, n) positive semi-definite matrices
+    n_lags : int  number of autocovariance lags used (0..n_lags-1)
+    skip : int  leading innovations left out (filter transient)
+
+    Returns
+    -------
+    AlsResult
+    """
+    from scipy.linalg import solve_discrete_lyapunov
+
+    A = np.asarray(A, dtype=float)
+    C = np.asarray(C, dtype=float).ravel()
+    L = np.asarray(L, dtype=float).ravel()
+    nu = np.asarray(innovations, dtype=float)[skip:]
+    nu = nu[np.isfinite(nu)]
+    if nu.size <= 10 * n_lags:
+        raise TuningError(f"ALS: {nu.size} innovations are too few for {n_lags} lags")
+    abar = A - A @ np.outer(L, C)
+    if np.max(np.abs(np.linalg.eigvals(abar))) >= 1.0:
+        raise TuningError("ALS: the gain L does not give a stable filter (A - A L C has an eigenvalue >= 1)")
+    al = A @ L
+    powers = [np.eye(A.shape[0])]
+    for _ in range(n_lags):
+        powers.append(abar @ powers[-1])
+
+    def cols_for(p, extra0, extra_j):
+        out = np.empty(n_lags)
+        for j in range(n_lags):
+            out[j] = C @ powers[j] @ p @ C + (extra0 if j == 0 else extra_j(j))
+        return out
+
+    cols = []
+    for qi in q_basis:
+        p = solve_discrete_lyapunov(abar, np.asarray(qi, dtype=float))
+        cols.append(cols_for(p, 0.0, lambda j: 0.0))
+    pr = solve_discrete_lyapunov(abar, np.outer(al, al))
+    cols.append(cols_for(pr, 1.0, lambda j: -(C @ powers[j - 1] @ al)))
+    design = np.column_stack(cols)
+    n = nu.size
+    chat = np.array([np.dot(nu[j:], nu[:n - j]) / (n - j) for j in range(n_lags)])
+    theta, resid = optimize.nnls(design, chat)
+    q = sum(t * np.asarray(qi, dtype=float) for t, qi in zip(theta[:-1], q_basis))
+    return AlsResult(theta[:-1].copy(), np.asarray(q, dtype=float), float(theta[-1]), chat, float(resid))

@@ -100,3 +100,33 @@ def test_bad_tuning_input(data):
     no_ref = [r.with_(soc_ref=None) for r in recs]
     with pytest.raises(TuningError, match="soc_ref"):
         tune(model, no_ref, start, objective="soc-error")
+
+
+def test_autocovariance_least_squares_recovers_linear_noise():
+    # Odelson, Rajamani, Rawlings (2006): noise covariances from the innovations of a suboptimal
+    # fixed-gain filter; reference gain from scipy.linalg.solve_discrete_are for wrong guesses
+    from scipy.linalg import solve_discrete_are
+
+    from estimator.tuning import als_noise, fixed_gain_innovations
+
+    A = np.array([[1.0, 0.0], [0.0, 0.9]])
+    C = np.array([1.0, -1.0])
+    q_true, r_true = np.array([1e-4, 4e-3]), 1e-2
+    rng = np.random.default_rng(11)
+    n = 60000
+    x = np.zeros(2)
+    y = np.empty(n)
+    for k in range(n):
+        y[k] = C @ x + rng.normal(0, np.sqrt(r_true))
+        x = A @ x + rng.normal(0, np.sqrt(q_true))
+    # gain of a filter designed for 10x wrong noise (deliberately suboptimal)
+    p = solve_discrete_are(A.T, C[:, None], np.diag(q_true * 10), np.array([[r_true / 10]]))
+    L = p @ C / (C @ p @ C + r_true / 10)
+    nu = fixed_gain_innovations(A, C, L, y)
+    res = als_noise(A, C, L, nu, [np.diag([1.0, 0.0]), np.diag([0.0, 1.0])], n_lags=20, skip=100)
+    # the random-walk weight has the largest sampling spread (three seeds gave 0.74..1.36 x)
+    assert res.r == pytest.approx(r_true, rel=0.05)
+    assert res.q_weights[1] == pytest.approx(q_true[1], rel=0.1)
+    assert res.q_weights[0] == pytest.approx(q_true[0], rel=0.4)
+    with pytest.raises(TuningError, match="stable"):
+        als_noise(A, C, np.zeros(2), nu, [np.eye(2)])  # L = 0 leaves the random walk unstable
