@@ -42,7 +42,7 @@ import numpy as np
 from numba import njit
 
 from . import kernels as K
-from .ekf import _prior, initial_soc, setup, temperature_array
+from .ekf import initial_soc, prior, setup, temperature_array
 from .settings import FilterSettings
 
 __all__ = ["BoundResult", "Q_FLOOR", "pcrb_linear", "pcrb_soc_sigma", "truth_states"]
@@ -295,7 +295,7 @@ def pcrb_soc_sigma(model, rec, settings: FilterSettings | None = None, soc_true=
         if states.shape != (rec.n, su.n_x):
             raise BoundError(f"trace states {states.shape} do not match the filter's ({rec.n}, {su.n_x})")
     z0, sig0 = initial_soc(su, rec, soc0)
-    _, p0 = _prior(su, z0, sig0)
+    _, p0 = prior(su, z0, sig0)
     sig = np.empty((rec.n, su.n_x))
     t = np.ascontiguousarray(rec.time_s, dtype=float)
     _model_run(t, np.ascontiguousarray(rec.current_a, dtype=float), np.ascontiguousarray(rec.voltage_v, dtype=float),

@@ -37,7 +37,7 @@ import numpy as np
 from numba import njit, prange
 
 from . import kernels as K
-from .ekf import _arrays, setup
+from .ekf import recording_arrays, setup
 from .settings import FilterSettings, default_settings
 from .tuning import ekf_raw
 
@@ -325,7 +325,7 @@ def run_tolerance(model, rec, settings: FilterSettings | None = None, tolerances
     soc0_err = tol.initial_soc_error * u[2]
     cap = 1.0 + tol.capacity * u[3]
     soc0 = np.clip(ref[0] + soc0_err, 0.0, 1.0)
-    t_s, i_a, v_v, temp = _arrays(rec)
+    t_s, i_a, v_v, temp = recording_arrays(rec)
     start = int(np.searchsorted(rec.time_s, rec.time_s[0] + skip_s))
     start = min(start, rec.n - 1)
     su = setup(model, s)

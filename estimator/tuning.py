@@ -43,7 +43,7 @@ from scipy import optimize
 
 from . import kernels as K
 from .consistency import ConsistencyResult, nis_test
-from .ekf import _arrays, _prior, initial_soc, setup
+from .ekf import initial_soc, prior, recording_arrays, setup
 from .settings import FilterSettings, default_settings
 
 __all__ = ["TUNABLE", "TuneResult", "TuningError", "default_params", "ekf_raw", "innovation_nll",
@@ -185,8 +185,8 @@ def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=N
     x0s = np.empty((m, nx))
     p0s = np.empty((m, nx, nx))
     for r, (rec, z) in enumerate(zip(recs, soc0s)):
-        x0s[r], p0s[r] = _prior(su, *initial_soc(su, rec, z))
-    cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[_arrays(r) for r in recs])]
+        x0s[r], p0s[r] = prior(su, *initial_soc(su, rec, z))
+    cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[recording_arrays(r) for r in recs])]
     n = int(offsets[-1])
     x_out = np.empty((n, nx))
     sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
