@@ -156,6 +156,11 @@ class TuneResult:
             lines.append(f"  objective (penalised RMSE): {self.objective_before:.5g} -> {self.objective_after:.5g}")
         lines.append(f"  before: {self.nis_before.describe()}")
         lines.append(f"  after:  {self.nis_after.describe()}")
+        if self.coverage_after is not None and self.coverage_after < 0.9:
+            lines.append(f"  warning: the SOC error is outside the tuned filter's +-3 sigma in "
+                         f"{100 * (1 - self.coverage_after):.0f} % of samples: it is overconfident about SOC "
+                         "(model error is correlated in time, the innovations cannot show it); consider "
+                         "objective soc-error with a coverage constraint, or a larger q_soc_per_s")
         return "\n".join(lines)
 
 
