@@ -44,7 +44,7 @@ DEFAULT_TEMP_C = 25.0
 
 
 # ----------------------------------------------------------------------------- look-ups
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _soc_index(tab, z):
     """Lower node and weight on the uniform SOC grid (clamped to the table)."""
     n_s = tab.shape[2]
@@ -59,7 +59,7 @@ def _soc_index(tab, z):
     return i, s - i
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _temp_index(tab, t_c, t_min, t_step):
     """Rows and weight on the uniform temperature grid (clamped; NaN -> 25 degC)."""
     n_t = tab.shape[1]
@@ -78,7 +78,7 @@ def _temp_index(tab, t_c, t_min, t_step):
     return i, i + 1, x - i
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _bil(tab, row, it0, it1, wt, is0, ws):
     a = tab[row, it0, is0]
     b = tab[row, it0, is0 + 1]
@@ -146,7 +146,7 @@ def ocv_inverse(tab, v, t_c, t_min, t_step):
 
 
 # ----------------------------------------------------------------------------- model pieces
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache):
     """One interval of the sampling rule.
 
@@ -198,7 +198,7 @@ def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g,
         g[i_h] = -(h + sg) * e * k * sg
 
 
-@njit(cache=True, error_model="numpy")
+@njit(cache=True, error_model="numpy", inline="always")
 def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow):
     """Predicted terminal voltage at state ``x`` and current sample ``i_k``; writes ``H``."""
     z = x[0]
@@ -381,10 +381,19 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 gh = g[i_h]
                 g[i_h] = 0.0
             # P- = F P F^T + G G^T s2 + diag(q) dt, with F = diag(d) + c e_b^T, c = -g (c_b = 0)
-            for i in range(nx):
-                for j in range(i + 1):
-                    v = d[i] * d[j] * p[i, j]
-                    if i_b >= 0:
+            if i_b < 0:  # F diagonal: in place, no branches in the inner loop
+                for i in range(nx):
+                    di = d[i]
+                    gi = g[i] * s2
+                    for j in range(i):
+                        v = di * d[j] * p[i, j] + gi * g[j]
+                        p[i, j] = v
+                        p[j, i] = v
+                    p[i, i] = di * di * p[i, i] + gi * g[i] + q[i] * dt
+            else:
+                for i in range(nx):
+                    for j in range(i + 1):
+                        v = d[i] * d[j] * p[i, j]
                         ci = 0.0 if i == i_b else -g[i]
                         cj = 0.0 if j == i_b else -g[j]
                         if no_h_noise:
@@ -393,14 +402,14 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                             if j == i_h:
                                 cj = -gh
                         v += d[i] * p[i, i_b] * cj + ci * p[i_b, j] * d[j] + ci * cj * p[i_b, i_b]
-                    v += g[i] * g[j] * s2
-                    if i == j:
-                        v += q[i] * dt
-                    pn[i, j] = v
-                    pn[j, i] = v
-            for i in range(nx):
-                for j in range(nx):
-                    p[i, j] = pn[i, j]
+                        v += g[i] * g[j] * s2
+                        if i == j:
+                            v += q[i] * dt
+                        pn[i, j] = v
+                        pn[j, i] = v
+                for i in range(nx):
+                    for j in range(nx):
+                        p[i, j] = pn[i, j]
             if store:
                 for i in range(nx):
                     for j in range(nx):
