@@ -11,6 +11,7 @@ import pytest
 
 from ekf_cases import simulated_recording, tiny_model
 from estimator import kernels as K
+from estimator.coulomb import run_coulomb
 from estimator.ekf import run_ekf, run_ekf_batch, setup
 from estimator.run import estimate
 from estimator.settings import (FilterSettings, SettingsError, default_settings, load_settings,
@@ -94,7 +95,9 @@ def test_pure_python_equals_compiled(tmp_path):
     m = tiny_model(n_rc=1)
     rec, _ = simulated_recording(m, n=150, uneven=True)
     tr = run_ekf(m, rec)
-    np.save(tmp_path / "ref.npy", np.column_stack([tr.states, tr.soc_sigma, tr.voltage_pred_v]))
+    cc = run_coulomb(m, rec, default_settings(m).with_(rest_current_a=3.0, rest_min_s=5.0), soc0=0.7)
+    assert len(cc.reseeds) > 0
+    np.save(tmp_path / "ref.npy", np.column_stack([tr.states, tr.soc_sigma, tr.voltage_pred_v, cc.soc, cc.soc_sigma]))
     code = f"""
 import sys, numpy as np
 sys.path[:0] = [{os.getcwd()!r}, {os.path.dirname(__file__)!r}]
@@ -103,9 +106,11 @@ from estimator.ekf import run_ekf
 from estimator.coulomb import run_coulomb
 m = tiny_model(n_rc=1)
 rec, _ = simulated_recording(m, n=150, uneven=True)
+from estimator.settings import default_settings
 tr = run_ekf(m, rec)
+cc = run_coulomb(m, rec, default_settings(m).with_(rest_current_a=3.0, rest_min_s=5.0), soc0=0.7)
 ref = np.load({str(tmp_path / 'ref.npy')!r})
-out = np.column_stack([tr.states, tr.soc_sigma, tr.voltage_pred_v])
+out = np.column_stack([tr.states, tr.soc_sigma, tr.voltage_pred_v, cc.soc, cc.soc_sigma])
 assert np.max(np.abs(out - ref)) <= 1e-12, np.max(np.abs(out - ref))
 print("same")
 """
