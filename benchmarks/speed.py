@@ -65,7 +65,7 @@ def real_recording():
     return Recording(t[keep2], i[keep2], v[keep2], temp[keep2], name="panasonic drive cycle 1 (10 Hz)")
 
 
-def time_ours(model, rec, settings, repeat=20):
+def time_ours(model, rec, settings, repeat=100):
     su = setup(model, settings)
     x0, p0 = _prior(su, *initial_soc(su, rec, 0.9))
     t, i, v, tc = _arrays(rec)
