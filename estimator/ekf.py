@@ -87,6 +87,7 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_QB] = s.q_bias_a2_per_s
     prm[K.P_QH] = s.q_hyst_per_s
     prm[K.P_GATE] = s.gate_sigma
+    prm[K.P_GREL] = s.gate_release_s
     prm[K.P_SMIN] = s.soc_min
     prm[K.P_SMAX] = s.soc_max
     prm[K.P_CAP] = tab.capacity_as

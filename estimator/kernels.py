@@ -34,12 +34,12 @@ import numpy as np
 from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
-           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "N_PRM", "table_value", "ocv_lookup",
+           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "N_PRM", "table_value", "ocv_lookup",
            "ocv_inverse", "measure", "transition", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
 
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
-P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP = 9, 10, 11, 12, 13, 14
-N_PRM = 15
+P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
+N_PRM = 16
 DEFAULT_TEMP_C = 25.0
 
 
@@ -356,6 +356,9 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     r_meas = prm[P_VN] * prm[P_VN]
     gate = prm[P_GATE]
     gate2 = gate * gate
+    grel = prm[P_GREL]
+    run_on = False  # inside a run of consecutive gated samples
+    run_s = 0.0     # time since that run began, s
     smin = prm[P_SMIN]
     smax = prm[P_SMAX]
     no_h_noise = i_h >= 0 and not est_h
@@ -374,6 +377,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         if k > lo:
             dt = time_s[k] - time_s[k - 1]
             u = 0.5 * (current_a[k - 1] + current_a[k])
+            if run_on:
+                run_s += dt
             _transition(tab, n_rc, i_b, i_h, prm, x, u, dt, pt0, pt1, pwt, xn, d, g, cache)
             for i in range(nx):
                 x[i] = xn[i]
@@ -443,9 +448,13 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         if vk == vk:
             innov = vk - y
             innov_out[k] = innov
-            if gate > 0.0 and innov * innov > gate2 * sv:
+            if gate > 0.0 and innov * innov > gate2 * sv and not (run_on and grel > 0.0 and run_s >= grel):
                 gated += 1
+                if not run_on:
+                    run_on = True
+                    run_s = 0.0
             else:
+                run_on = False
                 inv_s = 1.0 / sv
                 for i in range(nx):
                     kg[i] = ph[i] * inv_s

@@ -64,6 +64,11 @@ class FilterSettings:
     gate_sigma : float
         Innovation gate in standard deviations: a sample with ``|innovation| >
         gate_sigma * sqrt(S)`` is not used and is counted.  0 switches the gate off.
+    gate_release_s : float
+        Gate release, s: when samples have been gated without a break for this long, the next
+        sample that fails the gate is used anyway (and the run starts again).  A gate is meant
+        to reject outliers; a persistent mismatch (a wrong initial SOC with an optimistic
+        ``p0_soc``, a model error) would otherwise lock the filter out for good.  0 = never.
     soc_min, soc_max : float
         Clip policy: after every update (and every baseline step) SOC is clipped to this range.
         The covariance is left as it is.
@@ -95,6 +100,7 @@ class FilterSettings:
     estimate_bias: bool = False
     estimate_hysteresis: bool = True
     gate_sigma: float = 5.0
+    gate_release_s: float = 30.0
     soc_min: float = 0.0
     soc_max: float = 1.0
     rest_current_a: float = 0.1

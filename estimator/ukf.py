@@ -49,10 +49,13 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     states = np.empty((n, nx))
     sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
     gated = 0
+    run_on, run_s = False, 0.0  # gate release, as in the EKF kernel
     for k in range(n):
         if k > 0:
             dt = float(t[k] - t[k - 1])
             u = 0.5 * (i[k - 1] + i[k])
+            if run_on:
+                run_s += dt
             _, _, _, q, _, _ = su.linearise(ukf.x, i[k - 1], i[k], dt, tc[k - 1], tc[k])
             if su.i_h >= 0 and not su.est_h:
                 q[su.i_h, su.i_h] += 1e-12
@@ -66,9 +69,13 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         sv[k] = smat[0, 0]
         if np.isfinite(v[k]):
             inn[k] = v[k] - zp[0]
-            if s.gate_sigma > 0 and abs(inn[k]) > s.gate_sigma * np.sqrt(sv[k]):
+            released = run_on and s.gate_release_s > 0 and run_s >= s.gate_release_s
+            if s.gate_sigma > 0 and abs(inn[k]) > s.gate_sigma * np.sqrt(sv[k]) and not released:
                 gated += 1
+                if not run_on:
+                    run_on, run_s = True, 0.0
             else:
+                run_on = False
                 ukf.update(np.array([v[k]]), i_k=i[k], t_c=tc[k])
                 ukf.P = 0.5 * (ukf.P + ukf.P.T)
         else:
