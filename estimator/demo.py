@@ -309,9 +309,14 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
         step("C99 export", t0, "skipped: estimator.export_c is not available")
     else:
         try:
-            ex.export_c(model, settings, out / "c", golden=recs[MAIN_DAY].slice(0, 600), measure=not quick)
+            golden = recs[MAIN_DAY].slice(0, 600) if quick else recs[MAIN_DAY]  # the whole day unless quick
+            res = ex.export_c(model, settings, out / "c", golden=golden, measure=not quick)
             files["c"] = out / "c"
-            step("C99 export with golden vectors", t0)
+            verdict = ""
+            if getattr(res, "max_soc_diff", None) is not None:
+                verdict = (f" (C harness over {golden.n} rows: max_soc_diff={res.max_soc_diff:.2g}, "
+                           f"exit {res.harness_exit})")
+            step("C99 export with golden vectors" + verdict, t0)
         except (ValueError, OSError, RuntimeError) as e:
             step("C99 export", t0, f"skipped: {e}")
     return DemoResult(out, bench.summary, model, settings, tuple(steps), files, time.perf_counter() - t_all, extras)
