@@ -210,8 +210,12 @@ def run_ekf_store(model, rec, settings=None, soc0=None):
     return _run(model, rec, settings, soc0, True)
 
 
-def run_ekf_batch(model, recs, settings: FilterSettings | None = None, soc0s=None, capacity_scales=None) -> list:
-    """Run the EKF over many recordings of one model in parallel (numba ``prange``).
+def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s=None,
+                     capacity_scales=None) -> dict:
+    """The batched EKF (numba ``prange`` over recordings), returning the raw arrays.
+
+    For loops that need only the states and innovations (tuning, Monte Carlo), without building
+    :class:`Trace` objects or the energy SOC.
 
     Parameters
     ----------
@@ -222,37 +226,56 @@ def run_ekf_batch(model, recs, settings: FilterSettings | None = None, soc0s=Non
 
     Returns
     -------
-    list of Trace, equal to running :func:`run_ekf` one by one.
+    dict with ``offsets`` (M+1,), ``states`` (sum N, n_x), ``soc``, ``soc_sigma``,
+    ``voltage_pred_v``, ``innovation_v``, ``innovation_var_v2`` (all concatenated over the
+    recordings), ``n_gated`` (M,), ``capacity_scales`` (M,) and ``setup``.
     """
     recs = list(recs)
     su = setup(model, settings)
     m = len(recs)
-    if m == 0:
-        return []
     if soc0s is None or np.isscalar(soc0s):
         soc0s = [soc0s] * m
     if len(soc0s) != m:
         raise ValueError(f"{len(soc0s)} soc0 values for {m} recordings")
-    scales = np.ones(m) if capacity_scales is None else np.asarray(capacity_scales, dtype=float)
+    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
     if scales.shape != (m,) or np.any(~(scales > 0)):
         raise ValueError("capacity_scales must be one positive number per recording")
-    lens = np.array([r.n for r in recs])
+    lens = np.array([r.n for r in recs], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
     nx = su.n_x
     x0s = np.empty((m, nx))
     p0s = np.empty((m, nx, nx))
     for r, (rec, z) in enumerate(zip(recs, soc0s)):
         x0s[r], p0s[r] = _prior(su, *initial_soc(su, rec, z))
-    cat = [np.concatenate(a) for a in zip(*[_arrays(r) for r in recs])]
     n = int(offsets[-1])
     x_out = np.empty((n, nx))
     sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
     gated = np.zeros(m, dtype=np.int64)
-    K.ekf_run_batch(offsets, *cat, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, scales,
-                    x0s, p0s, x_out, sig, vp, inn, sv, gated)
+    if m:
+        cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[_arrays(r) for r in recs])]
+        K.ekf_run_batch(offsets, *cat, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, scales,
+                        x0s, p0s, x_out, sig, vp, inn, sv, gated)
+    return {"offsets": offsets, "states": x_out, "soc": x_out[:, 0].copy(), "soc_sigma": sig,
+            "voltage_pred_v": vp, "innovation_v": inn, "innovation_var_v2": sv, "n_gated": gated,
+            "capacity_scales": scales, "setup": su}
+
+
+def run_ekf_batch(model, recs, settings: FilterSettings | None = None, soc0s=None, capacity_scales=None) -> list:
+    """Run the EKF over many recordings of one model in parallel (numba ``prange``).
+
+    Same arguments as :func:`run_ekf_batch_raw`; returns a list of Trace, equal to running
+    :func:`run_ekf` one by one.
+    """
+    recs = list(recs)
+    if not recs:
+        return []
+    raw = run_ekf_batch_raw(model, recs, settings, soc0s, capacity_scales)
+    off, x_out, scales, su = raw["offsets"], raw["states"], raw["capacity_scales"], raw["setup"]
+    sig, vp, inn, sv, gated = (raw[k] for k in ("soc_sigma", "voltage_pred_v", "innovation_v",
+                                                "innovation_var_v2", "n_gated"))
     out = []
     for r, rec in enumerate(recs):
-        a, b = offsets[r], offsets[r + 1]
+        a, b = off[r], off[r + 1]
         mdl = model if scales[r] == 1.0 else model.with_(capacity_ah=model.capacity_ah * scales[r])
         out.append(make_trace(mdl, rec, "ekf", x_out[a:b, 0], sig[a:b], vp[a:b], inn[a:b], sv[a:b], x_out[a:b],
                               int(gated[r]), (), su.names))

@@ -41,9 +41,8 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy import optimize
 
-from . import kernels as K
 from .consistency import ConsistencyResult, nis_test
-from .ekf import initial_soc, prior, recording_arrays, setup
+from .ekf import run_ekf_batch_raw
 from .settings import FilterSettings, default_settings
 
 __all__ = ["TUNABLE", "TuneResult", "TuningError", "default_params", "ekf_raw", "innovation_nll",
@@ -176,30 +175,11 @@ def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=N
     dict with ``offsets`` (M+1,), ``soc``, ``soc_sigma``, ``innovation_v``, ``innovation_var_v2``
     (all concatenated over the recordings, total length sum N) and ``n_gated`` (M,).
     """
-    recs = list(recs)
-    su = setup(model, settings)
-    m = len(recs)
-    if soc0s is None or np.isscalar(soc0s):
-        soc0s = [soc0s] * m
-    if len(soc0s) != m:
-        raise TuningError(f"{len(soc0s)} soc0 values for {m} recordings")
-    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
-    lens = np.array([r.n for r in recs])
-    offsets = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
-    nx = su.n_x
-    x0s = np.empty((m, nx))
-    p0s = np.empty((m, nx, nx))
-    for r, (rec, z) in enumerate(zip(recs, soc0s)):
-        x0s[r], p0s[r] = prior(su, *initial_soc(su, rec, z))
-    cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[recording_arrays(r) for r in recs])]
-    n = int(offsets[-1])
-    x_out = np.empty((n, nx))
-    sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
-    gated = np.zeros(m, dtype=np.int64)
-    K.ekf_run_batch(offsets, *cat, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, scales,
-                    x0s, p0s, x_out, sig, vp, inn, sv, gated)
-    return {"offsets": offsets, "soc": x_out[:, 0].copy(), "soc_sigma": sig, "innovation_v": inn,
-            "innovation_var_v2": sv, "n_gated": gated}
+    try:
+        raw = run_ekf_batch_raw(model, recs, settings, soc0s, capacity_scales)
+    except ValueError as e:
+        raise TuningError(str(e)) from None
+    return {k: raw[k] for k in ("offsets", "soc", "soc_sigma", "innovation_v", "innovation_var_v2", "n_gated")}
 
 
 def innovation_nll(innovation_v, innovation_var_v2) -> tuple[float, int]:
