@@ -26,8 +26,6 @@ from __future__ import annotations
 
 import html
 import importlib
-import json
-import os
 import time
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -182,7 +180,7 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
     from models.modelfile import save_model
 
     from .bench import run_bench
-    from .report import ReportSection, write_report
+    from .report import write_report
     from .settings import default_settings, save_settings
 
     say = log or print

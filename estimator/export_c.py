@@ -40,7 +40,6 @@ from string import Template
 
 import numpy as np
 
-from . import kernels as K
 from .settings import FilterSettings, default_settings
 
 __all__ = ["ExportError", "Footprint", "ExportResult", "export_c", "golden_frame", "default_golden_recording",
@@ -474,7 +473,7 @@ def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, note
         f"temperatures x {su.tables.packed.shape[2]} SOC points, float) |",
         f"| floating-point operations per step | about {fp.flops_per_step} (+ - * /, worst case, counted by hand from the source) "
         f"+ {fp.transcendentals_per_step} expf/sqrtf |",
-        f"| worst-case stack | " + (f"{fp.stack_bytes} bytes (sum of the gcc -fstack-usage frames of the library)"
+        "| worst-case stack | " + (f"{fp.stack_bytes} bytes (sum of the gcc -fstack-usage frames of the library)"
                                    if fp.stack_bytes is not None else "not measured (no C compiler)") + " |",
         f"| state size | {su.n_x} ({', '.join(su.names)}) |",
         "",

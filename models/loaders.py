@@ -37,9 +37,8 @@ Rules (the same for every format):
 from __future__ import annotations
 
 import csv
-import io
 import math
-from dataclasses import asdict, dataclass, fields, replace
+from dataclasses import asdict, dataclass, fields
 from pathlib import Path
 from typing import Any, Mapping
 

@@ -19,7 +19,7 @@ from .ocvsource import OCV_SOURCES, ocv_candidates
 from .ocvtest import OcvTestResult, identify_ocv_test
 from .pulse import choose_rc_pairs, identify_pulse_test, pulse_power_table, pulse_tables
 from .refine import RefineResult, refine_model
-from .validate import ValidationResult, validate
+from .validate import validate
 
 __all__ = ["IdentifyResult", "identify", "IdentifyError"]
 
