@@ -478,10 +478,16 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                         p[j, i] = v
         else:
             innov_out[k] = np.nan
-        if x[0] < smin:
-            x[0] = smin
-        elif x[0] > smax:
-            x[0] = smax
+        if x[0] < smin or x[0] > smax:
+            # SOC limit by estimate projection (Simon, IET Control Theory Appl. 4, 2010): move the
+            # correlated states with the clipped SOC, x_i -= P_i0 / P_00 * excess, P unchanged.  A bare
+            # clip would let the RC (and bias) states absorb every later update and run away.
+            lim = smin if x[0] < smin else smax
+            ex = x[0] - lim
+            if p[0, 0] > 0.0:
+                for i in range(1, nx):
+                    x[i] -= p[i, 0] / p[0, 0] * ex
+            x[0] = lim
         for i in range(nx):
             x_out[k, i] = x[i]
         sig_out[k] = math.sqrt(p[0, 0]) if p[0, 0] > 0.0 else 0.0

@@ -71,7 +71,9 @@ class FilterSettings:
         ``p0_soc``, a model error) would otherwise lock the filter out for good.  0 = never.
     soc_min, soc_max : float
         Clip policy: after every update (and every baseline step) SOC is clipped to this range.
-        The covariance is left as it is.
+        In the filters the clip is an estimate projection (Simon, IET Control Theory Appl. 4,
+        2010; cited from memory): the states correlated with SOC move with it by
+        ``P_i0 / P_00`` times the excess, and the covariance is left as it is.
     rest_current_a : float
         Baseline: a sample with ``|current| <= rest_current_a`` is at rest, A.
     rest_min_s : float

