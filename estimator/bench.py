@@ -241,13 +241,10 @@ def write_summary_csv(summary: pd.DataFrame, path) -> None:
 
     Written to a temporary name and renamed.
     """
-    import os
-    from pathlib import Path
+    from models.fileio import replacing
 
-    path = Path(path)
-    tmp = path.with_name(path.name + ".tmp")
-    summary.to_csv(tmp, index=False, float_format="%.6g", na_rep="")
-    os.replace(tmp, path)
+    with replacing(path) as tmp:
+        summary.to_csv(tmp, index=False, float_format="%.6g", na_rep="")
 
 
 def _fmt(v, digits=2):

@@ -1,12 +1,12 @@
 """``socfuse estimate --model M [--filter F] --method ekf|coulomb|ukf [--soc0 X] REC -o trace.csv``."""
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
 
 from .cli import SAFETY_NOTE, CliError
+from models.fileio import replacing
 
 _METHODS = ("ekf", "coulomb", "ukf", "rts")
 
@@ -90,9 +90,8 @@ def run(args) -> int:
     else:
         tr = estimate(model, rec, args.method, settings, args.soc0)
     if out is not None:
-        tmp = out.with_name(out.name + ".tmp")
-        tr.to_frame(states=args.states).to_csv(tmp, index=False, float_format="%.8g")
-        os.replace(tmp, out)
+        with replacing(out) as tmp:
+            tr.to_frame(states=args.states).to_csv(tmp, index=False, float_format="%.8g")
         print(f"wrote {out} ({tr.n} rows, method {tr.method})")
     else:
         print("\n".join(summary_lines(tr)))

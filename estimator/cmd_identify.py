@@ -2,7 +2,6 @@
 from __future__ import annotations
 
 import csv
-import os
 from pathlib import Path
 
 from models.identify.ocvsource import OCV_SOURCES
@@ -11,6 +10,7 @@ from models.modelfile import save_model
 
 from .cli import SAFETY_NOTE, CliError
 from .cli_common import add_mapping_options, load_from_args
+from models.fileio import replacing
 
 
 def register(sub) -> None:
@@ -90,9 +90,8 @@ def run(args) -> int:
     print(res.summary())
     if args.power_table:
         frame = res.power_frame()
-        tmp = Path(str(args.power_table) + ".tmp")
-        frame.to_csv(tmp, index=False, float_format="%.6g", quoting=csv.QUOTE_MINIMAL)
-        os.replace(tmp, args.power_table)
+        with replacing(args.power_table) as tmp:
+            frame.to_csv(tmp, index=False, float_format="%.6g", quoting=csv.QUOTE_MINIMAL)
         print(f"pulse-resistance and power table: {args.power_table} ({len(frame)} rows)")
     if args.plots:
         from models.identify.plots import save_plots

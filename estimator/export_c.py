@@ -29,7 +29,6 @@ from __future__ import annotations
 
 import json
 import math
-import os
 import re
 import shutil
 import subprocess
@@ -41,6 +40,7 @@ from string import Template
 import numpy as np
 
 from .settings import FilterSettings, default_settings
+from models.fileio import write_text_replacing
 
 __all__ = ["ExportError", "Footprint", "ExportResult", "export_c", "golden_frame", "default_golden_recording",
            "render_sources", "safe_text", "c_float", "find_c_compiler", "measure_footprint", "flops_per_step",
@@ -411,24 +411,6 @@ def _check_folder(out: Path, force: bool) -> None:
                           f"(no {MARKER_NAME}); choose another folder or use --force")
 
 
-_UMASK = os.umask(0)
-os.umask(_UMASK)
-
-
-def _write(path: Path, text: str) -> Path:
-    fd, tmp = tempfile.mkstemp(prefix="." + path.name + ".", suffix=".tmp", dir=path.parent)
-    try:
-        with os.fdopen(fd, "w", newline="\n") as f:
-            f.write(text)
-        os.chmod(tmp, 0o644 & ~_UMASK)
-        os.replace(tmp, path)
-    except BaseException:
-        if os.path.exists(tmp):
-            os.unlink(tmp)
-        raise
-    return path
-
-
 def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, notes, su) -> str:
     from .cli import SAFETY_NOTE
 
@@ -557,8 +539,8 @@ def export_c(model, settings: FilterSettings | None, out_dir, golden=None, *, fo
     out.mkdir(parents=True, exist_ok=True)
     written = []
     for name, text in sources.items():
-        written.append(_write(out / name, text))
-    gpath = _write(out / "golden.csv", _golden_csv(frame))
+        written.append(write_text_replacing(out / name, text))
+    gpath = write_text_replacing(out / "golden.csv", _golden_csv(frame))
     written.append(gpath)
     flops, transc = flops_per_step(su.n_rc, su.i_b >= 0, su.i_h >= 0)
     table_bytes = int(su.tables.packed.size * 4)
@@ -569,10 +551,10 @@ def export_c(model, settings: FilterSettings | None, out_dir, golden=None, *, fo
     fp = Footprint(state_bytes, bool(meas and "state_bytes" in meas), table_bytes, flops, transc,
                    None if meas is None else meas.get("stack_bytes"),
                    () if meas is None else tuple(meas.get("stack_detail", ())))
-    written.append(_write(out / "README.md", _readme(model, s, fp, len(frame), golden_name, meas, notes, su)))
+    written.append(write_text_replacing(out / "README.md", _readme(model, s, fp, len(frame), golden_name, meas, notes, su)))
     marker = {"generator": GENERATOR, "files": [p.name for p in written], "model": safe_text(model.name),
               "golden_rows": len(frame)}
-    written.append(_write(out / MARKER_NAME, json.dumps(marker, indent=1) + "\n"))
+    written.append(write_text_replacing(out / MARKER_NAME, json.dumps(marker, indent=1) + "\n"))
     return ExportResult(out, tuple(written), fp, len(frame), golden_name,
                         None if meas is None else meas.get("max_soc_diff"),
                         None if meas is None else meas.get("exit"),

@@ -20,12 +20,12 @@ import base64
 import html
 import io
 import math
-import os
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Mapping, Sequence
 
 import numpy as np
+from models.fileio import write_bytes_replacing
 
 __all__ = ["ReportSection", "ReportFiles", "write_report", "figure_png", "df_to_html", "SAFETY_PARAGRAPH",
            "METHOD_COLOURS"]
@@ -315,12 +315,6 @@ def _model_summary(model) -> str:
     return f'<table class="t"><tr><th>cell model</th><th></th></tr>{rows}</table>'
 
 
-def _write_atomic(path: Path, data: bytes) -> None:
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.write_bytes(data)
-    os.replace(tmp, path)
-
-
 def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse benchmark report",
                  main_recording: str | None = None, bounds: Mapping | None = None,
                  sections: Sequence[ReportSection] = (), intro_html: str = "", energy: bool = True,
@@ -367,7 +361,7 @@ def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse 
     def add_figure(stem: str, fig, caption: str) -> None:
         data = fig if isinstance(fig, (bytes, bytearray)) else figure_png(fig)
         p = out / f"{_safe_stem(stem)}.png"
-        _write_atomic(p, bytes(data))
+        write_bytes_replacing(p, bytes(data))
         pngs.append(p)
         uri = "data:image/png;base64," + base64.b64encode(data).decode("ascii")
         body.append(f'<figure><img alt="{html.escape(caption)}" src="{uri}">'
@@ -457,5 +451,5 @@ def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse 
             f"<div class='caution'>{html.escape(SAFETY_NOTE)}</div>{intro_html}" + "\n".join(body)
             + "</main></body></html>\n")
     html_path = out / "report.html"
-    _write_atomic(html_path, page.encode("utf-8"))
+    write_bytes_replacing(html_path, page.encode("utf-8"))
     return ReportFiles(html_path, csv_path, tuple(pngs))

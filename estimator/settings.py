@@ -15,9 +15,9 @@ from __future__ import annotations
 
 import json
 import math
-import os
 from dataclasses import asdict, dataclass, fields, replace
 from pathlib import Path
+from models.fileio import write_text_replacing
 
 __all__ = ["FILTER_SCHEMA", "FilterSettings", "SettingsError", "default_settings", "save_settings",
            "load_settings", "settings_from_dict", "settings_to_dict"]
@@ -202,11 +202,7 @@ def settings_from_dict(d: dict, where: str = "filter settings", base: FilterSett
 
 def save_settings(settings: FilterSettings, path) -> Path:
     """Write the settings JSON (to a temporary name, then renamed)."""
-    path = Path(path)
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(json.dumps(settings_to_dict(settings), indent=1) + "\n")
-    os.replace(tmp, path)
-    return path
+    return write_text_replacing(path, json.dumps(settings_to_dict(settings), indent=1) + "\n")
 
 
 def load_settings(path, base: FilterSettings | None = None) -> FilterSettings:

@@ -28,6 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
+from .fileio import write_text_replacing
 from .ocv import OcvCurve
 from .tables import ParamTable
 from .thevenin import CellModel, Hysteresis, RcPair
@@ -150,11 +151,7 @@ def model_from_dict(d: dict, where: str = "cell model") -> CellModel:
 
 def save_model(model: CellModel, path) -> Path:
     """Write the model JSON to ``path`` (written to a temporary file, then renamed)."""
-    path = Path(path)
-    tmp = path.with_name(path.name + ".tmp")
-    tmp.write_text(json.dumps(model_to_dict(model), indent=1) + "\n")
-    os.replace(tmp, path)
-    return path
+    return write_text_replacing(path, json.dumps(model_to_dict(model), indent=1) + "\n")
 
 
 def load_model(path) -> CellModel:

@@ -36,7 +36,6 @@ and :func:`delivery_day_profile`; :func:`generate_demo_data` writes the bundled 
 from __future__ import annotations
 
 import math
-import os
 from dataclasses import asdict, dataclass, field, replace
 from pathlib import Path
 
@@ -54,6 +53,7 @@ from .ocv import OcvCurve
 from .recording import Recording
 from .tables import ParamTable
 from .thevenin import SECONDS_PER_HOUR, CellModel, Hysteresis, RcPair
+from .fileio import replacing, write_text_replacing
 
 __all__ = [
     "TruthParams", "C48_TRUTH", "SensorErrors", "IDEAL_SENSORS", "LAB_SENSORS", "FLEET_SENSORS",
@@ -908,10 +908,9 @@ def write_recording_csv(rec: Recording, path) -> Path:
         cols.append(rec.soc_ref)
         names.append("soc_ref")
         fmts.append(_CSV_FORMATS[4])
-    tmp = path.with_name(path.name + ".tmp")
     data = np.column_stack(cols)
-    np.savetxt(tmp, data, fmt=fmts, delimiter=",", header=",".join(names), comments="")
-    os.replace(tmp, path)
+    with replacing(path) as tmp:
+        np.savetxt(tmp, data, fmt=fmts, delimiter=",", header=",".join(names), comments="")
     return path
 
 
@@ -1006,8 +1005,6 @@ def generate_demo_data(out_dir, seed: int = DEMO_SEED, files=None, params: Truth
             "profile": prof.info,
         }
     mpath = out / "manifest.json"
-    tmp = mpath.with_name(mpath.name + ".tmp")
-    tmp.write_text(json.dumps(manifest, indent=1) + "\n")
-    os.replace(tmp, mpath)
+    write_text_replacing(mpath, json.dumps(manifest, indent=1) + "\n")
     written.append(mpath)
     return written

@@ -12,11 +12,11 @@ refused (never overwritten) unless ``overwrite=True``.
 """
 from __future__ import annotations
 
-import os
 import re
 from pathlib import Path
 
 import numpy as np
+from ..fileio import replacing
 
 __all__ = ["save_plots", "plot_ocv", "plot_parameters", "plot_pulse_fits", "plot_validation"]
 
@@ -34,9 +34,8 @@ def _save(fig, path: Path, overwrite: bool) -> Path:
     path = Path(path)
     if path.exists() and not overwrite:
         raise FileExistsError(f"{path}: exists; not overwritten (choose another --plots folder)")
-    tmp = path.with_name(path.name + ".tmp.png")
-    fig.savefig(tmp, dpi=90)
-    os.replace(tmp, path)
+    with replacing(path, suffix=".tmp.png") as tmp:
+        fig.savefig(tmp, dpi=90)
     return path
 
 
