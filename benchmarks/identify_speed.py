@@ -24,10 +24,10 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from models.identify.ocvtest import identify_ocv_test  # noqa: E402
-from models.identify.pipeline import identify  # noqa: E402
-from models.identify.pulse import identify_pulse_test  # noqa: E402
-from models.loaders import load_recording  # noqa: E402
+from socfuse.models.identify.ocvtest import identify_ocv_test  # noqa: E402
+from socfuse.models.identify.pipeline import identify  # noqa: E402
+from socfuse.models.identify.pulse import identify_pulse_test  # noqa: E402
+from socfuse.models.loaders import load_recording  # noqa: E402
 
 TARGET_S = 5.0
 

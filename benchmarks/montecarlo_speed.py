@@ -6,7 +6,7 @@ Run from the repository root::
 
 Target: 1,000 runs of one demo day (c48_day_lunch.csv, 7.4 h at 1 Hz, 26 633 samples) through
 the EKF and the coulomb baseline in under 30 s on this machine (two cores).  The filter uses
-the demo cell's truth parameters (models.truth.truth_cell_model at 25 degC: two RC pairs and
+the demo cell's truth parameters (socfuse.estimator.demo.truth.truth_cell_model at 25 degC: two RC pairs and
 hysteresis, so a five-state EKF) with its default settings.  A first small study compiles the
 kernels and is not timed.  The last line is ``runs=<N> seconds=<t> runs_per_s=<N/t>``.
 """
@@ -20,9 +20,9 @@ from pathlib import Path
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from estimator.montecarlo import run_tolerance  # noqa: E402
-from models.loaders import load_recording  # noqa: E402
-from models.truth import truth_cell_model  # noqa: E402
+from socfuse.estimator.analysis.montecarlo import run_tolerance  # noqa: E402
+from socfuse.models.loaders import load_recording  # noqa: E402
+from socfuse.estimator.demo.truth import truth_cell_model  # noqa: E402
 
 
 def main(argv=None) -> int:

@@ -4,7 +4,7 @@ Run from the repository root::
 
     python benchmarks/speed.py [--cells 1000] [--filterpy-steps 20000]
 
-Recordings: one hour at 1 Hz simulated from the demo-cell model (models.truth, 2 RC pairs, no
+Recordings: one hour at 1 Hz simulated from the demo-cell model (socfuse.estimator.demo.truth, 2 RC pairs, no
 hysteresis, temperature tables), and the real 10 Hz Panasonic 18650PF drive cycle
 (Kollmeyer 2018, doi:10.17632/wykht8y7tg.1) when ../shared/realdata is present (read with
 scipy.io.loadmat, struct ``meas``, current sign flipped to + = discharge, duplicate times
@@ -26,11 +26,11 @@ import numpy as np
 REPO = Path(__file__).resolve().parents[1]
 sys.path.insert(0, str(REPO))
 
-from estimator.ekf import _arrays, _prior, initial_soc, run_ekf, run_ekf_batch, setup  # noqa: E402
-from estimator import kernels as K  # noqa: E402
-from estimator.settings import default_settings  # noqa: E402
-from models import Recording, simulate  # noqa: E402
-from models.truth import truth_cell_model  # noqa: E402
+from socfuse.estimator.filters.ekf import _arrays, _prior, initial_soc, run_ekf, run_ekf_batch, setup  # noqa: E402
+from socfuse.estimator.filters import kernels as K  # noqa: E402
+from socfuse.estimator.filters.settings import default_settings  # noqa: E402
+from socfuse.models import Recording, simulate  # noqa: E402
+from socfuse.estimator.demo.truth import truth_cell_model  # noqa: E402
 
 # Single-stream figures use the process CPU clock (immune to being descheduled on a shared
 # machine); the batch prints both wall-clock throughput and throughput per CPU-second times the

@@ -16,8 +16,8 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from .recording import Recording, find_rests
-from .thevenin import SECONDS_PER_HOUR
+from socfuse.models.recording import Recording, find_rests
+from socfuse.models.thevenin import SECONDS_PER_HOUR
 
 __all__ = ["RecordingSummary", "summarise", "sign_check", "format_summary"]
 

@@ -44,7 +44,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .recording import Recording, RecordingError
+from socfuse.models.recording import Recording, RecordingError
 
 __all__ = [
     "ColumnMap", "PRESETS", "make_column_map", "load_recording", "read_table", "RawTable",

@@ -28,10 +28,10 @@ from pathlib import Path
 
 import numpy as np
 
-from .fileio import write_text_replacing
-from .ocv import OcvCurve
-from .tables import ParamTable
-from .thevenin import CellModel, Hysteresis, RcPair
+from socfuse.models.fileio import write_text_replacing
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.tables import ParamTable
+from socfuse.models.thevenin import CellModel, Hysteresis, RcPair
 
 __all__ = ["MODEL_SCHEMA", "ModelFileError", "model_to_dict", "model_from_dict", "save_model", "load_model"]
 

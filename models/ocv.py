@@ -14,7 +14,7 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from .tables import as_axis, clamp_weights
+from socfuse.models.tables import as_axis, clamp_weights
 
 __all__ = ["OcvCurve"]
 

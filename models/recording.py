@@ -6,7 +6,7 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .thevenin import SECONDS_PER_HOUR
+from socfuse.models.thevenin import SECONDS_PER_HOUR
 
 __all__ = ["Recording", "RecordingError", "charge_throughput_ah", "find_rests"]
 

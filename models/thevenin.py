@@ -27,8 +27,8 @@ from typing import Any, Mapping
 
 import numpy as np
 
-from .ocv import OcvCurve
-from .tables import ParamTable
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.tables import ParamTable
 
 __all__ = [
     "RcPair", "Hysteresis", "CellModel", "Simulation", "discretise_rc", "interval_current",

@@ -28,12 +28,12 @@ DATA = REPO / "datasets"
 import numpy as np
 import matplotlib
 import matplotlib.pyplot as plt
-from estimator.cli import SAFETY_NOTE
+from socfuse.estimator.cli.main import SAFETY_NOTE
 %matplotlib inline'''
 
 IDENTIFY = '''\
-from models.loaders import load_recording
-from models.identify.pipeline import identify
+from socfuse.models.loaders import load_recording
+from socfuse.models.identify.pipeline import identify
 
 c20 = load_recording(DATA / "c48_c20_25degC.csv")
 pulses = [load_recording(DATA / "c48_pulse_25degC.csv"), load_recording(DATA / "c48_pulse_05degC.csv")]
@@ -62,8 +62,8 @@ print(f"R0 at 50 % SOC, 25 degC: {1000 * float(model.r0_ohm.at(0.5, 25.0)):.1f} 
     new_markdown_cell("## A delivery day: EKF beside coulomb counting\n\n"
                       "Neither estimator is told the starting SOC: both take it from the first voltage sample."),
     new_code_cell('''\
-from estimator.run import estimate
-from estimator.metrics import trace_metrics
+from socfuse.estimator.filters.run import estimate
+from socfuse.estimator.analysis.metrics import trace_metrics
 
 day = load_recording(DATA / "c48_day_lunch.csv")
 traces = {m: estimate(model, day, m) for m in ("ekf", "coulomb")}
@@ -96,7 +96,7 @@ NB2 = [
     new_code_cell(SETUP),
     new_code_cell(IDENTIFY),
     new_code_cell('''\
-from estimator.energy import energy_table, soc_c_to_e, soc_e_to_c, usable_energy, parse_pack
+from socfuse.estimator.filters.energy import energy_table, soc_c_to_e, soc_e_to_c, usable_energy, parse_pack
 
 table = energy_table(model)
 z = np.linspace(0, 1, 11)
@@ -125,7 +125,7 @@ for p_w in (100, 300, 600, 1000, 1500):
     new_markdown_cell("## Remaining energy along a delivery day\n\nThe estimate trace carries `soc_e` and the "
                       "rest energy left per cell; multiply by the cell count for the pack."),
     new_code_cell('''\
-from estimator.run import estimate
+from socfuse.estimator.filters.run import estimate
 
 day = load_recording(DATA / "c48_day_long.csv")
 tr = estimate(model, day, "ekf")

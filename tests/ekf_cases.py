@@ -3,7 +3,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from models import CellModel, Hysteresis, OcvCurve, ParamTable, RcPair, Recording, simulate
+from socfuse.models import CellModel, Hysteresis, OcvCurve, ParamTable, RcPair, Recording, simulate
 
 
 def tiny_model(n_rc: int = 1, hysteresis: bool = False, temperature: bool = False, eta: float = 0.99,

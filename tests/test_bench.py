@@ -10,9 +10,9 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from estimator.bench import format_summary, run_bench, summary_columns, write_summary_csv
-from models.loaders import load_recording
-from models.truth import truth_cell_model
+from socfuse.estimator.analysis.bench import format_summary, run_bench, summary_columns, write_summary_csv
+from socfuse.models.loaders import load_recording
+from socfuse.estimator.demo.truth import truth_cell_model
 
 DESIGN_COLUMNS = ["recording", "scenario", "method", "rmse_pct", "max_abs_pct", "final_abs_pct", "converge_s"]
 
@@ -86,8 +86,8 @@ def test_bad_input(small):
 
 
 def test_bench_command(repo, tmp_path, capsys):
-    from estimator.cli import SAFETY_NOTE, main
-    from models.modelfile import save_model
+    from socfuse.estimator.cli.main import SAFETY_NOTE, main
+    from socfuse.models.modelfile import save_model
 
     rec = load_recording(repo / "datasets" / "c48_day_lunch.csv").slice(0, 1200)
     rec.to_csv(tmp_path / "day.csv")
@@ -110,7 +110,7 @@ def test_bench_command(repo, tmp_path, capsys):
 
 
 def test_progress_is_quiet_off_a_terminal(monkeypatch):
-    from estimator.progress import show_progress
+    from socfuse.estimator.analysis.progress import show_progress
 
     monkeypatch.delenv("SOCFUSE_PROGRESS", raising=False)
     assert show_progress(quiet=True) is False

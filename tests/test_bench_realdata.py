@@ -23,8 +23,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models.loaders import load_recording
-from models.recording import Recording
+from socfuse.models.loaders import load_recording
+from socfuse.models.recording import Recording
 
 PRESET = "panasonic-18650pf"
 CYCLES = {"Cycle_1": "03-18-17_02.17 25degC_Cycle_1_Pan18650PF.mat",
@@ -45,8 +45,8 @@ def to_1hz(rec: Recording, name: str) -> Recording:
 
 @pytest.fixture(scope="module")
 def realcase(realdata):
-    from models.identify.ocvtest import identify_ocv_test
-    from models.identify.pipeline import identify
+    from socfuse.models.identify.ocvtest import identify_ocv_test
+    from socfuse.models.identify.pipeline import identify
 
     c20 = load_recording(realdata / "c20_ocv_and_1c_start_of_tests" / "05-08-17_13.26 C20 OCV Test_C20_25dC.mat",
                          preset=PRESET)
@@ -63,7 +63,7 @@ def realcase(realdata):
 
 @pytest.fixture(scope="module")
 def tuned(realcase):
-    from estimator.tuning import tune
+    from socfuse.estimator.analysis.tuning import tune
 
     model, cycles = realcase
     # innovation-likelihood tuning on Cycle_1 only.  Not the SOC-error objective: the reference here is
@@ -78,7 +78,7 @@ def tuned(realcase):
 
 @pytest.fixture(scope="module")
 def bench(realcase, tuned):
-    from estimator.bench import run_bench
+    from socfuse.estimator.analysis.bench import run_bench
 
     model, cycles = realcase
     settings, _ = tuned

@@ -6,9 +6,9 @@ import pytest
 from scipy.linalg import solve_discrete_are
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator.bound import pcrb_linear, pcrb_soc_sigma, truth_states
-from estimator.ekf import run_ekf
-from estimator.settings import default_settings
+from socfuse.estimator.analysis.bound import pcrb_linear, pcrb_soc_sigma, truth_states
+from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters.settings import default_settings
 
 
 def _posterior_from_prior(p_pred, h, r):

@@ -12,11 +12,11 @@ import numpy as np
 import pytest
 from scipy.integrate import cumulative_trapezoid
 
-from estimator.cli import SAFETY_NOTE, main
-from estimator.cli_common import add_mapping_options, load_from_args, mapping_from_args
-from models.checks import format_summary, sign_check, summarise
-from models.loaders import load_recording
-from models.recording import Recording
+from socfuse.estimator.cli.main import SAFETY_NOTE, main
+from socfuse.estimator.cli.common import add_mapping_options, load_from_args, mapping_from_args
+from socfuse.models.checks import format_summary, sign_check, summarise
+from socfuse.models.loaders import load_recording
+from socfuse.models.recording import Recording
 
 R0_OHM = 0.05
 

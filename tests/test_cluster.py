@@ -10,9 +10,9 @@ import pytest
 
 pytest.importorskip("distributed")
 
-from estimator.bench import run_bench  # noqa: E402
-from models.loaders import load_recording  # noqa: E402
-from models.truth import truth_cell_model  # noqa: E402
+from socfuse.estimator.analysis.bench import run_bench  # noqa: E402
+from socfuse.models.loaders import load_recording  # noqa: E402
+from socfuse.estimator.demo.truth import truth_cell_model  # noqa: E402
 
 
 def test_two_worker_local_cluster_equals_serial(repo):

@@ -8,7 +8,7 @@ import pytest
 from filterpy.kalman import KalmanFilter
 from scipy import stats
 
-from estimator.consistency import (ConsistencyError, chi2_band, innovation_autocorrelation, nees_ensemble,
+from socfuse.estimator.analysis.consistency import (ConsistencyError, chi2_band, innovation_autocorrelation, nees_ensemble,
                                    nees_soc, nis_summary, nis_test, pooled_nis)
 
 

@@ -6,9 +6,9 @@ import pytest
 from scipy.integrate import cumulative_trapezoid
 
 from ekf_cases import drive_profile, tiny_model
-from estimator.coulomb import run_coulomb
-from estimator.settings import default_settings
-from models import Recording, find_rests, simulate
+from socfuse.estimator.filters.coulomb import run_coulomb
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.models import Recording, find_rests, simulate
 
 
 def test_without_rests_equals_cumulative_trapezoid():

@@ -15,8 +15,8 @@ from contextlib import redirect_stdout
 import pandas as pd
 import pytest
 
-from estimator.cli import SAFETY_NOTE, main
-from estimator.demo import DEMO_MARKER, DemoError, demo_data_dir, run_demo
+from socfuse.estimator.cli.main import SAFETY_NOTE, main
+from socfuse.estimator.demo.workflow import DEMO_MARKER, DemoError, demo_data_dir, run_demo
 
 
 @pytest.fixture(scope="module")
@@ -36,7 +36,7 @@ def test_demo_writes_the_contract_files(demo):
         assert (out / name).is_file() and (out / name).stat().st_size > 0, name
     assert json.loads((out / "model.json").read_text())["schema"] == "socfuse.cell-model/1"
     assert json.loads((out / "filter.json").read_text())["schema"] == "socfuse.filter/1"
-    if importlib.util.find_spec("estimator.export_c") is not None:
+    if importlib.util.find_spec("socfuse.estimator.outputs.export_c") is not None:
         assert (out / "c").is_dir() and any((out / "c").iterdir())
     assert "RMSE %" in text and SAFETY_NOTE in text
     assert (out / DEMO_MARKER).is_file()
@@ -65,14 +65,15 @@ def test_demo_data_found_in_a_checkout(repo):
 
 
 def test_installed_data_folder_is_found(tmp_path, monkeypatch):
-    # the installed data folder has no __init__.py: a namespace package (PEP 420)
+    # the installed data folder socfuse/datasets has no __init__.py: a namespace package (PEP 420)
     import importlib
     import sys
 
-    from estimator.demo import _package_data_dirs
+    import socfuse
+    from socfuse.estimator.demo.workflow import _package_data_dirs
 
-    (tmp_path / "socfuse_demo_data").mkdir()
-    monkeypatch.syspath_prepend(str(tmp_path))
-    monkeypatch.delitem(sys.modules, "socfuse_demo_data", raising=False)
+    (tmp_path / "datasets").mkdir()
+    monkeypatch.setattr(socfuse, "__path__", [str(tmp_path)])
+    monkeypatch.delitem(sys.modules, "socfuse.datasets", raising=False)
     importlib.invalidate_caches()
-    assert tmp_path / "socfuse_demo_data" in _package_data_dirs()
+    assert tmp_path / "datasets" in _package_data_dirs()

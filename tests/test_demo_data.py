@@ -8,8 +8,8 @@ import pandas as pd
 import pytest
 from scipy.integrate import trapezoid
 
-from models import find_rests
-from models.truth import C48_TRUTH, DEMO_FILES, DEMO_SEED, generate_demo_data
+from socfuse.models import find_rests
+from socfuse.estimator.demo.truth import C48_TRUTH, DEMO_FILES, DEMO_SEED, generate_demo_data
 
 CANONICAL = ["time_s", "current_a", "voltage_v", "temperature_c", "soc_ref"]  # DESIGN.md section 3
 

@@ -8,9 +8,9 @@ from scipy.linalg import solve_discrete_are
 from scipy.stats import chi2
 
 from ekf_cases import drive_profile, simulated_recording, tiny_model
-from estimator.ekf import run_ekf, run_ekf_store, setup
-from estimator.settings import default_settings
-from models import Recording, simulate
+from socfuse.estimator.filters.ekf import run_ekf, run_ekf_store, setup
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.models import Recording, simulate
 
 CAP_AS = 4.8 * 3600.0
 TAUS = (30.0, 400.0)

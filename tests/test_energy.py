@@ -10,13 +10,13 @@ from hypothesis import strategies as st
 from scipy.integrate import quad
 from scipy.optimize import brentq
 
-from estimator.cli import SAFETY_NOTE, main
-from estimator.energy import (EnergyError, EnergyTable, PackConfig, energy_table, parse_pack,
+from socfuse.estimator.cli.main import SAFETY_NOTE, main
+from socfuse.estimator.filters.energy import (EnergyError, EnergyTable, PackConfig, energy_table, parse_pack,
                               remaining_energy_wh, rest_energy_wh, soc_c_to_e, soc_e_to_c, usable_energy)
-from models.modelfile import save_model
-from models.ocv import OcvCurve
-from models.tables import ParamTable
-from models.thevenin import CellModel, RcPair
+from socfuse.models.modelfile import save_model
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.tables import ParamTable
+from socfuse.models.thevenin import CellModel, RcPair
 
 # An NMC-type curve from 4.2 V full to 2.5 V empty; invented shape for demo cell C48.
 NMC_SOC = np.linspace(0.0, 1.0, 11)

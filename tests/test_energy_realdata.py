@@ -8,9 +8,9 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from estimator.energy import remaining_energy_wh, usable_energy
-from models.identify.pipeline import identify
-from models.loaders import load_recording
+from socfuse.estimator.filters.energy import remaining_energy_wh, usable_energy
+from socfuse.models.identify.pipeline import identify
+from socfuse.models.loaders import load_recording
 
 C20 = "c20_ocv_and_1c_start_of_tests/05-08-17_13.26 C20 OCV Test_C20_25dC.mat"
 HPPC = "hppc/03-11-17_08.47 25degC_5Pulse_HPPC_Pan18650PF.mat"

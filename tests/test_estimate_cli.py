@@ -8,10 +8,10 @@ import pandas as pd
 import pytest
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator.cli import SAFETY_NOTE, main
-from estimator.run import estimate
-from estimator.settings import default_settings, save_settings
-from models import CellModel, OcvCurve, ParamTable, RcPair, save_model
+from socfuse.estimator.cli.main import SAFETY_NOTE, main
+from socfuse.estimator.filters.run import estimate
+from socfuse.estimator.filters.settings import default_settings, save_settings
+from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, save_model
 
 DRIVE = "drive_cycles/03-18-17_02.17 25degC_Cycle_1_Pan18650PF.mat"
 
@@ -62,7 +62,7 @@ def test_summary_without_output_and_bad_input(files, capsys):
 
 
 def test_real_drive_cycle_runs(realdata, tmp_path):
-    from models.loaders import load_recording
+    from socfuse.models.loaders import load_recording
 
     rec = load_recording(realdata / DRIVE, preset="panasonic-18650pf")
     rec = rec.slice(0, 20000)

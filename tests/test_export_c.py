@@ -17,15 +17,15 @@ from pathlib import Path
 import numpy as np
 import pytest
 
-from estimator.export_c import (CFLAGS, MARKER_NAME, ExportError, c_float, export_c, find_c_compiler,
+from socfuse.estimator.outputs.export_c import (CFLAGS, MARKER_NAME, ExportError, c_float, export_c, find_c_compiler,
                                 parse_harness_output, safe_text)
-from estimator.settings import default_settings
-from models.loaders import load_recording
-from models.ocv import OcvCurve
-from models.recording import Recording
-from models.tables import ParamTable
-from models.thevenin import CellModel, RcPair
-from models.truth import truth_cell_model
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.models.loaders import load_recording
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.recording import Recording
+from socfuse.models.tables import ParamTable
+from socfuse.models.thevenin import CellModel, RcPair
+from socfuse.estimator.demo.truth import truth_cell_model
 
 CC = find_c_compiler()
 needs_cc = pytest.mark.skipif(CC is None, reason="no C compiler (cc, gcc or clang) on PATH: cannot build the export")
@@ -268,7 +268,7 @@ def test_input_checks_health_fallback_and_recovery(tmp_path):
 def test_real_data_model_matches_python_reference(tmp_path, realdata):
     # Panasonic 18650PF (Kollmeyer 2018): model identified from the C/20 and HPPC tests, golden
     # vectors = drive cycle Cycle_2 at 1 Hz (every tenth row, current averaged over the ten rows)
-    from models.identify import identify
+    from socfuse.models.identify import identify
 
     preset = "panasonic-18650pf"
     c20 = load_recording(realdata / "c20_ocv_and_1c_start_of_tests" / "05-08-17_13.26 C20 OCV Test_C20_25dC.mat",

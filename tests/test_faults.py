@@ -10,12 +10,12 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from estimator.faults import (DEFAULT_SCENARIOS, Case, FaultError, apply_scenario, fault_help,
+from socfuse.estimator.analysis.faults import (DEFAULT_SCENARIOS, Case, FaultError, apply_scenario, fault_help,
                               parse_scenarios, scenario_from_spec)
-from models.ocv import OcvCurve
-from models.recording import Recording
-from models.tables import ParamTable
-from models.thevenin import CellModel, RcPair
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.recording import Recording
+from socfuse.models.tables import ParamTable
+from socfuse.models.thevenin import CellModel, RcPair
 
 
 def _model(capacity_ah=4.8):

@@ -4,7 +4,7 @@ import os
 
 import pytest
 
-from models.fileio import replacing, write_text_replacing
+from socfuse.models.fileio import replacing, write_text_replacing
 
 
 def test_replaces_whole_file_and_leaves_no_temporary(tmp_path):

@@ -5,10 +5,10 @@ import numpy as np
 from hypothesis import given, settings, strategies as st
 
 from ekf_cases import tiny_model
-from estimator.coulomb import run_coulomb
-from estimator.ekf import run_ekf
-from estimator.settings import default_settings
-from models import Recording, simulate
+from socfuse.estimator.filters.coulomb import run_coulomb
+from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.models import Recording, simulate
 
 MODELS = {"rc1": tiny_model(n_rc=1), "rc2_hyst": tiny_model(n_rc=2, hysteresis=True),
           "temp": tiny_model(n_rc=1, temperature=True)}

@@ -7,9 +7,9 @@ own SOC (models.simulate), a closed-form truth for this check.
 """
 import numpy as np
 
-from estimator.ekf import run_ekf
-from estimator.settings import default_settings
-from estimator.ukf import run_ukf
+from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.estimator.filters.ukf import run_ukf
 from tests.ekf_cases import simulated_recording, tiny_model
 
 
@@ -48,8 +48,8 @@ def test_soc_limit_projection_keeps_the_rc_states_bounded_on_real_data(realdata)
     within 2 minutes at 10 Hz); with the estimate projection of the SOC limit (Simon, IET Control
     Theory Appl. 4, 2010, from memory) they stay physical.  Bound: an RC voltage of an 18650 cell
     stays well below 1 V (common practice, no source)."""
-    from models.identify.pipeline import identify
-    from models.loaders import load_recording
+    from socfuse.models.identify.pipeline import identify
+    from socfuse.models.loaders import load_recording
 
     c20 = load_recording(realdata / "c20_ocv_and_1c_start_of_tests" / "05-08-17_13.26 C20 OCV Test_C20_25dC.mat",
                          preset="panasonic-18650pf")

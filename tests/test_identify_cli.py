@@ -6,9 +6,9 @@ import json
 import numpy as np
 import pytest
 
-from estimator.cli import SAFETY_NOTE, main
-from models import CellModel, OcvCurve, ParamTable, RcPair, Recording, load_model, simulate
-from models.identify.synthetic import hppc_profile, low_rate_profile
+from socfuse.estimator.cli.main import SAFETY_NOTE, main
+from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, load_model, simulate
+from socfuse.models.identify.synthetic import hppc_profile, low_rate_profile
 
 SOC = np.linspace(0.0, 1.0, 11)
 OCV = OcvCurve(SOC, 3.0 + 1.2 * SOC - 0.3 * np.sin(np.pi * SOC) + 0.15 * SOC ** 3)  # invented

@@ -10,12 +10,12 @@ import json
 import numpy as np
 import pytest
 
-from models.identify.pipeline import identify
-from models.identify.refine import refine_model
-from models.identify.validate import validate
-from models.loaders import load_recording
-from models.modelfile import load_model, save_model
-from models.truth import C48_TRUTH, truth_cell_model
+from socfuse.models.identify.pipeline import identify
+from socfuse.models.identify.refine import refine_model
+from socfuse.models.identify.validate import validate
+from socfuse.models.loaders import load_recording
+from socfuse.models.modelfile import load_model, save_model
+from socfuse.estimator.demo.truth import C48_TRUTH, truth_cell_model
 
 
 @pytest.fixture(scope="module")
@@ -32,7 +32,7 @@ def demo(repo):
 def test_capacity_and_ocv_round_trip(demo):
     _, res = demo
     m = res.model
-    # invented truth: 4.8 Ah at 25 degC (models.truth.C48_TRUTH); within 0.5 %
+    # invented truth: 4.8 Ah at 25 degC (socfuse.estimator.demo.truth.C48_TRUTH); within 0.5 %
     assert m.capacity_ah == pytest.approx(C48_TRUTH.capacity_ah, rel=0.005)
     assert m.coulombic_efficiency == pytest.approx(C48_TRUTH.coulombic_efficiency, abs=1e-3)
     truth = truth_cell_model(25.0)
@@ -84,7 +84,7 @@ def test_validation_and_refinement_on_delivery_days(demo):
 
 
 def test_the_estimator_accepts_the_model(demo):
-    run = pytest.importorskip("estimator.run")
+    run = pytest.importorskip("socfuse.estimator.filters.run")
     d, res = demo
     rec = load_recording(d / "c48_day_lunch.csv")
     tr = run.estimate(res.model, rec.slice(0, 3000), method="ekf")

@@ -6,10 +6,10 @@ import pytest
 from scipy.interpolate import PchipInterpolator
 from scipy.optimize import lsq_linear
 
-from models import CellModel, Hysteresis, OcvCurve, ParamTable, RcPair, Recording, simulate
-from models.identify.curves import greedy_breakpoints, isotonic_increasing
-from models.identify.ocvtest import find_steps, identify_ocv_test
-from models.identify.synthetic import low_rate_profile
+from socfuse.models import CellModel, Hysteresis, OcvCurve, ParamTable, RcPair, Recording, simulate
+from socfuse.models.identify.curves import greedy_breakpoints, isotonic_increasing
+from socfuse.models.identify.ocvtest import find_steps, identify_ocv_test
+from socfuse.models.identify.synthetic import low_rate_profile
 
 SOC = np.linspace(0.0, 1.0, 21)
 OCV = OcvCurve(SOC, 3.0 + 1.2 * SOC - 0.3 * np.sin(np.pi * SOC) + 0.15 * SOC ** 3)  # invented, monotone

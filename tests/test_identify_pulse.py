@@ -4,13 +4,13 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
-from models.identify.fastsim import simulate_fast, unit_rc_response
-from models.identify.pulse import (
+from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
+from socfuse.models.identify.fastsim import simulate_fast, unit_rc_response
+from socfuse.models.identify.pulse import (
     choose_rc_pairs, detect_pulses, discharge_power_w, fit_relaxation, identify_pulse_test, pulse_power_table,
     pulse_resistance, pulse_tables, rc_from_rectangular_pulse, regen_power_w,
 )
-from models.identify.synthetic import hppc_profile
+from socfuse.models.identify.synthetic import hppc_profile
 
 SOC = np.linspace(0.0, 1.0, 11)
 OCV = OcvCurve(SOC, 3.0 + 1.2 * SOC - 0.3 * np.sin(np.pi * SOC) + 0.15 * SOC ** 3)  # invented, monotone

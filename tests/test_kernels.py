@@ -10,13 +10,13 @@ import numpy as np
 import pytest
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator import kernels as K
-from estimator.coulomb import run_coulomb
-from estimator.ekf import run_ekf, run_ekf_batch, setup
-from estimator.run import estimate
-from estimator.settings import (FilterSettings, SettingsError, default_settings, load_settings,
+from socfuse.estimator.filters import kernels as K
+from socfuse.estimator.filters.coulomb import run_coulomb
+from socfuse.estimator.filters.ekf import run_ekf, run_ekf_batch, setup
+from socfuse.estimator.filters.run import estimate
+from socfuse.estimator.filters.settings import (FilterSettings, SettingsError, default_settings, load_settings,
                                 save_settings)
-from estimator.tables import KernelTables
+from socfuse.estimator.filters.tables import KernelTables
 
 
 def test_settings_round_trip_and_unknown_keys(tmp_path):
@@ -102,11 +102,11 @@ def test_pure_python_equals_compiled(tmp_path):
 import sys, numpy as np
 sys.path[:0] = [{os.getcwd()!r}, {os.path.dirname(__file__)!r}]
 from ekf_cases import simulated_recording, tiny_model
-from estimator.ekf import run_ekf
-from estimator.coulomb import run_coulomb
+from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters.coulomb import run_coulomb
 m = tiny_model(n_rc=1)
 rec, _ = simulated_recording(m, n=150, uneven=True)
-from estimator.settings import default_settings
+from socfuse.estimator.filters.settings import default_settings
 tr = run_ekf(m, rec)
 cc = run_coulomb(m, rec, default_settings(m).with_(rest_current_a=3.0, rest_min_s=5.0), soc0=0.7)
 ref = np.load({str(tmp_path / 'ref.npy')!r})

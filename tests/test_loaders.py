@@ -15,8 +15,8 @@ import numpy as np
 import pytest
 import scipy.io as sio
 
-from models.loaders import ColumnMap, load_recording, make_column_map
-from models.recording import RecordingError
+from socfuse.models.loaders import ColumnMap, load_recording, make_column_map
+from socfuse.models.recording import RecordingError
 
 CANON = "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n2,-0.5,3.80\n"
 

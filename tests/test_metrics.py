@@ -8,7 +8,7 @@ import numpy as np
 import pytest
 from scipy import stats
 
-from estimator.metrics import converge_time_s, error_metrics, trace_metrics
+from socfuse.estimator.analysis.metrics import converge_time_s, error_metrics, trace_metrics
 
 T = np.array([0.0, 10.0, 20.0, 30.0, 40.0])
 SOC = np.array([0.50, 0.515, 0.49, 0.505, 0.51])

@@ -5,9 +5,9 @@ import numpy as np
 import pytest
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator.montecarlo import (MonteCarloError, Tolerances, run_tolerance, sweep, tolerance_figure,
+from socfuse.estimator.analysis.montecarlo import (MonteCarloError, Tolerances, run_tolerance, sweep, tolerance_figure,
                                   tolerance_study)
-from estimator.settings import default_settings
+from socfuse.estimator.filters.settings import default_settings
 
 
 @pytest.fixture(scope="module")

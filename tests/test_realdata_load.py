@@ -11,10 +11,10 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from estimator.cli import main
-from models.checks import summarise
-from models.loaders import load_recording
-from models.recording import charge_throughput_ah
+from socfuse.estimator.cli.main import main
+from socfuse.models.checks import summarise
+from socfuse.models.loaders import load_recording
+from socfuse.models.recording import charge_throughput_ah
 
 C20 = "c20_ocv_and_1c_start_of_tests/05-08-17_13.26 C20 OCV Test_C20_25dC.mat"
 CYCLE1 = "drive_cycles/03-18-17_02.17 25degC_Cycle_1_Pan18650PF.mat"

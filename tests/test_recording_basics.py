@@ -5,8 +5,8 @@ import numpy as np
 import pytest
 from scipy.integrate import cumulative_trapezoid
 
-from models.recording import Recording, RecordingError, charge_throughput_ah, find_rests
-from models.thevenin import SECONDS_PER_HOUR
+from socfuse.models.recording import Recording, RecordingError, charge_throughput_ah, find_rests
+from socfuse.models.thevenin import SECONDS_PER_HOUR
 
 
 def test_charge_throughput_matches_scipy_cumulative_trapezoid():

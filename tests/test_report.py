@@ -11,11 +11,11 @@ import re
 import pandas as pd
 import pytest
 
-from estimator.bench import run_bench
-from estimator.cli import SAFETY_NOTE
-from estimator.report import ReportSection, write_report
-from models.loaders import load_recording
-from models.truth import truth_cell_model
+from socfuse.estimator.analysis.bench import run_bench
+from socfuse.estimator.cli.main import SAFETY_NOTE
+from socfuse.estimator.outputs.report import ReportSection, write_report
+from socfuse.models.loaders import load_recording
+from socfuse.estimator.demo.truth import truth_cell_model
 
 PNG_MAGIC = b"\x89PNG\r\n\x1a\n"
 

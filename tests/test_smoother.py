@@ -5,10 +5,10 @@ import numpy as np
 from filterpy.kalman import KalmanFilter
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator.ekf import run_ekf_store
-from estimator.settings import default_settings
-from estimator.smoother import rts_pass, rts_smooth
-from models import Recording, simulate
+from socfuse.estimator.filters.ekf import run_ekf_store
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.estimator.filters.smoother import rts_pass, rts_smooth
+from socfuse.models import Recording, simulate
 
 
 def test_rts_pass_matches_filterpy_on_a_rest():

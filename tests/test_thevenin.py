@@ -15,10 +15,10 @@ import pytest
 from scipy.integrate import solve_ivp
 from scipy.signal import cont2discrete
 
-import models
-from models import (CellModel, Hysteresis, ModelFileError, OcvCurve, ParamTable, RcPair, discretise_rc,
+import socfuse.models as models
+from socfuse.models import (CellModel, Hysteresis, ModelFileError, OcvCurve, ParamTable, RcPair, discretise_rc,
                     load_model, model_from_dict, model_to_dict, save_model, simulate)
-from models.truth import truth_cell_model
+from socfuse.estimator.demo.truth import truth_cell_model
 
 OCV_SOC = np.array([0.0, 0.1, 0.3, 0.5, 0.7, 0.9, 1.0])
 OCV_V = np.array([3.00, 3.45, 3.62, 3.70, 3.84, 4.03, 4.18])

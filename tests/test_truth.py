@@ -1,4 +1,4 @@
-"""Tests of the truth simulator behind the demo data (models.truth)."""
+"""Tests of the truth simulator behind the demo data (socfuse.estimator.demo.truth)."""
 from __future__ import annotations
 
 from dataclasses import replace
@@ -6,8 +6,8 @@ from dataclasses import replace
 import numpy as np
 import pytest
 
-import models
-from models.truth import (C48_TRUTH, FLEET_SENSORS, SensorErrors, arrhenius_factor, c20_test_profile,
+import socfuse.models as models
+from socfuse.estimator.demo.truth import (C48_TRUTH, FLEET_SENSORS, SensorErrors, arrhenius_factor, c20_test_profile,
                           pulse_test_profile, simulate_profile, simulate_truth, truth_cell_model)
 
 ONE_RC = replace(C48_TRUTH, r2_ohm=(), tau2_s=(), hysteresis_max_v=0.0)

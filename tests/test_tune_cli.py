@@ -6,9 +6,9 @@ import json
 import pytest
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator.cli import SAFETY_NOTE, main
-from estimator.settings import FILTER_SCHEMA, load_settings
-from models.modelfile import save_model
+from socfuse.estimator.cli.main import SAFETY_NOTE, main
+from socfuse.estimator.filters.settings import FILTER_SCHEMA, load_settings
+from socfuse.models.modelfile import save_model
 
 
 @pytest.fixture(scope="module")

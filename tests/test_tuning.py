@@ -6,9 +6,9 @@ import pytest
 from scipy import stats
 
 from ekf_cases import drive_profile
-from estimator.settings import default_settings
-from estimator.tuning import TuningError, innovation_nll, tune
-from models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
+from socfuse.estimator.filters.settings import default_settings
+from socfuse.estimator.analysis.tuning import TuningError, innovation_nll, tune
+from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
 
 SIGMA_V = 0.005  # true voltage-sensor noise, V
 SIGMA_I = 0.2    # true current-sensor noise, A
@@ -107,7 +107,7 @@ def test_autocovariance_least_squares_recovers_linear_noise():
     # fixed-gain filter; reference gain from scipy.linalg.solve_discrete_are for wrong guesses
     from scipy.linalg import solve_discrete_are
 
-    from estimator.tuning import als_noise, fixed_gain_innovations
+    from socfuse.estimator.analysis.tuning import als_noise, fixed_gain_innovations
 
     A = np.array([[1.0, 0.0], [0.0, 0.9]])
     C = np.array([1.0, -1.0])

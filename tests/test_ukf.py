@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 
 from ekf_cases import simulated_recording, tiny_model
-from estimator.run import estimate
-from estimator.settings import default_settings
+from socfuse.estimator.filters.run import estimate
+from socfuse.estimator.filters.settings import default_settings
 
 
 def test_ukf_agrees_with_ekf_on_mild_nonlinearity():

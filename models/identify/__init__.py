@@ -7,6 +7,6 @@ resistance and power table), :mod:`.ocvsource` (OCV from several sources), :mod:
 (regularised least squares on a dynamic recording), :mod:`.validate` (open-loop voltage error),
 :mod:`.fastsim` (fast simulation that follows the sampling rule), :mod:`.plots` (PNG plots).
 """
-from .pipeline import IdentifyError, IdentifyResult, identify
+from socfuse.models.identify.pipeline import IdentifyError, IdentifyResult, identify
 
 __all__ = ["identify", "IdentifyResult", "IdentifyError"]

@@ -16,7 +16,7 @@ from __future__ import annotations
 import numpy as np
 from scipy.interpolate import PchipInterpolator
 
-from ..ocv import OcvCurve
+from socfuse.models.ocv import OcvCurve
 
 __all__ = ["isotonic_increasing", "greedy_breakpoints", "curve_from_dense", "MIN_STEP_V"]
 

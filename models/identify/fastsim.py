@@ -27,7 +27,7 @@ except ImportError:  # pragma: no cover
             return args[0]
         return lambda f: f
 
-from ..thevenin import SECONDS_PER_HOUR, CellModel, Simulation, interval_current
+from socfuse.models.thevenin import SECONDS_PER_HOUR, CellModel, Simulation, interval_current
 
 __all__ = ["rc_filter", "hysteresis_filter", "soc_trajectory", "simulate_fast", "unit_rc_response"]
 

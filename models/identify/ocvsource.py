@@ -29,7 +29,7 @@ from __future__ import annotations
 
 import numpy as np
 
-from .curves import curve_from_dense, isotonic_increasing, MIN_STEP_V
+from socfuse.models.identify.curves import curve_from_dense, isotonic_increasing, MIN_STEP_V
 
 __all__ = ["OCV_SOURCES", "rest_clusters", "rest_curve", "anchored_curve", "ocv_candidates"]
 

@@ -27,9 +27,9 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..ocv import OcvCurve
-from ..recording import Recording, RecordingError, charge_throughput_ah
-from .curves import curve_from_dense, isotonic_increasing, MIN_STEP_V
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.recording import Recording, RecordingError, charge_throughput_ah
+from socfuse.models.identify.curves import curve_from_dense, isotonic_increasing, MIN_STEP_V
 
 __all__ = ["Step", "find_steps", "OcvTestResult", "identify_ocv_test", "OcvTestError"]
 

@@ -2,7 +2,7 @@
 
 Python entry point used by the ``identify`` and ``demo`` commands::
 
-    from models.identify.pipeline import identify
+    from socfuse.models.identify.pipeline import identify
     result = identify(ocv_test, [pulse_25c, pulse_05c], ocv_source="auto", validate=[drive])
     save_model(result.model, "model.json")
     print(result.summary())
@@ -13,13 +13,13 @@ from dataclasses import dataclass, field
 
 import numpy as np
 
-from ..recording import Recording
-from ..thevenin import CellModel
-from .ocvsource import OCV_SOURCES, ocv_candidates
-from .ocvtest import OcvTestResult, identify_ocv_test
-from .pulse import choose_rc_pairs, identify_pulse_test, pulse_power_table, pulse_tables
-from .refine import RefineResult, refine_model
-from .validate import validate
+from socfuse.models.recording import Recording
+from socfuse.models.thevenin import CellModel
+from socfuse.models.identify.ocvsource import OCV_SOURCES, ocv_candidates
+from socfuse.models.identify.ocvtest import OcvTestResult, identify_ocv_test
+from socfuse.models.identify.pulse import choose_rc_pairs, identify_pulse_test, pulse_power_table, pulse_tables
+from socfuse.models.identify.refine import RefineResult, refine_model
+from socfuse.models.identify.validate import validate
 
 __all__ = ["IdentifyResult", "identify", "IdentifyError"]
 

@@ -16,7 +16,7 @@ import re
 from pathlib import Path
 
 import numpy as np
-from ..fileio import replacing
+from socfuse.models.fileio import replacing
 
 __all__ = ["save_plots", "plot_ocv", "plot_parameters", "plot_pulse_fits", "plot_validation"]
 
@@ -103,7 +103,7 @@ def plot_parameters(result, path, overwrite: bool = False) -> Path:
 
 def plot_pulse_fits(res, n_rc: int, folder, per_page: int = 12, overwrite: bool = False) -> list:
     """Every pulse of one pulse test: measured pulse + relaxation and the fitted relaxation."""
-    from .pulse import relaxation_curve
+    from socfuse.models.identify.pulse import relaxation_curve
 
     plt = _plt()
     rec = res.recording

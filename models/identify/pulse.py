@@ -53,11 +53,11 @@ from dataclasses import dataclass, field
 import numpy as np
 from scipy.optimize import least_squares
 
-from ..ocv import OcvCurve
-from ..recording import Recording, RecordingError, charge_throughput_ah
-from ..tables import ParamTable
-from ..thevenin import RcPair
-from .fastsim import unit_rc_response
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.recording import Recording, RecordingError, charge_throughput_ah
+from socfuse.models.tables import ParamTable
+from socfuse.models.thevenin import RcPair
+from socfuse.models.identify.fastsim import unit_rc_response
 
 __all__ = [
     "PulseError", "RelaxationFit", "fit_relaxation", "rc_from_rectangular_pulse", "relaxation_curve",

@@ -23,11 +23,11 @@ from dataclasses import dataclass
 import numpy as np
 from scipy.optimize import least_squares
 
-from ..recording import Recording
-from ..tables import ParamTable, clamp_weights
-from ..thevenin import CellModel, RcPair, interval_current
-from .fastsim import njit, rc_filter, simulate_fast, soc_trajectory
-from .validate import initial_soc, recording_temperature
+from socfuse.models.recording import Recording
+from socfuse.models.tables import ParamTable, clamp_weights
+from socfuse.models.thevenin import CellModel, RcPair, interval_current
+from socfuse.models.identify.fastsim import njit, rc_filter, simulate_fast, soc_trajectory
+from socfuse.models.identify.validate import initial_soc, recording_temperature
 
 __all__ = ["RefineResult", "refine_model"]
 

@@ -11,9 +11,9 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ..recording import Recording, RecordingError
-from ..thevenin import CellModel
-from .fastsim import simulate_fast
+from socfuse.models.recording import Recording, RecordingError
+from socfuse.models.thevenin import CellModel
+from socfuse.models.identify.fastsim import simulate_fast
 
 __all__ = ["ValidationResult", "initial_soc", "validate", "recording_temperature"]
 

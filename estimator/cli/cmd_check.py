@@ -1,0 +1,38 @@
+"""``socfuse check FILE [mapping options]``: is this recording usable, and what is in it?"""
+from __future__ import annotations
+
+from socfuse.models.checks import format_summary, summarise
+
+from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
+from socfuse.estimator.cli.common import add_mapping_options, load_from_args
+
+
+def register(sub) -> None:
+    p = sub.add_parser(
+        "check", help="load a recording and print what to know before trusting it",
+        description="Load a recording (CSV, Parquet or MATLAB .mat) with the given mapping and print its "
+                    "duration, sample intervals, net and total Ah, rests, ranges, duplicates dropped, gaps "
+                    "and a sign check. Exit 0 when usable, 2 with a one-line reason when not.",
+        epilog=SAFETY_NOTE)
+    p.add_argument("file", metavar="FILE", help="recording file (.csv, .txt, .tsv, .parquet, .mat)")
+    add_mapping_options(p)
+    p.add_argument("--rest-current-a", type=float, default=0.05, metavar="A",
+                   help="|current| at or below this counts as rest (default 0.05 A)")
+    p.add_argument("--rest-min-s", type=float, default=600.0, metavar="S",
+                   help="shortest rest reported, s (default 600)")
+    p.add_argument("--strict", action="store_true",
+                   help="treat warnings (sign looks inverted, gaps, no current steps) as unusable: exit 2")
+    p.set_defaults(func=run)
+
+
+def run(args) -> int:
+    if args.rest_current_a < 0 or args.rest_min_s < 0:
+        raise CliError("--rest-current-a and --rest-min-s must not be negative")
+    rec = load_from_args(args, args.file)
+    s = summarise(rec, rest_current_a=args.rest_current_a, rest_min_s=args.rest_min_s)
+    print(format_summary(s))
+    print()
+    print(SAFETY_NOTE)
+    if args.strict and s.warnings:
+        raise CliError(f"{args.file}: {s.warnings[0]}")
+    return 0

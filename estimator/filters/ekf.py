@@ -1,0 +1,282 @@
+"""Extended Kalman filter for SOC (Plett, J. Power Sources 134 (2004), parts 1-3) on compiled kernels.
+
+The per-sample loop is :func:`estimator.kernels.ekf_run` (the only copy); this module sets up
+tables, priors and outputs.  State ``[soc, v_rc_1..n, (bias_a), (h)]``: the bias state
+exists when ``settings.estimate_bias``, ``h`` whenever the model has hysteresis (with zero
+variance and noise when ``settings.estimate_hysteresis`` is False).
+
+Initial state: SOC ``soc0`` with sigma ``p0_soc``, or else the OCV inverse of the first
+finite voltage sample corrected by its ``R0 i`` drop, with sigma ``sigma_v / |dOCV/dSOC|``
+where ``sigma_v^2 = voltage_noise^2 + (R0 i)^2 + (sum R_rc i)^2 + M^2`` (the drop itself,
+the possibly unrelaxed RC voltages at that current and the hysteresis magnitude ``M`` are
+all uncertain); the SOC sigma is at least 0.01 and at most 0.5.  RC voltages, bias and
+hysteresis start at 0 with sigmas ``p0_rc_v``, ``p0_bias_a``, ``p0_hyst``.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from socfuse.estimator.filters import kernels as K
+from socfuse.estimator.filters.settings import FilterSettings, default_settings
+from socfuse.estimator.filters.tables import KernelTables
+from socfuse.estimator.filters.trace import Trace, make_trace, state_names
+
+__all__ = ["EkfSetup", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
+           "run_ekf_store", "temperature_array"]
+
+
+@dataclass(frozen=True, eq=False)
+class EkfSetup:
+    """Everything the kernels need for one model and settings."""
+
+    tables: KernelTables
+    prm: np.ndarray
+    n_rc: int
+    i_b: int
+    i_h: int
+    est_h: bool
+    n_x: int
+    names: tuple
+    settings: FilterSettings
+
+    def linearise(self, x, i_prev, i_next, dt_s, t_prev=np.nan, t_next=np.nan):
+        """``(x_pred, F, G, Q, H, y_pred)`` of one step; see :func:`estimator.kernels.linearise`."""
+        return K.linearise(self.tables.packed, self.n_rc, self.i_b, self.i_h, self.est_h, self.prm,
+                           np.asarray(x, dtype=float), float(i_prev), float(i_next), float(dt_s),
+                           float(t_prev), float(t_next))
+
+    def transition(self, x, u_a, dt_s, t_c=np.nan):
+        """State after one interval with mean measured current ``u_a`` (A) over ``dt_s`` (s)."""
+        return K.transition(self.tables.packed, self.n_rc, self.i_b, self.i_h, self.prm,
+                            np.asarray(x, dtype=float), float(u_a), float(dt_s), float(t_c))
+
+    def measure(self, x, i_k, t_c=np.nan):
+        """``(y_pred_v, H)`` at state ``x``."""
+        return K.measure(self.tables.packed, self.n_rc, self.i_b, self.i_h, self.prm,
+                         np.asarray(x, dtype=float), float(i_k), float(t_c))
+
+
+_SETUP_CACHE: dict = {}
+
+
+def setup(model, settings: FilterSettings | None = None, tables: KernelTables | None = None) -> EkfSetup:
+    """Build the kernel inputs for ``model`` (a CellModel) and ``settings`` (default: from the model)."""
+    s = default_settings(model) if settings is None else settings
+    key = (id(model), s)
+    hit = _SETUP_CACHE.get(key)
+    if hit is not None and hit[0] is model and tables is None:
+        return hit[1]
+    tab = KernelTables.from_model(model, s.n_soc_grid) if tables is None else tables
+    n_rc = tab.n_rc
+    nx = 1 + n_rc
+    i_b = -1
+    if s.estimate_bias:
+        i_b = nx
+        nx += 1
+    i_h = -1
+    if tab.has_hysteresis:
+        i_h = nx
+        nx += 1
+    prm = np.zeros(K.N_PRM)
+    prm[K.P_VN] = s.voltage_noise_v
+    prm[K.P_IN] = s.current_noise_a
+    prm[K.P_QSOC] = s.q_soc_per_s
+    prm[K.P_QRC] = s.q_rc_v2_per_s
+    prm[K.P_QB] = s.q_bias_a2_per_s
+    prm[K.P_QH] = s.q_hyst_per_s
+    prm[K.P_GATE] = s.gate_sigma
+    prm[K.P_GREL] = s.gate_release_s
+    prm[K.P_SMIN] = s.soc_min
+    prm[K.P_SMAX] = s.soc_max
+    prm[K.P_CAP] = tab.capacity_as
+    prm[K.P_ETA] = tab.eta_charge
+    prm[K.P_HG] = tab.hyst_gamma
+    prm[K.P_HM] = tab.hyst_max_v
+    prm[K.P_TMIN] = tab.t_min
+    prm[K.P_TSTEP] = tab.t_step
+    prm.setflags(write=False)
+    out = EkfSetup(tab, prm, n_rc, i_b, i_h, bool(s.estimate_hysteresis) and tab.has_hysteresis, nx,
+                   state_names(n_rc, i_b >= 0, i_h >= 0), s)
+    if tables is None:
+        if len(_SETUP_CACHE) > 32:
+            _SETUP_CACHE.clear()
+        _SETUP_CACHE[key] = (model, out)
+    return out
+
+
+def temperature_array(rec) -> np.ndarray:
+    """Per-sample temperature (degC) with missing values at 25 degC."""
+    if rec.temperature_c is None:
+        return np.full(rec.n, K.DEFAULT_TEMP_C)
+    t = np.asarray(rec.temperature_c, dtype=float)
+    return np.where(np.isfinite(t), t, K.DEFAULT_TEMP_C)
+
+
+def initial_soc(su: EkfSetup, rec, soc0: float | None = None) -> tuple[float, float]:
+    """Initial SOC and its sigma (see the module docstring for the rule)."""
+    s = su.settings
+    if soc0 is not None:
+        soc0 = float(soc0)
+        if not np.isfinite(soc0):
+            raise ValueError(f"soc0 must be finite, got {soc0}")
+        return soc0, s.p0_soc
+    v = np.asarray(rec.voltage_v, dtype=float)
+    ok = np.flatnonzero(np.isfinite(v))
+    if ok.size == 0:
+        raise ValueError(f"recording {rec.name!r}: no finite voltage sample to start from; give soc0")
+    k = int(ok[0])
+    t = float(temperature_array(rec)[k])
+    i = float(rec.current_a[k])
+    tab = su.tables
+    pk = tab.packed
+    # first guess without the drop, then one refinement with R0 at that SOC
+    z = K.ocv_inverse(pk, v[k], t, tab.t_min, tab.t_step)
+    r0 = K.table_value(pk, 2, z, t, tab.t_min, tab.t_step)
+    z = K.ocv_inverse(pk, v[k] + r0 * i, t, tab.t_min, tab.t_step)
+    r0 = K.table_value(pk, 2, z, t, tab.t_min, tab.t_step)
+    r_rc = sum(K.table_value(pk, 4 + j, z, t, tab.t_min, tab.t_step) for j in range(tab.n_rc))
+    _, slope = K.ocv_lookup(pk, z, t, tab.t_min, tab.t_step)
+    sv2 = s.voltage_noise_v ** 2 + (r0 * i) ** 2 + (r_rc * i) ** 2 + tab.hyst_max_v ** 2
+    sig = float(np.clip(np.sqrt(sv2) / max(abs(slope), 1e-3), 0.01, 0.5))
+    return float(z), sig
+
+
+def _prior(su: EkfSetup, z0: float, sig0: float):
+    s = su.settings
+    x0 = np.zeros(su.n_x)
+    x0[0] = z0
+    p0 = np.zeros((su.n_x, su.n_x))
+    p0[0, 0] = sig0 ** 2
+    for j in range(su.n_rc):
+        p0[1 + j, 1 + j] = s.p0_rc_v ** 2
+    if su.i_b >= 0:
+        p0[su.i_b, su.i_b] = s.p0_bias_a ** 2
+    if su.i_h >= 0:
+        p0[su.i_h, su.i_h] = s.p0_hyst ** 2 if su.est_h else 0.0
+    return x0, p0
+
+
+def prior(su: EkfSetup, z0: float, sig0: float):
+    """Initial state ``x0`` (n_x,) and covariance ``P0`` (n_x, n_x) for SOC ``z0`` with sigma ``sig0``."""
+    return _prior(su, z0, sig0)
+
+
+def recording_arrays(rec):
+    """``(time_s, current_a, voltage_v, temperature_c)`` as contiguous float arrays for the kernels."""
+    return _arrays(rec)
+
+
+def _arrays(rec):
+    return (np.ascontiguousarray(rec.time_s, dtype=float), np.ascontiguousarray(rec.current_a, dtype=float),
+            np.ascontiguousarray(rec.voltage_v, dtype=float), temperature_array(rec))
+
+
+def _run(model, rec, settings, soc0, store):
+    su = setup(model, settings)
+    z0, sig0 = initial_soc(su, rec, soc0)
+    x0, p0 = _prior(su, z0, sig0)
+    n, nx = rec.n, su.n_x
+    x_out = np.empty((n, nx))
+    sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    shape = (n, nx, nx) if store else (1, nx, nx)
+    p_out, pp_out, f_out = np.empty(shape), np.empty(shape), np.empty(shape)
+    t, i, v, tc = _arrays(rec)
+    gated = K.ekf_run(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, x0, p0,
+                      x_out, sig, vp, inn, sv, store, p_out, pp_out, f_out)
+    tr = make_trace(model, rec, "ekf", x_out[:, 0], sig, vp, inn, sv, x_out, gated, (), su.names,
+                    p_out if store else None)
+    return tr, (p_out, pp_out, f_out) if store else None
+
+
+def run_ekf(model, rec, settings: FilterSettings | None = None, soc0: float | None = None,
+            store_covariance: bool = False) -> Trace:
+    """Run the EKF over one recording.
+
+    Parameters
+    ----------
+    model : models.CellModel
+    rec : models.Recording
+    settings : FilterSettings, optional (default :func:`default_settings(model)`)
+    soc0 : float, optional  initial SOC (fraction); else from the OCV at the first sample
+    store_covariance : bool  keep the posterior covariance (N, n_x, n_x) in ``Trace.covariance``
+    """
+    return _run(model, rec, settings, soc0, store_covariance)[0]
+
+
+def run_ekf_store(model, rec, settings=None, soc0=None):
+    """EKF run that also returns ``(P_post, P_prior, F)``, each (N, n_x, n_x), for the smoother."""
+    return _run(model, rec, settings, soc0, True)
+
+
+def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s=None,
+                     capacity_scales=None) -> dict:
+    """The batched EKF (numba ``prange`` over recordings), returning the raw arrays.
+
+    For loops that need only the states and innovations (tuning, Monte Carlo), without building
+    :class:`Trace` objects or the energy SOC.
+
+    Parameters
+    ----------
+    recs : sequence of Recording (lengths may differ)
+    soc0s : None, float or sequence of (float or None), optional  per-recording initial SOC
+    capacity_scales : None or sequence of float, optional
+        Per-recording multiplier of the model capacity the filter assumes (Monte Carlo).
+
+    Returns
+    -------
+    dict with ``offsets`` (M+1,), ``states`` (sum N, n_x), ``soc``, ``soc_sigma``,
+    ``voltage_pred_v``, ``innovation_v``, ``innovation_var_v2`` (all concatenated over the
+    recordings), ``n_gated`` (M,), ``capacity_scales`` (M,) and ``setup``.
+    """
+    recs = list(recs)
+    su = setup(model, settings)
+    m = len(recs)
+    if soc0s is None or np.isscalar(soc0s):
+        soc0s = [soc0s] * m
+    if len(soc0s) != m:
+        raise ValueError(f"{len(soc0s)} soc0 values for {m} recordings")
+    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
+    if scales.shape != (m,) or np.any(~(scales > 0)):
+        raise ValueError("capacity_scales must be one positive number per recording")
+    lens = np.array([r.n for r in recs], dtype=np.int64)
+    offsets = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
+    nx = su.n_x
+    x0s = np.empty((m, nx))
+    p0s = np.empty((m, nx, nx))
+    for r, (rec, z) in enumerate(zip(recs, soc0s)):
+        x0s[r], p0s[r] = _prior(su, *initial_soc(su, rec, z))
+    n = int(offsets[-1])
+    x_out = np.empty((n, nx))
+    sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    gated = np.zeros(m, dtype=np.int64)
+    if m:
+        cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[_arrays(r) for r in recs])]
+        K.ekf_run_batch(offsets, *cat, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, scales,
+                        x0s, p0s, x_out, sig, vp, inn, sv, gated)
+    return {"offsets": offsets, "states": x_out, "soc": x_out[:, 0].copy(), "soc_sigma": sig,
+            "voltage_pred_v": vp, "innovation_v": inn, "innovation_var_v2": sv, "n_gated": gated,
+            "capacity_scales": scales, "setup": su}
+
+
+def run_ekf_batch(model, recs, settings: FilterSettings | None = None, soc0s=None, capacity_scales=None) -> list:
+    """Run the EKF over many recordings of one model in parallel (numba ``prange``).
+
+    Same arguments as :func:`run_ekf_batch_raw`; returns a list of Trace, equal to running
+    :func:`run_ekf` one by one.
+    """
+    recs = list(recs)
+    if not recs:
+        return []
+    raw = run_ekf_batch_raw(model, recs, settings, soc0s, capacity_scales)
+    off, x_out, scales, su = raw["offsets"], raw["states"], raw["capacity_scales"], raw["setup"]
+    sig, vp, inn, sv, gated = (raw[k] for k in ("soc_sigma", "voltage_pred_v", "innovation_v",
+                                                "innovation_var_v2", "n_gated"))
+    out = []
+    for r, rec in enumerate(recs):
+        a, b = off[r], off[r + 1]
+        mdl = model if scales[r] == 1.0 else model.with_(capacity_ah=model.capacity_ah * scales[r])
+        out.append(make_trace(mdl, rec, "ekf", x_out[a:b, 0], sig[a:b], vp[a:b], inn[a:b], sv[a:b], x_out[a:b],
+                              int(gated[r]), (), su.names))
+    return out

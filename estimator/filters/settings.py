@@ -1,0 +1,217 @@
+"""Filter settings (JSON schema ``socfuse.filter/1``) shared by the EKF, UKF and the baseline.
+
+Layout::
+
+    {
+      "schema": "socfuse.filter/1",
+      "voltage_noise_v": 0.01, "current_noise_a": 0.048, ...
+    }
+
+Every field of :class:`FilterSettings` may appear; missing ones take the dataclass default,
+unknown keys are refused (listing the valid ones) so a typo never silently drops a setting.
+:func:`default_settings` derives model-dependent defaults from a cell model.
+"""
+from __future__ import annotations
+
+import json
+import math
+from dataclasses import asdict, dataclass, fields, replace
+from pathlib import Path
+from socfuse.models.fileio import write_text_replacing
+
+__all__ = ["FILTER_SCHEMA", "FilterSettings", "SettingsError", "default_settings", "save_settings",
+           "load_settings", "settings_from_dict", "settings_to_dict"]
+
+FILTER_SCHEMA = "socfuse.filter/1"
+
+
+class SettingsError(ValueError):
+    """A filter-settings file or value that cannot be used; the message names the key."""
+
+
+@dataclass(frozen=True)
+class FilterSettings:
+    """Noise model, initial uncertainty and policies of the estimators.
+
+    Parameters
+    ----------
+    voltage_noise_v : float
+        Sigma of the terminal-voltage measurement (sensor plus model error), V.
+    current_noise_a : float
+        Sigma of white current-sensor noise, A.  Enters the process noise through the input
+        Jacobian ``G``: ``Q_k = G G^T current_noise_a^2 + diag(q_*) dt``.
+    q_soc_per_s : float
+        SOC random-walk density, 1/s (capacity error and slow drift budget).
+    q_rc_v2_per_s : float
+        Random-walk density of each RC-pair voltage, V^2/s.
+    q_bias_a2_per_s : float
+        Random-walk density of the current-sensor bias state, A^2/s.
+    q_hyst_per_s : float
+        Random-walk density of the hysteresis state (dimensionless^2/s).
+    p0_soc : float
+        Sigma of the initial SOC when ``soc0`` is given (fraction).
+    p0_rc_v : float
+        Sigma of each initial RC voltage, V (the filter starts them at 0, a rested cell).
+    p0_bias_a : float
+        Sigma of the initial current-sensor bias, A (starts at 0).
+    p0_hyst : float
+        Sigma of the initial hysteresis state (starts at 0; the state lives in -1..1).
+    estimate_bias : bool
+        Add a current-sensor bias state (measured current = true current + bias).
+    estimate_hysteresis : bool
+        Only used when the model has hysteresis: estimate ``h`` (True) or propagate it
+        deterministically with zero variance (False).
+    gate_sigma : float
+        Innovation gate in standard deviations: a sample with ``|innovation| >
+        gate_sigma * sqrt(S)`` is not used and is counted.  0 switches the gate off.
+    gate_release_s : float
+        Gate release, s: when samples have been gated without a break for this long, the next
+        sample that fails the gate is used anyway (and the run starts again).  A gate is meant
+        to reject outliers; a persistent mismatch (a wrong initial SOC with an optimistic
+        ``p0_soc``, a model error) would otherwise lock the filter out for good.  0 = never.
+    soc_min, soc_max : float
+        Clip policy: after every update (and every baseline step) SOC is clipped to this range.
+        In the filters the clip is an estimate projection (Simon, IET Control Theory Appl. 4,
+        2010; cited from memory): the states correlated with SOC move with it by
+        ``P_i0 / P_00`` times the excess, and the covariance is left as it is.
+    rest_current_a : float
+        Baseline: a sample with ``|current| <= rest_current_a`` is at rest, A.
+    rest_min_s : float
+        Baseline: minimum rest duration before the OCV reseed, s.  Default 3600 s after the
+        US DOE / INL pulse-test practice of resting an hour before an OCV reading.
+    reseed : bool
+        Baseline: reseed SOC from the OCV curve at the end of each qualifying rest.
+    early_reseed_s : float
+        Baseline: when > 0, a rest that lasts at least this long but less than ``rest_min_s``
+        is still used, with the OCV taken as the asymptote of the relaxation extrapolated
+        from the rest's voltage samples (exponential fit over its second half).  0 = off.
+    n_soc_grid : int
+        Resolution of the uniform SOC grid of the kernel tables (points over 0..1).
+    """
+
+    voltage_noise_v: float = 0.01
+    current_noise_a: float = 0.05
+    q_soc_per_s: float = 2.8e-8
+    q_rc_v2_per_s: float = 1e-7
+    q_bias_a2_per_s: float = 1e-8
+    q_hyst_per_s: float = 1e-6
+    p0_soc: float = 0.02
+    p0_rc_v: float = 0.02
+    p0_bias_a: float = 0.05
+    p0_hyst: float = 0.5
+    estimate_bias: bool = False
+    estimate_hysteresis: bool = True
+    gate_sigma: float = 5.0
+    gate_release_s: float = 30.0
+    soc_min: float = 0.0
+    soc_max: float = 1.0
+    rest_current_a: float = 0.1
+    rest_min_s: float = 3600.0
+    reseed: bool = True
+    early_reseed_s: float = 0.0
+    n_soc_grid: int = 401
+
+    def __post_init__(self) -> None:
+        for f in fields(self):
+            v = getattr(self, f.name)
+            if f.type in ("bool", bool):
+                if not isinstance(v, bool):
+                    raise SettingsError(f"filter setting {f.name} must be true or false, got {v!r}")
+                continue
+            if f.name == "n_soc_grid":
+                if isinstance(v, bool) or int(v) != v or not (11 <= int(v) <= 10001):
+                    raise SettingsError(f"filter setting n_soc_grid must be an integer in 11..10001, got {v!r}")
+                object.__setattr__(self, f.name, int(v))
+                continue
+            if isinstance(v, bool) or not isinstance(v, (int, float)) or not math.isfinite(float(v)):
+                raise SettingsError(f"filter setting {f.name} must be a finite number, got {v!r}")
+            object.__setattr__(self, f.name, float(v))
+            if f.name in ("soc_min", "soc_max"):
+                continue
+            if f.name in ("voltage_noise_v",) and v <= 0:
+                raise SettingsError(f"filter setting {f.name} must be > 0, got {v!r}")
+            if v < 0:
+                raise SettingsError(f"filter setting {f.name} must be >= 0, got {v!r}")
+        if not self.soc_min < self.soc_max:
+            raise SettingsError(f"filter settings: soc_min ({self.soc_min}) must be below soc_max ({self.soc_max})")
+
+    def with_(self, **changes) -> "FilterSettings":
+        """Copy with some fields replaced."""
+        bad = sorted(set(changes) - {f.name for f in fields(self)})
+        if bad:
+            raise SettingsError(f"unknown filter setting(s) {', '.join(bad)}; valid: {', '.join(_names())}")
+        return replace(self, **changes)
+
+
+def _names():
+    return [f.name for f in fields(FilterSettings)]
+
+
+def default_settings(model) -> FilterSettings:
+    """Defaults derived from a cell model (all "common practice, no source" unless named).
+
+    With ``C = capacity_ah`` (the 1C current in A):
+
+    - ``voltage_noise_v`` 10 mV: sensor plus equivalent-circuit model error.
+    - ``current_noise_a`` = C/100: a Hall-effect sensor of about 1 % of the 1C current.
+    - ``q_soc_per_s`` = 0.01^2 / 3600: a random walk of 1 % SOC per hour.
+    - ``q_rc_v2_per_s`` = (0.1 R_rc I_1C)^2 / tau: 10 % of the 1C polarisation per time
+      constant, using the largest pair at 50 % SOC, 25 degC (1e-7 V^2/s without RC pairs).
+    - ``q_bias_a2_per_s`` = (C/100)^2 / 3600: bias drifting 1 % of 1C per hour.
+    - ``p0_soc`` 0.02 (a user-given soc0 is trusted to 2 points); ``p0_rc_v`` = the largest
+      1C polarisation ``sum R_rc * C`` (at least 5 mV); ``p0_bias_a`` = C/50; ``p0_hyst`` 0.5.
+    - ``rest_current_a`` = C/50 (quiescent loads below C/50 count as rest);
+      ``rest_min_s`` = 3600 s (US DOE / INL HPPC practice: an hour's rest before an OCV reading).
+    - ``gate_sigma`` 5; SOC clipped to [0, 1]; ``estimate_bias`` off; ``estimate_hysteresis``
+      on when the model has hysteresis.
+    """
+    c = float(model.capacity_ah)
+    q_each = [(0.1 * float(p.r_ohm.at(0.5, 25.0)) * c) ** 2 / float(p.tau_s.at(0.5, 25.0)) for p in model.rc]
+    q_rc = max(q_each) if q_each else 1e-7
+    p_rc = sum(float(p.r_ohm.at(0.5, 25.0)) * c for p in model.rc)
+    return FilterSettings(
+        voltage_noise_v=0.01, current_noise_a=c / 100.0, q_soc_per_s=0.01 ** 2 / 3600.0,
+        q_rc_v2_per_s=q_rc, q_bias_a2_per_s=(c / 100.0) ** 2 / 3600.0, q_hyst_per_s=1e-6,
+        p0_soc=0.02, p0_rc_v=max(p_rc, 0.005), p0_bias_a=c / 50.0, p0_hyst=0.5,
+        estimate_bias=False, estimate_hysteresis=model.hysteresis is not None,
+        gate_sigma=5.0, soc_min=0.0, soc_max=1.0, rest_current_a=c / 50.0, rest_min_s=3600.0,
+        reseed=True, early_reseed_s=0.0, n_soc_grid=401)
+
+
+def settings_to_dict(s: FilterSettings) -> dict:
+    return {"schema": FILTER_SCHEMA, **asdict(s)}
+
+
+def settings_from_dict(d: dict, where: str = "filter settings", base: FilterSettings | None = None) -> FilterSettings:
+    """Build settings from a dict; missing keys come from ``base`` (default: dataclass defaults)."""
+    if not isinstance(d, dict):
+        raise SettingsError(f"{where}: expected a JSON object, got {type(d).__name__}")
+    valid = set(_names()) | {"schema"}
+    unknown = sorted(set(d) - valid)
+    if unknown:
+        raise SettingsError(f"{where}: unknown key(s) {', '.join(map(repr, unknown))}; "
+                            f"valid keys are {', '.join(sorted(valid))}")
+    if d.get("schema") != FILTER_SCHEMA:
+        raise SettingsError(f"{where}: schema is {d.get('schema')!r}, expected {FILTER_SCHEMA!r}")
+    vals = {k: v for k, v in d.items() if k != "schema"}
+    try:
+        return replace(base, **vals) if base is not None else FilterSettings(**vals)
+    except SettingsError as e:
+        raise SettingsError(f"{where}: {e}") from None
+
+
+def save_settings(settings: FilterSettings, path) -> Path:
+    """Write the settings JSON (to a temporary name, then renamed)."""
+    return write_text_replacing(path, json.dumps(settings_to_dict(settings), indent=1) + "\n")
+
+
+def load_settings(path, base: FilterSettings | None = None) -> FilterSettings:
+    """Read and validate a ``socfuse.filter/1`` file; missing keys come from ``base``."""
+    path = Path(path)
+    try:
+        d = json.loads(path.read_text())
+    except FileNotFoundError:
+        raise SettingsError(f"{path}: no such file") from None
+    except json.JSONDecodeError as e:
+        raise SettingsError(f"{path}: not valid JSON (line {e.lineno}, column {e.colno}: {e.msg})") from None
+    return settings_from_dict(d, where=str(path), base=base)

@@ -1,0 +1,90 @@
+"""Sigma-point (unscented) filter on the same model, through filterpy (slower; for comparison).
+
+filterpy's ``UnscentedKalmanFilter`` with ``MerweScaledSigmaPoints`` (van der Merwe 2004;
+Julier and Uhlmann 1997) runs the process model :func:`estimator.kernels.transition` and
+the measurement :func:`estimator.kernels.measure` (the sampling rule, per-step ``dt``), so
+it shares the EKF's model code.  ``Q_k`` is the EKF's ``G G^T sigma_i^2 + diag(q) dt`` at
+the current mean.  NaN voltage = predict only; the same innovation gate and SOC clip as
+the EKF; the initial state comes from :func:`estimator.ekf.initial_soc`.
+"""
+from __future__ import annotations
+
+import numpy as np
+from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
+
+from socfuse.estimator.filters.ekf import _prior, initial_soc, setup, temperature_array
+from socfuse.estimator.filters.settings import FilterSettings
+from socfuse.estimator.filters.trace import Trace, make_trace
+
+__all__ = ["run_ukf", "UKF_ALPHA", "UKF_BETA", "UKF_KAPPA"]
+
+UKF_ALPHA, UKF_BETA, UKF_KAPPA = 1.0, 2.0, 0.0  # spread, Gaussian prior (beta = 2), no extra kappa
+
+
+def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | None = None) -> Trace:
+    """Run the unscented filter over one recording; returns a Trace with ``method="ukf"``."""
+    su = setup(model, settings)
+    s = su.settings
+    nx = su.n_x
+    z0, sig0 = initial_soc(su, rec, soc0)
+    x0, p0 = _prior(su, z0, sig0)
+    if su.i_h >= 0 and not su.est_h:
+        p0[su.i_h, su.i_h] = 1e-12  # the sigma points need a positive-definite P
+    pts = MerweScaledSigmaPoints(nx, alpha=UKF_ALPHA, beta=UKF_BETA, kappa=UKF_KAPPA)
+    t, i, v = rec.time_s, rec.current_a, rec.voltage_v
+    tc = temperature_array(rec)
+
+    def fx(x, dt, u=0.0, t_c=25.0):
+        return su.transition(x, u, dt, t_c)
+
+    def hx(x, i_k=0.0, t_c=25.0):
+        return np.array([su.measure(x, i_k, t_c)[0]])
+
+    ukf = UnscentedKalmanFilter(dim_x=nx, dim_z=1, dt=1.0, hx=hx, fx=fx, points=pts)
+    ukf.x = x0.copy()
+    ukf.P = p0.copy()
+    r = np.array([[s.voltage_noise_v ** 2]])
+    ukf.R = r
+    n = rec.n
+    states = np.empty((n, nx))
+    sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
+    gated = 0
+    run_on, run_s = False, 0.0  # gate release, as in the EKF kernel
+    for k in range(n):
+        if k > 0:
+            dt = float(t[k] - t[k - 1])
+            u = 0.5 * (i[k - 1] + i[k])
+            if run_on:
+                run_s += dt
+            _, _, _, q, _, _ = su.linearise(ukf.x, i[k - 1], i[k], dt, tc[k - 1], tc[k])
+            if su.i_h >= 0 and not su.est_h:
+                q[su.i_h, su.i_h] += 1e-12
+            ukf.Q = q
+            ukf.predict(dt=dt, u=u, t_c=tc[k - 1])
+        else:
+            ukf.sigmas_f = pts.sigma_points(ukf.x, ukf.P)
+        zs = np.array([hx(sp, i[k], tc[k]) for sp in ukf.sigmas_f])
+        zp, smat = unscented_transform(zs, pts.Wm, pts.Wc, r)
+        vp[k] = zp[0]
+        sv[k] = smat[0, 0]
+        if np.isfinite(v[k]):
+            inn[k] = v[k] - zp[0]
+            released = run_on and s.gate_release_s > 0 and run_s >= s.gate_release_s
+            if s.gate_sigma > 0 and abs(inn[k]) > s.gate_sigma * np.sqrt(sv[k]) and not released:
+                gated += 1
+                if not run_on:
+                    run_on, run_s = True, 0.0
+            else:
+                run_on = False
+                ukf.update(np.array([v[k]]), i_k=i[k], t_c=tc[k])
+                ukf.P = 0.5 * (ukf.P + ukf.P.T)
+        else:
+            inn[k] = np.nan
+        if not (s.soc_min <= ukf.x[0] <= s.soc_max):  # estimate projection, as in the EKF kernel
+            lim = min(max(ukf.x[0], s.soc_min), s.soc_max)
+            if ukf.P[0, 0] > 0:
+                ukf.x[1:] -= ukf.P[1:, 0] / ukf.P[0, 0] * (ukf.x[0] - lim)
+            ukf.x[0] = lim
+        states[k] = ukf.x
+        sig[k] = np.sqrt(max(ukf.P[0, 0], 0.0))
+    return make_trace(model, rec, "ukf", states[:, 0], sig, vp, inn, sv, states, gated, (), su.names)
