@@ -60,7 +60,7 @@ def run(args) -> int:
     from socfuse.estimator.analysis.bench import format_summary, run_bench
     from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
     from socfuse.estimator.outputs.report import write_report
-    from socfuse.estimator.filters.settings import default_settings, load_settings
+    from socfuse.estimator.filters.settings import resolve_settings
 
     out = Path(args.out)
     if out.exists() and not out.is_dir():
@@ -69,7 +69,7 @@ def run(args) -> int:
     if clash:
         raise CliError(f"{out} already holds {', '.join(clash)}; choose a new --out folder (files are never overwritten)")
     model = load_model(args.model)
-    settings = load_settings(args.filter_path) if args.filter_path else default_settings(model)
+    settings = resolve_settings(model, args.filter_path)
     scenarios = parse_scenarios(args.scenarios if args.scenarios else list(DEFAULT_SCENARIOS))
     recs = [_load(r, args) for r in args.recordings]
     for path, r in zip(args.recordings, recs):

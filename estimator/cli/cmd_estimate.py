@@ -73,7 +73,7 @@ def run(args) -> int:
     from socfuse.models.modelfile import load_model
 
     from socfuse.estimator.filters.run import estimate
-    from socfuse.estimator.filters.settings import default_settings, load_settings
+    from socfuse.estimator.filters.settings import resolve_settings
 
     if args.soc0 is not None and not (0.0 <= args.soc0 <= 1.0):
         raise CliError(f"--soc0 must be a fraction in 0..1, got {args.soc0}")
@@ -81,8 +81,7 @@ def run(args) -> int:
     if out is not None and out.exists() and not args.force:
         raise CliError(f"{out}: exists; not overwritten (use --force or another name)")
     model = load_model(args.model)
-    base = default_settings(model)
-    settings = base if args.filter is None else load_settings(args.filter, base=base)
+    settings = resolve_settings(model, args.filter)
     rec = _load_recording(args)
     if args.method == "rts":
         from socfuse.estimator.filters.smoother import rts_smooth

@@ -33,12 +33,12 @@ def run(args) -> int:
     from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
     from socfuse.estimator.cli.common import load_from_args
     from socfuse.estimator.outputs.export_c import export_c
-    from socfuse.estimator.filters.settings import load_settings
+    from socfuse.estimator.filters.settings import resolve_settings
 
     if args.max_rows is not None and args.max_rows < 2:
         raise CliError(f"--max-rows must be at least 2, got {args.max_rows}")
     model = load_model(args.model)
-    settings = load_settings(args.filter_path) if args.filter_path else None
+    settings = resolve_settings(model, args.filter_path)
     golden = load_from_args(args, args.golden) if args.golden else None
     res = export_c(model, settings, args.out, golden, force=args.force, measure=not args.no_build,
                    max_golden_rows=args.max_rows)

@@ -47,7 +47,7 @@ def run(args) -> int:
 
     from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
     from socfuse.estimator.cli.common import load_from_args
-    from socfuse.estimator.filters.settings import default_settings, load_settings, save_settings
+    from socfuse.estimator.filters.settings import resolve_settings, save_settings
     from socfuse.estimator.analysis.tuning import tune
 
     out = Path(args.output)
@@ -64,7 +64,7 @@ def run(args) -> int:
     if args.max_evaluations < 2:
         raise CliError(f"--max-evaluations must be at least 2, got {args.max_evaluations}")
     model = load_model(args.model)
-    start = load_settings(args.filter_path, base=default_settings(model)) if args.filter_path else default_settings(model)
+    start = resolve_settings(model, args.filter_path)
     recs = [load_from_args(args, r) for r in args.recordings]
     if args.objective == "soc-error":
         for path, r in zip(args.recordings, recs):

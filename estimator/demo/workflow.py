@@ -181,7 +181,7 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
 
     from socfuse.estimator.analysis.bench import run_bench
     from socfuse.estimator.outputs.report import write_report
-    from socfuse.estimator.filters.settings import default_settings, save_settings
+    from socfuse.estimator.filters.settings import resolve_settings, save_settings
 
     say = log or print
     t_all = time.perf_counter()
@@ -211,7 +211,7 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
 
     # ---------------------------------------------------------------- tune
     t0 = time.perf_counter()
-    settings = default_settings(model)
+    settings = resolve_settings(model)
     tuning = _optional("socfuse.estimator.analysis.tuning")
     tune_day = recs[MAIN_DAY]
     tuning_section = None

@@ -20,7 +20,7 @@ from pathlib import Path
 from socfuse.models.fileio import write_text_replacing
 
 __all__ = ["FILTER_SCHEMA", "FilterSettings", "SettingsError", "default_settings", "save_settings",
-           "load_settings", "settings_from_dict", "settings_to_dict"]
+           "load_settings", "resolve_settings", "settings_from_dict", "settings_to_dict"]
 
 FILTER_SCHEMA = "socfuse.filter/1"
 
@@ -203,6 +203,35 @@ def settings_from_dict(d: dict, where: str = "filter settings", base: FilterSett
 def save_settings(settings: FilterSettings, path) -> Path:
     """Write the settings JSON (to a temporary name, then renamed)."""
     return write_text_replacing(path, json.dumps(settings_to_dict(settings), indent=1) + "\n")
+
+
+def resolve_settings(model, path=None, overrides: dict | None = None) -> FilterSettings:
+    """The one settings resolver every command and API uses.
+
+    Order: defaults derived from the model (:func:`default_settings`), then the keys present in
+    the ``socfuse.filter/1`` file at ``path`` (a partial file is fine), then ``overrides``
+    (command-line options).
+
+    Parameters
+    ----------
+    model : socfuse.models.CellModel
+        The cell model the defaults are derived from.
+    path : str or pathlib.Path, optional
+        A filter-settings JSON file; keys it lacks keep the model-derived defaults.
+    overrides : dict, optional
+        Setting name -> value, applied last (unknown names are refused).
+
+    Returns
+    -------
+    FilterSettings
+        The effective settings.
+    """
+    s = default_settings(model)
+    if path is not None:
+        s = load_settings(path, base=s)
+    if overrides:
+        s = s.with_(**overrides)
+    return s
 
 
 def load_settings(path, base: FilterSettings | None = None) -> FilterSettings:
