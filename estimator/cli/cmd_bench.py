@@ -1,6 +1,8 @@
 """``socfuse bench``: recordings x fault scenarios x methods -> report.html, summary.csv, PNGs."""
 from __future__ import annotations
 
+from socfuse.estimator.cli.main import COMMAND_HELP
+
 from pathlib import Path
 
 from socfuse.estimator.analysis.faults import DEFAULT_SCENARIOS, fault_help, parse_scenarios
@@ -10,7 +12,7 @@ OUTPUTS = ("report.html", "summary.csv")
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "bench", help="benchmark estimators under fault scenarios and write a report",
+        "bench", help=COMMAND_HELP["bench"],
         description="Run each recording under each fault scenario with each method, measure the SOC error "
                     "against the recording's reference (soc_ref, or an amp-hour counter with a capacity) and "
                     "write DIR/report.html (self-contained), DIR/summary.csv and the PNG figures. "

@@ -3,13 +3,13 @@ from __future__ import annotations
 
 from socfuse.models.checks import format_summary, summarise
 
-from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
+from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
 from socfuse.estimator.cli.common import add_mapping_options, load_from_args
 
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "check", help="load a recording and print what to know before trusting it",
+        "check", help=COMMAND_HELP["check"],
         description="Load a recording (CSV, Parquet or MATLAB .mat) with the given mapping and print its "
                     "duration, sample intervals, net and total Ah, rests, ranges, duplicates dropped, gaps "
                     "and a sign check. Exit 0 when usable, 2 with a one-line reason when not.",

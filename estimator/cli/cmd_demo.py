@@ -1,10 +1,12 @@
 """``socfuse demo``: the whole job on the bundled demo data (see :mod:`estimator.demo`)."""
 from __future__ import annotations
 
+from socfuse.estimator.cli.main import COMMAND_HELP
+
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "demo", help="run the whole job on the bundled demo data",
+        "demo", help=COMMAND_HELP["demo"],
         description="Identify demo cell C48 from its lab tests, tune the filter, benchmark EKF, UKF and the "
                     "coulomb baseline under fault scenarios on the demo delivery days, run a tolerance study, "
                     "write DIR/report.html, DIR/summary.csv, DIR/model.json, DIR/filter.json and the C export "

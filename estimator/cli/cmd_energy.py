@@ -1,12 +1,14 @@
 """``socfuse energy``: capacity-based vs energy-based SOC table and usable energy at a load."""
 from __future__ import annotations
 
+from socfuse.estimator.cli.main import COMMAND_HELP
+
 import math
 
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "energy", help="SOC_C to SOC_E table, rest energy and usable energy at a load",
+        "energy", help=COMMAND_HELP["energy"],
         description="Print the capacity-based to energy-based SOC table of a cell model (at rest, and at the "
                     "load when one is given), the rest energy, and the energy deliverable down to the model's "
                     "cut-off voltage at a constant current or power with the runtime and the SOC at cut-off. "

@@ -5,7 +5,7 @@ from pathlib import Path
 
 import numpy as np
 
-from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
+from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
 from socfuse.models.fileio import replacing
 
 _METHODS = ("ekf", "coulomb", "ukf", "rts")
@@ -13,7 +13,7 @@ _METHODS = ("ekf", "coulomb", "ukf", "rts")
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "estimate", help="run an estimator over one recording and write its SOC trace",
+        "estimate", help=COMMAND_HELP["estimate"],
         description="Run the EKF (default), the coulomb-counting baseline with OCV reseed after rests, the "
                     "unscented filter or the offline RTS smoother over one recording. With -o write the trace "
                     "CSV (time_s, soc, soc_sigma, voltage_pred_v, innovation_v, soc_e, energy_wh_remaining, "

@@ -1,10 +1,12 @@
 """``socfuse export-c``: the tuned estimator as C99 with golden vectors, a harness and a footprint README."""
 from __future__ import annotations
 
+from socfuse.estimator.cli.main import COMMAND_HELP
+
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "export-c", help="export the estimator as C99 with golden test vectors",
+        "export-c", help=COMMAND_HELP["export-c"],
         description="Write DIR/socfuse_ekf.h, DIR/socfuse_ekf.c (the EKF and the coulomb-counting + OCV-reseed "
                     "baseline in single-precision C99, model tables as const arrays), DIR/golden.csv (inputs and "
                     "the float64 Python reference of one recording), DIR/harness.c and DIR/README.md (footprint). "

@@ -8,14 +8,14 @@ from socfuse.models.identify.ocvsource import OCV_SOURCES
 from socfuse.models.identify.pipeline import identify
 from socfuse.models.modelfile import save_model
 
-from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
+from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
 from socfuse.estimator.cli.common import add_mapping_options, load_from_args
 from socfuse.models.fileio import replacing
 
 
 def register(sub) -> None:
     p = sub.add_parser(
-        "identify", help="identify the cell model from a low-rate OCV test and pulse (HPPC) tests",
+        "identify", help=COMMAND_HELP["identify"],
         description="Identify a Thevenin cell model: capacity and OCV(SOC) from a low-rate (about C/20) test, "
                     "R0 and 1-2 RC pairs over SOC (and temperature) from pulse tests, optionally refined and "
                     "validated on dynamic recordings. Writes the cell-model JSON (schema socfuse.cell-model/1) "

@@ -1,6 +1,8 @@
 """``socfuse tune``: choose the filter noise from recordings and write filter.json."""
 from __future__ import annotations
 
+from socfuse.estimator.cli.main import COMMAND_HELP
+
 from pathlib import Path
 
 
@@ -8,7 +10,7 @@ def register(sub) -> None:
     from socfuse.estimator.analysis.tuning import TUNABLE
 
     p = sub.add_parser(
-        "tune", help="tune the filter's process and measurement noise on recordings",
+        "tune", help=COMMAND_HELP["tune"],
         description="Choose the EKF noise settings from recordings by maximising the innovation likelihood "
                     "(no reference needed) or, when every recording has a SOC reference, by minimising the SOC "
                     "RMSE with a penalty when the mean NIS leaves its 95 % chi-square band. Prints the chosen "
