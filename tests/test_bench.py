@@ -40,7 +40,7 @@ def test_summary_has_the_design_columns(small):
 
 def test_metrics_match_the_traces(small):
     rec, model, res = small
-    for (r, sc, m), tr in res.traces.items():
+    for (_r, sc, m), tr in res.traces.items():
         row = res.summary[(res.summary.scenario == sc) & (res.summary.method == m)].iloc[0]
         e = np.asarray(tr.soc) - np.asarray(tr.soc_ref)
         assert row.rmse_pct == pytest.approx(100 * np.sqrt(np.mean(e ** 2)), rel=1e-12)

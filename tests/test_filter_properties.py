@@ -8,7 +8,7 @@ from ekf_cases import tiny_model
 from socfuse.estimator.filters.coulomb import run_coulomb
 from socfuse.estimator.filters.ekf import run_ekf
 from socfuse.estimator.filters.settings import default_settings
-from socfuse.models import Recording, simulate
+from socfuse.models import Recording
 
 MODELS = {"rc1": tiny_model(n_rc=1), "rc2_hyst": tiny_model(n_rc=2, hysteresis=True),
           "temp": tiny_model(n_rc=1, temperature=True)}

@@ -2,7 +2,6 @@
 doi:10.17632/wykht8y7tg.1, CC BY 4.0).  Skips when the dataset is absent."""
 from __future__ import annotations
 
-import numpy as np
 import pytest
 
 from socfuse.models.identify.pipeline import identify

@@ -3,6 +3,8 @@ from __future__ import annotations
 
 from dataclasses import dataclass, field
 
+from typing import Any
+
 import numpy as np
 
 __all__ = ["Trace", "make_trace"]
@@ -64,7 +66,7 @@ class Trace:
         """
         import pandas as pd
 
-        cols = {"time_s": self.time_s, "soc": self.soc, "soc_sigma": self.soc_sigma,
+        cols: dict[str, Any] = {"time_s": self.time_s, "soc": self.soc, "soc_sigma": self.soc_sigma,
                 "voltage_pred_v": self.voltage_pred_v, "innovation_v": self.innovation_v}
         if self.soc_e is not None:
             cols["soc_e"] = self.soc_e
