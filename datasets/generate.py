@@ -1,9 +1,9 @@
 """Regenerate the bundled demo data (demo cell C48, invented) into this folder.
 
-    python datasets/generate.py            # the bundled files, seed socfuse.estimator.demo.truth.DEMO_SEED
+    python datasets/generate.py            # the bundled files, seed socfuse.estimator.demo.scenario.DEMO_SEED
     python datasets/generate.py --out DIR  # somewhere else (same content)
 
-The logic lives in socfuse.estimator.demo.truth.generate_demo_data so an installed package can regenerate
+The logic lives in socfuse.estimator.demo.data.generate_demo_data so an installed package can regenerate
 the data too; this script is a thin wrapper.  Output is deterministic for a seed.
 """
 from __future__ import annotations
@@ -15,7 +15,8 @@ from pathlib import Path
 HERE = Path(__file__).resolve().parent
 sys.path.insert(0, str(HERE.parent))  # run from a checkout without installing
 
-from socfuse.estimator.demo.truth import DEMO_SEED, generate_demo_data  # noqa: E402
+from socfuse.estimator.demo.data import generate_demo_data  # noqa: E402
+from socfuse.estimator.demo.scenario import DEMO_SEED  # noqa: E402
 
 
 def main(argv=None) -> int:

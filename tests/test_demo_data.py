@@ -9,7 +9,9 @@ import pytest
 from scipy.integrate import trapezoid
 
 from socfuse.models import find_rests
-from socfuse.estimator.demo.truth import C48_TRUTH, DEMO_FILES, DEMO_SEED, generate_demo_data
+from socfuse.estimator.demo.data import DEMO_FILES, generate_demo_data
+from socfuse.estimator.demo.scenario import DEMO_SEED
+from socfuse.estimator.demo.truth import C48_TRUTH
 
 CANONICAL = ["time_s", "current_a", "voltage_v", "temperature_c", "soc_ref"]  # DESIGN.md section 3
 
@@ -39,7 +41,7 @@ def test_manifest_and_readme_describe_every_file(data_dir):
     assert m["seed"] == DEMO_SEED and m["truth"]["capacity_ah"] == C48_TRUTH.capacity_ah
     readme = (data_dir / "README.md").read_text()
     for f in DEMO_FILES:
-        assert set(m["files"][f]["sensors"]) >= {"offset_a", "gain", "voltage_noise_v", "voltage_quant_v"}
+        assert set(m["files"][f]["sensors"]) >= {"offset_a", "gain_error", "voltage_noise_v", "voltage_quant_v"}
         assert f in readme
 
 

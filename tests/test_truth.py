@@ -7,8 +7,9 @@ import numpy as np
 import pytest
 
 import socfuse.models as models
-from socfuse.estimator.demo.truth import (C48_TRUTH, FLEET_SENSORS, SensorErrors, arrhenius_factor, c20_test_profile,
-                          pulse_test_profile, simulate_profile, simulate_truth, truth_cell_model)
+from socfuse.estimator.demo.scenario import FLEET_SENSORS, c20_test_profile, pulse_test_profile, simulate_profile
+from socfuse.estimator.demo.truth import C48_TRUTH, arrhenius_factor, simulate_truth, truth_cell_model
+from socfuse.models.sensors import SensorErrors
 
 ONE_RC = replace(C48_TRUTH, r2_ohm=(), tau2_s=(), hysteresis_max_v=0.0)
 
@@ -50,7 +51,7 @@ def test_substeps_follow_the_analytic_ramp_response():
 
 
 def test_sensor_errors_applied_as_documented():
-    s = SensorErrors(offset_a=0.05, gain=1.01, current_noise_a=0.01, current_quant_a=0.001,
+    s = SensorErrors(offset_a=0.05, gain_error=0.01, current_noise_a=0.01, current_quant_a=0.001,
                      voltage_offset_v=0.002, voltage_noise_v=0.002, voltage_quant_v=0.001,
                      temperature_offset_c=1.5, temperature_noise_c=0.1, temperature_quant_c=0.1)
     t = np.arange(0.0, 4000.0, 1.0)
@@ -60,7 +61,7 @@ def test_sensor_errors_applied_as_documented():
     n_rest = 1899
     # offset visible as the mean of the measured current in a rest (3-sigma bound of the mean)
     assert abs(rec.current_a[rest].mean() - 0.05) < 3 * 0.0101 / np.sqrt(n_rest)
-    # gain error on load: mean = gain * i + offset
+    # gain error on load: mean = (1 + gain_error) * i + offset
     assert abs(rec.current_a[load].mean() - (1.01 * 2.0 + 0.05)) < 3 * 0.0101 / np.sqrt(1900)
     # quantisation: every value is a multiple of the quantum
     assert np.allclose(np.round(rec.voltage_v / 0.001) * 0.001, rec.voltage_v, atol=1e-12, rtol=0)

@@ -83,7 +83,7 @@ def demo_data_dir(out_dir=None, seed: int | None = None) -> Path:
 
     Looks for (a) ``datasets/`` next to the package source (a checkout), (b) the installed
     package-data copy ``socfuse.datasets`` (``importlib.resources``), else (c) regenerates the
-    data with :func:`socfuse.estimator.demo.truth.generate_demo_data` into ``out_dir/data`` (never elsewhere).
+    data with :func:`socfuse.estimator.demo.data.generate_demo_data` into ``out_dir/data`` (never elsewhere).
 
     Raises
     ------
@@ -100,9 +100,10 @@ def demo_data_dir(out_dir=None, seed: int | None = None) -> Path:
         raise DemoError("demo data not found (no datasets/ folder and no socfuse.datasets package); "
                         "give an output folder to regenerate it")
     try:
-        from socfuse.estimator.demo.truth import DEMO_SEED, generate_demo_data
+        from socfuse.estimator.demo.data import generate_demo_data
+        from socfuse.estimator.demo.scenario import DEMO_SEED
     except ImportError:
-        raise DemoError("demo data not found and socfuse.estimator.demo.truth.generate_demo_data is unavailable") from None
+        raise DemoError("demo data not found and socfuse.estimator.demo.data.generate_demo_data is unavailable") from None
     target = Path(out_dir) / "data"
     if not _has_all(target):
         generate_demo_data(target, DEMO_SEED if seed is None else seed)
