@@ -57,6 +57,7 @@ import numpy as np
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.recording import Recording
 from socfuse.models.thevenin import CellModel
+from socfuse.models.sensors import measure
 
 __all__ = ["FaultError", "Fault", "Scenario", "Case", "FAULTS", "apply_scenario", "scenario_from_spec",
            "parse_scenarios", "DEFAULT_SCENARIOS", "fault_help", "true_initial_soc", "NOMINAL"]
@@ -255,13 +256,13 @@ def apply_scenario(case: Case, scenario: Scenario) -> Case:
             soc0 = float(np.clip(z1, 0.0, 1.0))
             notes.append(f"initial SOC given to the filter {soc0:.3f} (true {z:.3f})")
         elif f.name == "offset":
-            cur = cur + v
+            cur = measure(cur, offset=v)
             notes.append(f"current offset {v:+.4g} A")
         elif f.name == "gain":
-            cur = cur * (1.0 + v)
+            cur = measure(cur, gain_error=v)
             notes.append(f"current gain error {v:+.3%}")
         elif f.name == "vnoise":
-            volt = volt + _rng(scenario.seed, "vnoise").normal(0.0, v, volt.size)
+            volt = measure(volt, noise_sigma=v, rng=_rng(scenario.seed, "vnoise"))
             notes.append(f"extra voltage noise sigma {v * 1e3:.3g} mV")
         elif f.name == "vdrop":
             lost = _rng(scenario.seed, "vdrop").random(volt.size) < v

@@ -40,6 +40,7 @@ from socfuse.estimator.filters import kernels as K
 from socfuse.estimator.filters.ekf import recording_arrays, setup
 from socfuse.estimator.filters.settings import FilterSettings, default_settings
 from socfuse.estimator.analysis.tuning import ekf_raw
+from socfuse.models.sensors import measure
 
 __all__ = ["Tolerances", "ToleranceRuns", "SweepResult", "ToleranceStudy", "MonteCarloError", "run_tolerance",
            "sweep", "tolerance_study", "tolerance_figure", "METHODS"]
@@ -335,12 +336,12 @@ def run_tolerance(model, rec, settings: FilterSettings | None = None, tolerances
     try:
         for a in range(0, n_runs, chunk):
             b = min(a + chunk, n_runs)
-            cur = (1.0 + gain[a:b, None]) * i_a[None, :] + offset[a:b, None]
+            cur = measure(i_a[None, :], offset=offset[a:b, None], gain_error=gain[a:b, None])
             vol = np.empty((b - a, rec.n))
             for j in range(b - a):  # voltage noise seeded per run: independent of the chunking
                 vol[j] = v_v
                 if tol.voltage_noise_v > 0:
-                    vol[j] += np.random.default_rng([noise_seed, a + j]).normal(0.0, tol.voltage_noise_v, rec.n)
+                    vol[j] = measure(v_v, noise_sigma=tol.voltage_noise_v, rng=np.random.default_rng([noise_seed, a + j]))
             for m in methods:
                 if m == "ekf":
                     from socfuse.models.recording import Recording
