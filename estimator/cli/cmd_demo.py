@@ -1,5 +1,7 @@
-"""``socfuse demo``: the whole job on the bundled demo data (see :mod:`estimator.demo`)."""
+"""``socfuse demo``: the whole job on the bundled demo data (see :mod:`socfuse.estimator.demo.workflow`)."""
 from __future__ import annotations
+
+import sys
 
 from socfuse.estimator.cli.main import COMMAND_HELP
 
@@ -11,8 +13,8 @@ def register(sub) -> None:
                     "coulomb baseline under fault scenarios on the demo delivery days, run a tolerance study, "
                     "write DIR/report.html, DIR/summary.csv, DIR/model.json, DIR/filter.json and the C export "
                     "DIR/c/, and print the summary table. The fault defaults are common practice for "
-                    "automotive sensors (no source): current offset 0.5 %% of a 5C full scale, gain 1 %%, "
-                    "voltage noise 5 mV, temperature sensor +2 degC, initial SOC error 20 points, fade 15 %%.")
+                    "automotive sensors (no source): current offset 0.5 % of a 5C full scale, gain 1 %, "
+                    "voltage noise 5 mV, temperature sensor +2 degC, initial SOC error 20 points, fade 15 %.")
     p.add_argument("--out", required=True, help="output folder (new, or one written by an earlier demo run)")
     p.add_argument("--quick", action="store_true",
                    help="smaller run (3 h of one day, four scenarios, UKF fault-free only): for tests and a first look")
@@ -31,6 +33,6 @@ def run(args) -> int:
     print()
     print(format_summary(res.summary))
     print()
-    print(f"demo finished in {res.elapsed_s:.1f} s; report: {res.files.get('report.html')}")
-    print(SAFETY_NOTE)
+    print(f"demo finished in {res.elapsed_s:.1f} s; report: {res.files['report.html']}")
+    print(SAFETY_NOTE, file=sys.stderr)
     return 0

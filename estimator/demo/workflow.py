@@ -5,7 +5,8 @@ co-operative's cargo tricycles.  The bundled recordings come from the truth simu
 (:mod:`socfuse.estimator.demo.truth`), which is richer than the estimator's model, so the benchmark is not
 trivially perfect.
 
-Steps (each one timed; a step whose module is missing is reported as skipped, never a crash):
+Steps (typed :class:`DemoStep` objects, each one timed; a step that fails stops the demo with a
+one-line reason naming it, and nothing half-written is left in the output folder):
 
 1. find the demo data (:func:`demo_data_dir`);
 2. identify the cell model from the C/20 test and the pulse tests (``models.identify.pipeline``),
@@ -25,7 +26,6 @@ Carlo study: the same code path in a fraction of the time.
 from __future__ import annotations
 
 import html
-import importlib
 import time
 from dataclasses import dataclass, field, replace
 from pathlib import Path
@@ -33,8 +33,8 @@ from typing import Callable
 
 import numpy as np
 
-__all__ = ["demo_data_dir", "run_demo", "DemoResult", "DEMO_DAYS", "MAIN_DAY", "LAB_TESTS", "DEMO_MARKER",
-           "DemoError"]
+__all__ = ["demo_data_dir", "run_demo", "DemoResult", "DemoStep", "DEMO_DAYS", "MAIN_DAY", "LAB_TESTS",
+           "DEMO_MARKER", "DemoError", "DemoStepError"]
 
 LAB_TESTS = {"ocv": "c48_c20_25degC.csv", "pulse": ("c48_pulse_25degC.csv", "c48_pulse_05degC.csv")}
 DEMO_DAYS = ("c48_day_lunch.csv", "c48_day_cold.csv", "c48_day_long.csv")
@@ -139,35 +139,77 @@ class DemoResult:
     extras: dict = field(default_factory=dict)
 
 
-def _optional(modname: str):
-    """Import ``modname`` or return None when that module itself is missing."""
-    try:
-        return importlib.import_module(modname)
-    except ModuleNotFoundError as e:
-        if e.name in (modname, modname.rsplit(".", 1)[0]):
-            return None
-        raise
+class DemoStepError(DemoError):
+    """A demo step could not be done on its input: the demo stops with this one-line reason."""
 
 
-def _prepare_out(out: Path) -> None:
+@dataclass(frozen=True)
+class DemoStep:
+    """One typed step of the demo workflow: what it does and the callable that does it.
+
+    ``run(state)`` takes the dict of what earlier steps produced, returns the dict of what it adds
+    and a one-line detail for the log.  A ``ValueError``/``ArithmeticError``/``OSError`` raised by
+    the step is bad input or a numerical failure: the demo stops with :class:`DemoStepError`
+    naming the step.  Anything else is a bug and propagates unchanged (exit code 1 at the CLI).
+    """
+
+    name: str
+    run: Callable[[dict], tuple[dict, str]]
+
+
+def _check_out(out: Path) -> None:
+    """Refuse, before any work, an output path the demo may not use."""
     if out.exists() and not out.is_dir():
         raise DemoError(f"{out} exists and is not a folder")
     if out.is_dir() and any(out.iterdir()) and not (out / DEMO_MARKER).exists():
         raise DemoError(f"{out} is not empty and was not written by socfuse demo; choose a new folder "
                         "(the demo never overwrites files it did not write)")
-    out.mkdir(parents=True, exist_ok=True)
-    (out / DEMO_MARKER).write_text("written by socfuse demo; files here are replaced by the next run\n")
+    parent = out.parent if str(out.parent) else Path(".")
+    if not parent.is_dir():
+        raise DemoError(f"folder {parent} does not exist (the demo creates only the last folder of --out)")
+
+
+def _staging(out: Path) -> Path:
+    """A fresh sibling folder the demo writes into; moved to ``out`` only when every step is done."""
+    import tempfile
+
+    try:
+        return Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent if str(out.parent) else "."))
+    except OSError as e:
+        raise DemoError(f"cannot write into {out.parent}: {e.strerror or e}") from None
+
+
+def _publish(stage: Path, out: Path) -> None:
+    """Move the finished staging folder to ``out`` (replacing an earlier demo run's folder)."""
+    import os
+    import shutil
+
+    mask = os.umask(0o022)
+    os.umask(mask)
+    os.chmod(stage, 0o777 & ~mask)  # mkdtemp made it 0700
+    old = None
+    if out.exists():
+        old = out.parent / f".{out.name}.old-{os.getpid()}"
+        out.rename(old)
+    stage.rename(out)
+    if old is not None:
+        shutil.rmtree(old, ignore_errors=True)
 
 
 def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int | None = None,
              log: Callable[[str], None] | None = None) -> DemoResult:
     """Run the demo (module docstring) and write everything into ``out_dir``.
 
+    The steps write into a staging folder beside ``out_dir``, which replaces ``out_dir`` only when
+    every step has finished: a failed or killed run leaves no folder that looks complete.  A step
+    that fails on its input stops the demo with :class:`DemoStepError` (one line naming the step);
+    nothing is skipped or replaced by a stand-in.
+
     Parameters
     ----------
     out_dir : path
-        Output folder: created, or a folder written by an earlier demo run (marker file
-        ``.socfuse-demo``); any other non-empty folder is refused.
+        Output folder: new, empty, or written by an earlier demo run (marker file
+        ``.socfuse-demo``); any other non-empty folder is refused before any work.
     quick : bool
         Smaller run for tests (module docstring).
     quiet : bool
@@ -175,201 +217,193 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
     workers : int, optional
         Run the benchmark on a local Dask cluster with this many workers.
     log : callable, optional
-        Receives one line per step (default: print).
+        Receives one line per step (default: print to stderr).
+
+    Returns
+    -------
+    DemoResult
+        The summary, model, settings, steps and files (paths inside ``out_dir``).
     """
-    from socfuse.models.loaders import load_recording
-    from socfuse.models.modelfile import save_model
+    import shutil
+    import sys
 
-    from socfuse.estimator.analysis.bench import run_bench
-    from socfuse.estimator.outputs.report import write_report
-    from socfuse.estimator.filters.settings import resolve_settings, save_settings
-
-    say = log or print
+    say = log or (lambda line: print(line, file=sys.stderr))
     t_all = time.perf_counter()
     out = Path(out_dir)
-    _prepare_out(out)
+    _check_out(out)
+    stage = _staging(out)
     steps: list = []
-    files: dict = {}
-    extras: dict = {}
+    state: dict = {"quick": quick, "quiet": quiet, "workers": workers, "stage": stage, "files": {},
+                   "extras": {}, "sections": [], "steps": steps}
+    try:
+        for st in _steps(quick):
+            t0 = time.perf_counter()
+            try:
+                added, detail = st.run(state)
+            except (ValueError, ArithmeticError, OSError) as e:
+                first = (str(e).strip().splitlines() or [type(e).__name__])[0]
+                raise DemoStepError(f"step '{st.name}' failed: {first}") from e
+            state.update(added)
+            dt = time.perf_counter() - t0
+            steps.append((st.name, dt, "done" + (f" {detail}" if detail else "")))
+            say(f"[{dt:6.1f} s] {st.name}: done{(' ' + detail) if detail else ''}")
+        (stage / DEMO_MARKER).write_text("written by socfuse demo; files here are replaced by the next run\n")
+        _publish(stage, out)
+    except BaseException:
+        shutil.rmtree(stage, ignore_errors=True)
+        raise
+    files = {k: out / Path(v).relative_to(stage) for k, v in state["files"].items()}
+    return DemoResult(out, state["bench"].summary, state["model"], state["settings"], tuple(steps), files,
+                      time.perf_counter() - t_all, state["extras"])
 
-    def step(name, t0, status="done"):
-        dt = time.perf_counter() - t0
-        steps.append((name, dt, status))
-        say(f"[{dt:6.1f} s] {name}: {status}")
 
-    t0 = time.perf_counter()
-    data = demo_data_dir(out)
+def _steps(quick: bool) -> tuple:
+    return (
+        DemoStep("demo data", _step_data),
+        DemoStep("identify the cell model from the C/20 and pulse tests", _step_identify),
+        DemoStep("tune the noise on the lunch-break day", _step_tune),
+        DemoStep("benchmark EKF, UKF and the coulomb baseline under the fault scenarios", _step_bench),
+        DemoStep("posterior Cramer-Rao bound", _step_bound),
+        DemoStep("Monte Carlo tolerance study", _step_tolerance),
+        DemoStep("report", _step_report),
+        DemoStep("C99 export with golden vectors", _step_export),
+    )
+
+
+# ====================================================================== steps
+def _step_data(state):
+    from socfuse.models.loaders import load_recording
+
+    data = demo_data_dir(state["stage"])
     recs = {f[:-4]: load_recording(data / f) for f in ALL_FILES}
-    if quick:  # the first QUICK_HOURS of the lunch-break day stand in for the whole day
-        recs[MAIN_DAY] = recs[MAIN_DAY].slice(0, int(np.searchsorted(recs[MAIN_DAY].time_s, QUICK_HOURS * 3600.0)))
-    step(f"demo data ({data})", t0)
+    if state["quick"]:  # the first QUICK_HOURS of the lunch-break day stand in for the whole day
+        day = recs[MAIN_DAY]
+        recs[MAIN_DAY] = day.slice(0, int(np.searchsorted(day.time_s, QUICK_HOURS * 3600.0)))
+    return {"recs": recs}, f"({data})"
 
-    # ---------------------------------------------------------------- identify
-    t0 = time.perf_counter()
-    model, status, ident_section = _identify(recs, quick)
-    step("identify the cell model from the C/20 and pulse tests", t0, status)
-    files["model.json"] = save_model(model, out / "model.json")
 
-    # ---------------------------------------------------------------- tune
-    t0 = time.perf_counter()
+def _step_identify(state):
+    from socfuse.estimator.outputs.report import ReportSection
+    from socfuse.models.identify.pipeline import identify
+    from socfuse.models.modelfile import save_model
+
+    recs = state["recs"]
+    ocv = recs[LAB_TESTS["ocv"][:-4]]
+    pulses = [recs[p[:-4]] for p in LAB_TESTS["pulse"]]
+    # R0/RC refined on the lunch-break day, which also serves for tuning; the day starts after a
+    # full overnight charge (SOC 1)
+    res = identify(ocv, pulses, name="demo cell C48 (identified)", refine=recs[MAIN_DAY], refine_soc0=1.0)
+    sec = ReportSection("Identified cell model",
+                        "<p>From the C/20 test and the pulse tests at 25 and 5 degC; R0 and RC tables refined "
+                        f"on the lunch-break day.</p><pre>{html.escape(res.summary())}</pre>")
+    state["sections"].append(sec)
+    state["files"]["model.json"] = save_model(res.model, state["stage"] / "model.json")
+    return {"model": res.model}, ""
+
+
+def _step_tune(state):
+    from socfuse.estimator.analysis.tuning import tune
+    from socfuse.estimator.filters.settings import resolve_settings, save_settings
+
+    model = state["model"]
     settings = resolve_settings(model)
-    tuning = _optional("socfuse.estimator.analysis.tuning")
-    tune_day = recs[MAIN_DAY]
-    tuning_section = None
-    if tuning is None or not hasattr(tuning, "tune"):
-        step("tune the noise on the lunch-break day", t0, "skipped: estimator.tuning is not available; "
-             "default settings used")
-    else:
-        try:
-            # innovation likelihood: needs no reference, as on fleet data
-            res = tuning.tune(model, [tune_day], settings=settings, objective="likelihood", quiet=quiet,
-                              max_evaluations=60 if quick else 150)
-            settings = getattr(res, "settings", res)
-            extras["tuning"] = res
-            tuning_section = _tuning_section(res)
-            step("tune the noise on the lunch-break day", t0)
-        except (ValueError, ArithmeticError, RuntimeError) as e:
-            step("tune the noise on the lunch-break day", t0, f"skipped: {e}")
+    # innovation likelihood: needs no reference, as on fleet data
+    res = tune(model, [state["recs"][MAIN_DAY]], settings=settings, objective="likelihood", quiet=state["quiet"],
+               max_evaluations=60 if state["quick"] else 150)
+    settings = res.settings
+    state["extras"]["tuning"] = res
+    state["sections"].append(_tuning_section(res))
     if settings.p0_soc < DEMO_P0_SOC:
         # the soc0 fault hands the filter a remembered SOC; a BMS waking after an unknown rest should
         # claim a wide prior for it (demo choice, stated in the report)
         settings = replace(settings, p0_soc=DEMO_P0_SOC)
-    files["filter.json"] = save_settings(settings, out / "filter.json") or out / "filter.json"
+    state["files"]["filter.json"] = save_settings(settings, state["stage"] / "filter.json")
+    return {"settings": settings}, ""
 
-    # ---------------------------------------------------------------- benchmark
-    t0 = time.perf_counter()
+
+def _step_bench(state):
+    from socfuse.estimator.analysis.bench import run_bench
+
+    quick = state["quick"]
+    recs = state["recs"]
     days = [MAIN_DAY] if quick else [d[:-4] for d in DEMO_DAYS]
     scen = QUICK_SCENARIOS if quick else FULL_SCENARIOS
-    methods = ["ekf", "coulomb"]
-    if _optional("socfuse.estimator.filters.ukf") is not None:
-        methods.append("ukf")
-    bench = run_bench(model, [recs[d] for d in days], scen, methods, settings,
+    methods = ["ekf", "coulomb", "ukf"]
+    bench = run_bench(state["model"], [recs[d] for d in days], scen, methods, state["settings"],
                       method_recordings={"ukf": [MAIN_DAY]},
                       method_scenarios={"ukf": ("nominal",) if quick else UKF_SCENARIOS_FULL},
-                      keep_traces=[MAIN_DAY], reference_is_truth=True, workers=workers, quiet=quiet,
-                      desc="demo benchmark")
-    status = "done" if "ukf" in methods else "done (UKF skipped: estimator.ukf is not available)"
+                      keep_traces=[MAIN_DAY], reference_is_truth=True, workers=state["workers"],
+                      quiet=state["quiet"], desc="demo benchmark")
     if bench.errors:
-        status += f"; {len(bench.errors)} run(s) failed: " + "; ".join(
-            f"{'/'.join(k)}: {v}" for k, v in list(bench.errors.items())[:3])
-    step(f"benchmark {len(bench.summary)} runs ({', '.join(methods)} x {len(scen)} scenarios x "
-         f"{len(days)} day(s))", t0, status)
+        k, v = next(iter(bench.errors.items()))
+        raise DemoStepError(f"{len(bench.errors)} benchmark run(s) failed, first {'/'.join(k)}: {v}")
+    return {"bench": bench}, f"({len(bench.summary)} runs over {len(days)} day(s))"
 
-    # ---------------------------------------------------------------- bound
-    t0 = time.perf_counter()
-    bounds = {}
-    bmod = _optional("socfuse.estimator.analysis.bound")
-    if bmod is None:
-        step("posterior Cramer-Rao bound", t0, "skipped: estimator.bound is not available")
-    else:
-        try:
-            sig = _bound_sigma(bmod, model, recs[MAIN_DAY], settings)
-            bounds[MAIN_DAY] = (recs[MAIN_DAY].time_s, sig)
-            extras["bound_sigma_final"] = float(sig[-1])
-            step("posterior Cramer-Rao bound", t0)
-        except (ValueError, ArithmeticError, AttributeError, TypeError) as e:
-            step("posterior Cramer-Rao bound", t0, f"skipped: {e}")
 
-    # ---------------------------------------------------------------- tolerance
-    t0 = time.perf_counter()
-    sections = [s for s in (ident_section, tuning_section) if s is not None]
-    mc = _optional("socfuse.estimator.analysis.montecarlo")
-    if mc is None:
-        step("Monte Carlo tolerance study", t0, "skipped: estimator.montecarlo is not available")
-    else:
-        try:
-            res, sec = _tolerance(mc, model, recs[MAIN_DAY], settings, quick, quiet)
-            extras["tolerance"] = res
-            sections.append(sec)
-            step("Monte Carlo tolerance study", t0)
-        except (ValueError, ArithmeticError, AttributeError, TypeError) as e:
-            step("Monte Carlo tolerance study", t0, f"skipped: {e}")
+def _step_bound(state):
+    from socfuse.estimator.analysis.bound import pcrb_soc_sigma
 
-    # ---------------------------------------------------------------- report
-    t0 = time.perf_counter()
+    rec = state["recs"][MAIN_DAY]
+    sig = np.asarray(pcrb_soc_sigma(state["model"], rec, state["settings"]).soc_sigma, dtype=float)
+    state["extras"]["bound_sigma_final"] = float(sig[-1])
+    return {"bounds": {MAIN_DAY: (rec.time_s, sig)}}, ""
+
+
+def _step_tolerance(state):
+    from socfuse.estimator.analysis import montecarlo
+
+    study, sec = _tolerance(montecarlo, state["model"], state["recs"][MAIN_DAY], state["settings"],
+                            state["quick"], state["quiet"])
+    state["extras"]["tolerance"] = study
+    state["sections"].append(sec)
+    return {}, ""
+
+
+def _step_report(state):
+    from socfuse.estimator.outputs.report import write_report
+
+    steps = state["steps"]
     intro = ("<p>Demo cell C48 is invented: a 4.8 Ah NMC cell in the 14s4p packs of a courier co-operative's "
              "electric cargo tricycles. The recordings come from a truth simulator richer than the filter's "
              "model (two RC pairs, hysteresis, temperature dependence, sensor offset, gain error, noise and "
              "quantisation); its SOC is the reference, so NEES figures are against the truth. When the "
              f"filter is handed an initial SOC (the soc0 fault) it is told a sigma of {100 * DEMO_P0_SOC:.0f} "
              "points (p0_soc), as a BMS restoring a remembered SOC after an unknown rest should.</p>"
-             "<h3>Demo steps (before the report and the C export)</h3><table class='t'><tr><th>step</th><th>s</th><th>status</th></tr>"
+             "<h3>Demo steps (before the report and the C export)</h3><table class='t'><tr><th>step</th>"
+             "<th>s</th><th>status</th></tr>"
              + "".join(f"<tr><td>{html.escape(n)}</td><td class='n'>{dt:.1f}</td><td>{html.escape(s)}</td></tr>"
                        for n, dt, s in steps) + "</table>")
-    rep = write_report(out, bench, model, settings=settings, title="socfuse demo: demo cell C48 delivery days",
-                       main_recording=MAIN_DAY, bounds=bounds, sections=sections, intro_html=intro)
-    files.update({"report.html": rep.html, "summary.csv": rep.summary_csv})
-    step(f"report ({len(rep.pngs)} figures)", t0)
-
-    # ---------------------------------------------------------------- C export
-    t0 = time.perf_counter()
-    ex = _optional("socfuse.estimator.outputs.export_c")
-    if ex is None or not hasattr(ex, "export_c"):
-        step("C99 export", t0, "skipped: estimator.export_c is not available")
-    else:
-        try:
-            golden = recs[MAIN_DAY].slice(0, 600) if quick else recs[MAIN_DAY]  # the whole day unless quick
-            res = ex.export_c(model, settings, out / "c", golden=golden, measure=not quick)
-            files["c"] = out / "c"
-            verdict = ""
-            if getattr(res, "max_soc_diff", None) is not None:
-                verdict = (f" (C harness over {golden.n} rows: max_soc_diff={res.max_soc_diff:.2g}, "
-                           f"exit {res.harness_exit})")
-            step("C99 export with golden vectors" + verdict, t0)
-        except (ValueError, OSError, RuntimeError) as e:
-            step("C99 export", t0, f"skipped: {e}")
-    return DemoResult(out, bench.summary, model, settings, tuple(steps), files, time.perf_counter() - t_all, extras)
+    rep = write_report(state["stage"], state["bench"], state["model"], settings=state["settings"],
+                       title="socfuse demo: demo cell C48 delivery days", main_recording=MAIN_DAY,
+                       bounds=state["bounds"], sections=state["sections"], intro_html=intro)
+    state["files"].update({"report.html": rep.html, "summary.csv": rep.summary_csv})
+    return {}, f"({len(rep.pngs)} figures)"
 
 
-# ====================================================================== adapters
-def _identify(recs, quick):
-    """Identify the model with models.identify.pipeline, or fall back with a clear status.
+def _step_export(state):
+    from socfuse.estimator.outputs.export_c import export_c
 
-    Returns ``(model, status, section)``; ``section`` is the report section with the
-    identification summary (None when skipped).
-    """
-    from socfuse.estimator.outputs.report import ReportSection
-
-    pipe = _optional("socfuse.models.identify.pipeline")
-    ocv = recs[LAB_TESTS["ocv"][:-4]]
-    pulses = [recs[p[:-4]] for p in LAB_TESTS["pulse"]]
-    if pipe is not None and hasattr(pipe, "identify"):
-        try:
-            # R0/RC refined on the lunch-break day, which also serves for tuning; the day starts
-            # after a full overnight charge (SOC 1)
-            res = pipe.identify(ocv, pulses, name="demo cell C48 (identified)", refine=recs[MAIN_DAY],
-                                refine_soc0=1.0)
-        except (ValueError, ArithmeticError, RuntimeError) as e:
-            reason = f"identification failed ({e})"
-        else:
-            text = res.summary() if hasattr(res, "summary") else str(res)
-            sec = ReportSection("Identified cell model",
-                                "<p>From the C/20 test and the pulse tests at 25 and 5 degC; R0 and RC "
-                                "tables refined on the lunch-break day.</p>"
-                                f"<pre>{html.escape(text)}</pre>")
-            return res.model, "done", sec
-    else:
-        reason = "models.identify.pipeline is not available"
-    from socfuse.estimator.demo.truth import truth_cell_model
-
-    model = truth_cell_model(25.0).with_(name="demo cell C48 (truth parameters, identification skipped)")
-    return model, f"skipped: {reason}; the filter uses the truth model's parameters instead (flatters it)", None
+    quick = state["quick"]
+    day = state["recs"][MAIN_DAY]
+    golden = day.slice(0, 600) if quick else day  # the whole day unless quick
+    res = export_c(state["model"], state["settings"], state["stage"] / "c", golden=golden, measure=not quick)
+    state["files"]["c"] = state["stage"] / "c"
+    if res.max_soc_diff is None:
+        return {}, f"({golden.n} golden rows; harness not built)"
+    if res.harness_exit != 0:
+        raise DemoStepError(f"the exported C disagrees with Python on the golden vectors "
+                            f"(max_soc_diff={res.max_soc_diff:.2g}, harness exit {res.harness_exit})")
+    return {}, f"(C harness over {golden.n} rows: max_soc_diff={res.max_soc_diff:.2g})"
 
 
-def _bound_sigma(bmod, model, rec, settings) -> np.ndarray:
-    """SOC sigma of the posterior Cramer-Rao bound (estimator.bound.pcrb_soc_sigma) along ``rec``."""
-    res = bmod.pcrb_soc_sigma(model, rec, settings)
-    return np.asarray(res.soc_sigma, dtype=float)
-
-
+# ====================================================================== helpers
 def _tuning_section(res):
     from socfuse.estimator.outputs.report import ReportSection
 
-    text = getattr(res, "describe", None)
     body = ("<p>Process and measurement noise chosen on the lunch-break day by maximising the innovation "
             "likelihood (no reference needed); the NIS lines give the chi-square 95 % band "
             "(Bar-Shalom, Li, Kirubarajan 2001).</p>"
-            f"<pre>{html.escape(text() if callable(text) else str(res))}</pre>")
+            f"<pre>{html.escape(res.describe())}</pre>")
     return ReportSection("Noise tuning", body)
 
 
@@ -383,10 +417,6 @@ def _tolerance(mc, model, rec, settings, quick, quiet):
             "P50 and P95 of the maximum SOC error per method, and the current-sensor offset and gain each "
             f"swept against the P95 error for a {100 * study.budget:.0f} % SOC budget.</p>"
             + df_to_html(study.to_frame()) + f"<pre>{html.escape(study.describe())}</pre>")
-    figs = ()
-    try:
-        figs = (("tolerance_study", mc.tolerance_figure(study),
-                 "Monte Carlo tolerance study: maximum SOC error per run and P95 against each swept tolerance"),)
-    except (ValueError, TypeError) as e:  # a figure problem must not lose the study
-        body += f"<p class='note'>figure skipped: {html.escape(str(e))}</p>"
+    figs = (("tolerance_study", mc.tolerance_figure(study),
+             "Monte Carlo tolerance study: maximum SOC error per run and P95 against each swept tolerance"),)
     return study, ReportSection("Tolerance study (Monte Carlo)", body, figs)
