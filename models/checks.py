@@ -63,13 +63,23 @@ class RecordingSummary:
     warnings: tuple[str, ...]
 
 
-def sign_check(current_a, voltage_v, n_steps: int = 50, min_fraction: float = 0.2):
+def sign_check(current_a, voltage_v, n_steps: int = 50, min_fraction: float = 0.2, time_s=None,
+               gap_factor: float = 5.0, exclude=None):
     """Slope ``k`` of ``dV = k dI`` over the largest current steps between consecutive samples.
 
     Parameters
     ----------
     current_a, voltage_v : ndarray (N,)
         Current (A, + = discharge) and terminal voltage (V).
+    time_s : ndarray (N,), optional
+        Sample times, s.  When given, steps across an interval longer than ``gap_factor``
+        median intervals are skipped (across a logging gap the cell relaxed or worked unseen,
+        so the voltage change is not the response to the current step).
+    gap_factor : float
+        See ``time_s``.
+    exclude : ndarray of bool (N,), optional
+        Samples to leave out (spikes): steps into or out of them are skipped, so an outlier
+        cannot pass for a sign error.
     n_steps : int
         At most this many of the largest ``|dI|`` are used.
     min_fraction : float
@@ -88,7 +98,14 @@ def sign_check(current_a, voltage_v, n_steps: int = 50, min_fraction: float = 0.
         return None, 0
     di = np.diff(i)
     dv = np.diff(v)
-    ok = np.isfinite(dv)
+    ok = np.isfinite(dv) & np.isfinite(di)
+    if time_s is not None:
+        dt = np.diff(np.asarray(time_s, dtype=float))
+        if dt.size:
+            ok &= dt <= gap_factor * float(np.median(dt))
+    if exclude is not None:
+        ex = np.asarray(exclude, dtype=bool)
+        ok &= ~(ex[1:] | ex[:-1])
     di, dv = di[ok], dv[ok]
     if di.size == 0:
         return None, 0
@@ -123,7 +140,9 @@ def summarise(rec: Recording, rest_current_a: float = 0.05, rest_min_s: float = 
     longest = max((t[e] - t[s] for s, e in rests), default=0.0)
     meta = rec.metadata or {}
     gaps = tuple((float(a), float(b)) for a, b in meta.get("gaps", ()))
-    slope, n_used = sign_check(i, v)
+    from socfuse.models.plausibility import spike_samples
+
+    slope, n_used = sign_check(i, v, time_s=t, exclude=spike_samples(rec))
     inverted = slope is not None and slope > 0
     warn = []
     if inverted:

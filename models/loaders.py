@@ -18,7 +18,20 @@ Rules (the same for every format):
   canonical name, required when named explicitly.
 - A missing, NaN or non-numeric value in a used column is refused with the file, column and
   row (CSV: data row counted from 1 after the header, and the 1-based line of the file;
-  .mat/Parquet: 1-based row).  Nothing is silently turned into NaN.
+  .mat/Parquet: 1-based row).  Nothing is silently turned into NaN, with one exception: a blank
+  (or NaN) voltage cell is a missing sample (BMS logs drop samples; the filters then predict
+  only) and is counted in ``metadata["voltage_missing"]``; a column with no voltage at all is
+  refused.  Blank current or time cells stay refused (the charge count needs every current).
+- Numbers are ASCII (a digit from another script is refused, not read); a value of magnitude
+  1e9 or more in current, voltage, temperature or ``soc_ref`` (or a time beyond 1e12 s) is
+  refused as no measurement.
+- Damaged CSV files: a data row with fewer fields than the header is refused, except the last
+  line of the file, which a logger killed while writing leaves short: it is dropped and
+  reported in ``metadata["truncated_last_row"]``; so is a last line without a line end whose
+  last field is shorter than every value of that column in the rows before it (a number cut
+  in the middle).  A field over the CSV module's limit (128 KiB) is refused.
+- Packs: ``series_cells`` divides the voltage and ``parallel_cells`` the current, so a pack log
+  can be estimated with a cell model (the cells are assumed balanced).
 - Rows whose time repeats the previous row's time exactly are dropped (the first is kept)
   and counted in ``metadata["duplicates_dropped"]``; time that goes backwards is refused.
 - Intervals longer than ``gap_factor`` (default 5) median sample intervals are reported in
@@ -111,6 +124,11 @@ class ColumnMap:
         or the top-level variables as columns when there is no struct.
     gap_factor : float
         An interval longer than this many median intervals is reported as a gap.
+    soc_ref_unit : {"fraction", "percent"}
+        Unit of the ``soc_ref`` column (percent is divided by 100).
+    series_cells, parallel_cells : int
+        Cells in series and in parallel of the pack the file logs (default 1 and 1: a cell);
+        the voltage is divided by ``series_cells`` and the current by ``parallel_cells``.
     """
 
     time: str | None = None
@@ -133,6 +151,9 @@ class ColumnMap:
     decimal: str = "."
     mat_struct: str | None = None
     gap_factor: float = 5.0
+    soc_ref_unit: str = "fraction"
+    series_cells: int = 1
+    parallel_cells: int = 1
 
     def __post_init__(self) -> None:
         for attr, table in (("time_unit", _TIME_UNITS), ("current_unit", _CURRENT_UNITS),
@@ -164,6 +185,12 @@ class ColumnMap:
             raise RecordingError("time_format applies to time_unit 'iso' only")
         if not (self.gap_factor > 1.0):
             raise RecordingError(f"gap_factor must be > 1, not {self.gap_factor!r}")
+        if str(self.soc_ref_unit).lower() not in ("fraction", "percent"):
+            raise RecordingError(f"soc_ref_unit {self.soc_ref_unit!r} is not one of fraction, percent")
+        for attr in ("series_cells", "parallel_cells"):
+            val = getattr(self, attr)
+            if isinstance(val, bool) or not isinstance(val, (int, np.integer)) or not 1 <= val <= 10000:
+                raise RecordingError(f"{attr} is a whole number of cells 1..10000, not {val!r}")
 
     # resolved source names ------------------------------------------------
     @property
@@ -303,12 +330,20 @@ def _find_header(lines: list[str], wanted: tuple[str, ...], sep: str | None, pat
 
 
 def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
+    try:
+        return _read_csv_text(path, cmap)
+    except csv.Error as e:  # a field over the csv module's limit (128 KiB), a NUL inside quotes, ...
+        raise RecordingError(f"{path}: not a readable CSV file ({e})") from None
+
+
+def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
     raw = path.read_bytes()
     nul = raw.count(b"\x00")
     text = _decode(raw)
     lines = text.splitlines()
     if not text.strip():
         raise RecordingError(f"{path}: the file is empty")
+    ends_with_newline = text.endswith(("\n", "\r"))
     wanted = (cmap.time_col, cmap.current_col, cmap.voltage_col)
     hidx, sep, names, complete = _find_header(lines, wanted, cmap.separator, str(path), cmap.decimal)
     if not complete:
@@ -319,7 +354,9 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
     reader = csv.reader(body, delimiter=sep)
     rows, line_no = [], []
     width = len(names)
+    named = max((c for c, nm in enumerate(names) if nm), default=-1) + 1  # fields up to the last named one
     units_row = None
+    short: tuple[int, int, int] | None = None  # (row index, file line, fields) of the first short row
     for j, rec in enumerate(reader):
         if not "".join(rec).strip():
             continue
@@ -330,19 +367,41 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
         if len(rec) > width and any(f.strip() for f in rec[width:]):
             raise RecordingError(f"{path}: data row {len(rows) + 1} (file line {hidx + 2 + j}) has "
                                  f"{len(rec)} fields, the header has {width}")
-        rec = (rec + [""] * width)[:width]
+        if len(rec) < named and short is None:
+            short = (len(rows), hidx + 2 + j, len(rec))
+        if len(rec) != width:
+            rec = (rec + [""] * width)[:width]
         rows.append(rec)
         line_no.append(hidx + 2 + j)
+    info: dict = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul, "preamble_lines": hidx}
+    if short is not None:
+        k, line, nf = short
+        if k != len(rows) - 1:
+            raise RecordingError(f"{path}: data row {k + 1} (file line {line}) has {nf} fields, the header has "
+                                 f"{width}; the file is damaged")
+        info["truncated_last_row"] = f"file line {line} has {nf} of {width} fields"
+        rows.pop()
+        line_no.pop()
+    elif rows and not ends_with_newline and len(rows) > 1:
+        last = rows[-1]
+        c = max((c for c, f in enumerate(last) if f.strip()), default=-1)
+        if c >= 0:
+            prev = [len(r[c].strip()) for r in rows[-51:-1] if r[c].strip()]
+            if prev and len(last[c].strip()) < min(prev):
+                info["truncated_last_row"] = (f"file line {line_no[-1]} ends without a line end after a short "
+                                              f"field {last[c].strip()!r}")
+                rows.pop()
+                line_no.pop()
     if not rows:
         raise RecordingError(f"{path}: no data rows after the header (file line {hidx + 1})")
-    grid = np.array(rows, dtype=object)
+    columns = list(zip(*rows))
     cols: dict[str, np.ndarray] = {}
     final: dict[int, str] = {}
     used = {cmap.time_col, cmap.current_col, cmap.voltage_col, cmap.temperature, cmap.soc_ref, cmap.ah_counter,
             "temperature_c", "soc_ref"}
     for c, nm in enumerate(names):
         if not nm:
-            if all(not str(v).strip() for v in grid[:, c]):
+            if not "".join(columns[c]).strip():
                 continue  # trailing separator
             nm = f"column_{c + 1}"
         if nm in cols:
@@ -353,10 +412,10 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
             while f"{nm}.{k}" in cols:
                 k += 1
             nm = f"{nm}.{k}"
-        cols[nm] = grid[:, c]
+        col = np.empty(len(rows), dtype=object)
+        col[:] = columns[c]
+        cols[nm] = col
         final[c] = nm
-    info = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul,
-            "preamble_lines": hidx}
     if units_row is not None:
         info["units_row"] = {final[c]: f.strip() for c, f in enumerate(units_row[:width])
                              if c in final and f.strip()}
@@ -469,30 +528,65 @@ def read_table(path, cmap: ColumnMap | None = None) -> RawTable:
 
 
 # ----------------------------------------------------------------------------- conversion
-def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = True) -> np.ndarray | None:
-    """Column ``name`` as float; refuse (or, ``required=False``, give None for) bad values."""
+_MAX_MAGNITUDE = 1e9   # no cell or pack measurement (A, V, degC, fraction) reaches this
+_MAX_TIME_S = 1e12     # about 31,700 years
+
+
+def _non_ascii(a: np.ndarray) -> int | None:
+    """Index of the first cell holding non-ASCII text (a digit of another script), or None."""
+    try:
+        joined = "".join(a.tolist())
+    except TypeError:  # not all strings (Parquet/.mat objects)
+        joined = None
+    if joined is not None:
+        if joined.isascii():
+            return None
+    for k, x in enumerate(a.tolist()):
+        if isinstance(x, str) and not x.isascii():
+            return k
+    return None
+
+
+def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = True,
+             allow_blank: bool = False, limit: float | None = _MAX_MAGNITUDE) -> np.ndarray | None:
+    """Column ``name`` as float; refuse (or, ``required=False``, give None for) bad values.
+
+    ``allow_blank``: blank and NaN cells become NaN (missing samples) instead of being refused;
+    a column with no value at all is still refused.  ``limit``: magnitudes at or above it are
+    refused (None: no limit).
+    """
     import pandas as pd
 
     a = table.columns[name]
-    if a.dtype == object and decimal == ".":
-        try:  # fast path: every cell parses as a finite float
-            vals = a.astype(float)
-        except (ValueError, TypeError):
-            vals = None
-        if vals is not None and np.all(np.isfinite(vals)):
-            return vals
-    if a.dtype.kind in "fiub":
+    vals = None
+    if a.dtype == object:
+        k = _non_ascii(a)
+        if k is not None:
+            if not required:
+                return None
+            raise RecordingError(f"{table.path}: column {name!r} has a non-numeric value {str(a[k]).strip()!r} "
+                                 f"at {table.where(k)} (numbers must be written with ASCII digits)")
+        if decimal == ".":
+            try:  # fast path: every cell parses as a finite float
+                vals = a.astype(float)
+            except (ValueError, TypeError):
+                vals = None
+            if vals is not None and not np.all(np.isfinite(vals)):
+                vals = None
+    if vals is not None:
+        blank = text_bad = np.zeros(vals.size, dtype=bool)
+    elif a.dtype.kind in "fiub":
         vals = a.astype(float)
         text_bad = np.zeros(vals.size, dtype=bool)
-        blank = ~np.isfinite(vals) if a.dtype.kind == "f" else np.zeros(vals.size, dtype=bool)
-        if a.dtype.kind == "f":
-            blank &= ~np.isinf(vals)
+        blank = np.isnan(vals)
     elif a.dtype.kind in "Mm":
         if required:
             raise RecordingError(f"{table.path}: column {name!r} holds dates or durations; "
                                  "for time use the time unit 'iso'")
         return None
     else:
+        if not required and not "".join(str(x) for x in a.tolist()).strip():
+            return None  # an all-blank extra column: nothing to convert
         s = pd.Series(a, dtype=object).map(lambda x: "" if x is None else str(x).strip())
         if decimal == ",":
             s = s.str.replace(",", ".", regex=False)
@@ -501,17 +595,23 @@ def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = Tr
         text_bad = ~np.isfinite(vals) & ~blank
         text_bad &= ~np.isinf(vals)
     inf = np.isinf(vals)
+    with np.errstate(invalid="ignore"):
+        huge = (np.abs(vals) >= limit) & ~inf if limit is not None else np.zeros(vals.size, dtype=bool)
     if not required:
-        if np.any(text_bad | inf):
+        if np.any(text_bad | inf | huge):
             return None
         return vals
-    if np.any(blank):
+    if np.any(blank) and not (allow_blank and not np.all(blank)):
         k = int(np.argmax(blank))
         raise RecordingError(f"{table.path}: column {name!r} has a missing value at {table.where(k)}")
     if np.any(text_bad | inf):
         k = int(np.argmax(text_bad | inf))
         raise RecordingError(f"{table.path}: column {name!r} has a non-numeric value "
                              f"{str(a[k]).strip()!r} at {table.where(k)}")
+    if np.any(huge):
+        k = int(np.argmax(huge))
+        raise RecordingError(f"{table.path}: column {name!r} has the value {vals[k]:.6g} at {table.where(k)}, "
+                             f"beyond any cell or pack measurement (magnitude {limit:g} or more)")
     return vals
 
 
@@ -522,7 +622,13 @@ def _time_seconds(table: RawTable, cmap: ColumnMap) -> tuple[np.ndarray, dict]:
     a = table.columns[name]
     unit = cmap.time_unit.lower()
     if unit not in ("iso", "hms") and a.dtype.kind not in "M":
-        return _numeric(table, name, cmap.decimal) * _TIME_UNITS[unit], {}
+        secs = _numeric(table, name, cmap.decimal, limit=None) * _TIME_UNITS[unit]
+        big = np.abs(secs) > _MAX_TIME_S
+        if np.any(big):
+            k = int(np.argmax(big))
+            raise RecordingError(f"{table.path}: column {name!r} has the time {secs[k]:.6g} s at {table.where(k)}, "
+                                 f"beyond {_MAX_TIME_S:g} s; check --time-unit")
+        return secs, {}
     what = "an elapsed time hh:mm:ss" if unit == "hms" else (
         f"a time in format {cmap.time_format!r}" if cmap.time_format else "an ISO timestamp")
     if a.dtype.kind in "Mm":
@@ -583,13 +689,17 @@ def recording_from_table(table: RawTable, cmap: ColumnMap) -> Recording:
         raise RecordingError(f"{path}: no data rows")
     time_s, tinfo = _time_seconds(table, cmap)
     sign = -1.0 if cmap.discharge_negative else 1.0
-    current_a = _numeric(table, cmap.current_col, cmap.decimal) * _CURRENT_UNITS[cmap.current_unit.lower()] * sign + 0.0
-    voltage_v = _numeric(table, cmap.voltage_col, cmap.decimal) * _VOLTAGE_UNITS[cmap.voltage_unit.lower()]
+    current_a = (_numeric(table, cmap.current_col, cmap.decimal) * _CURRENT_UNITS[cmap.current_unit.lower()]
+                 * sign / cmap.parallel_cells + 0.0)
+    voltage_v = (_numeric(table, cmap.voltage_col, cmap.decimal, allow_blank=True)
+                 * _VOLTAGE_UNITS[cmap.voltage_unit.lower()] / cmap.series_cells)
     temp_name = cmap.temperature or ("temperature_c" if "temperature_c" in table.columns else None)
     temperature_c = None if temp_name is None else _numeric(table, temp_name, cmap.decimal)
     soc_name = cmap.soc_ref or ("soc_ref" if "soc_ref" in table.columns and cmap.ref_capacity_ah is None
                                 else None)
     soc_ref = None if soc_name is None else _numeric(table, soc_name, cmap.decimal)
+    if soc_ref is not None and cmap.soc_ref_unit.lower() == "percent":
+        soc_ref = soc_ref / 100.0
     soc_source = None if soc_name is None else f"column {soc_name}"
     ah = None
     if cmap.ah_counter is not None:
@@ -633,6 +743,7 @@ def recording_from_table(table: RawTable, cmap: ColumnMap) -> Recording:
         "duplicates_dropped": n_dup,
         "duplicate_rows": [table.where(int(k)) for k in np.flatnonzero(~keep)[:20]],
         "gaps": find_gaps(time_s[keep], cmap.gap_factor),
+        "voltage_missing": int(np.count_nonzero(np.isnan(voltage_v[keep]))),
         "extras": extras,
         "soc_ref_source": soc_source,
         "temperature_column": temp_name,

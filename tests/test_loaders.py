@@ -59,8 +59,42 @@ CASES = [
     ("canonical", _text("a.csv", CANON), {}, dict(time_s=OK_T, current_a=OK_I, voltage_v=OK_V)),
     ("decreasing-time", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n2,1,3.7\n1,1,3.7\n"), {},
      ("error", ["a.csv", "'time_s'", "decreases", "data row 3 (file line 4)"])),
-    ("missing-value", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,\n2,1,3.6\n"), {},
-     ("error", ["'voltage_v'", "missing value", "data row 2 (file line 3)"])),
+    # a blank voltage cell is a missing sample (predict-only), counted; blank current stays refused
+    ("missing-voltage", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,\n2,1,3.6\n"), {},
+     dict(voltage_v=[3.7, np.nan, 3.6], meta=dict(voltage_missing=1))),
+    ("missing-current", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,,3.7\n2,1,3.6\n"), {},
+     ("error", ["'current_a'", "missing value", "data row 2 (file line 3)"])),
+    ("missing-time", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n,1,3.7\n2,1,3.6\n"), {},
+     ("error", ["'time_s'", "missing value", "data row 2 (file line 3)"])),
+    ("no-voltage-at-all", _text("a.csv", "time_s,current_a,voltage_v\n0,1,\n1,1,\n2,1,\n"), {},
+     ("error", ["'voltage_v'", "missing value", "data row 1"])),
+    # damaged files: a short last line (a logger killed mid-write) is dropped and reported
+    ("truncated-last-line-fields", _text("a.csv", "time_s,current_a,voltage_v,soc_ref\n0,1,3.7,0.99\n"
+                                                  "1,1,3.7,0.98\n2,1,3.6,0.97\n3,1,3"), {},
+     dict(time_s=OK_T, soc_ref=[0.99, 0.98, 0.97],
+          meta=dict(truncated_last_row="file line 5 has 3 of 4 fields", rows_read=3))),
+    ("truncated-last-field", _text("a.csv", "time_s,current_a,voltage_v,soc_ref\n0,1,3.7,0.990000\n"
+                                            "1,1,3.7,0.980000\n2,1,3.6,0.970000\n3,1,3.6,0"), {},
+     dict(time_s=OK_T, soc_ref=[0.99, 0.98, 0.97], meta=dict(rows_read=3))),
+    ("complete-last-line-no-newline", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.70\n1,1,3.70\n"
+                                                     "2,1,3.60"), {},
+     dict(time_s=OK_T, voltage_v=[3.7, 3.7, 3.6])),
+    ("short-middle-row", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1\n2,1,3.6\n"), {},
+     ("error", ["a.csv", "data row 2 (file line 3) has 2 fields", "damaged"])),
+    ("huge-field", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,\"" + "9" * 140000 + "\"\n"), {},
+     ("error", ["a.csv", "not a readable CSV file", "field larger than field limit"])),
+    ("voltage-1e308", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,1e308\n2,1,3.6\n"), {},
+     ("error", ["'voltage_v'", "1e+308", "data row 2 (file line 3)", "beyond any cell or pack measurement"])),
+    # U+0663 ARABIC-INDIC DIGIT THREE: Python's float() reads it; a logger never writes it
+    ("unicode-digits", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,\u0663.7\n2,1,3.6\n"), {},
+     ("error", ["'voltage_v'", "non-numeric", "data row 2 (file line 3)", "ASCII"])),
+    ("time-beyond-range", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1e15,1,3.7\n"), {},
+     ("error", ["'time_s'", "beyond 1e+12 s", "--time-unit"])),
+    # 97 % is 0.97 (common practice, no source); a 4s2p pack: cell voltage = pack / 4, current = pack / 2
+    ("soc-ref-percent", _text("a.csv", "time_s,current_a,voltage_v,soc_ref\n0,1,3.7,99\n1,1,3.7,98\n"), 
+     dict(soc_ref_unit="percent"), dict(soc_ref=[0.99, 0.98])),
+    ("pack-4s2p", _text("a.csv", "time_s,current_a,voltage_v\n0,2,14.8\n1,3,14.6\n2,-1,15.2\n"),
+     dict(series_cells=4, parallel_cells=2), dict(current_a=[1.0, 1.5, -0.5], voltage_v=[3.7, 3.65, 3.8])),
     ("nan-text", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,NaN,3.6\n"), {},
      ("error", ["'current_a'", "missing value", "data row 2"])),
     ("non-numeric", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,1,3.6\n2,abc,3.6\n"), {},
@@ -123,9 +157,12 @@ CASES = [
     ("ah-counter-discharge-positive", _text("a.csv", "time_s,current_a,voltage_v,ah_out\n0,30,3.7,0\n"
                                                      "3600,30,3.5,30\n"),
      dict(ah_counter="ah_out", ref_capacity_ah=100.0, ref_soc0=1.0), dict(soc_ref=[1.0, 0.70])),
-    ("mat-nan-row", _mat({"Time": OK_T, "Current": OK_I, "Voltage": [3.7, 3.6, np.nan]}),
+    ("mat-nan-voltage", _mat({"Time": OK_T, "Current": OK_I, "Voltage": [3.7, 3.6, np.nan]}),
      dict(time="Time", current="Current", voltage="Voltage"),
-     ("error", ["'Voltage'", "missing value", "row 3"])),
+     dict(voltage_v=[3.7, 3.6, np.nan], meta=dict(voltage_missing=1))),
+    ("mat-nan-current", _mat({"Time": OK_T, "Current": [1.0, np.nan, 1.0], "Voltage": OK_V}),
+     dict(time="Time", current="Current", voltage="Voltage"),
+     ("error", ["'Current'", "missing value", "row 2"])),
     ("mat-missing-field", _mat({"Time": OK_T, "Current": OK_I, "Volt": OK_V}),
      dict(time="Time", current="Current", voltage="Voltage"),
      ("error", ["'Voltage' not found", "'Time', 'Current', 'Volt'"])),
@@ -206,6 +243,10 @@ def test_mapping_options_refused_when_ambiguous_or_unknown(tmp_path):
         ColumnMap(current_unit="kA")
     with pytest.raises(RecordingError, match="unknown preset"):
         make_column_map(preset="nope")
+    with pytest.raises(RecordingError, match="series_cells is a whole number"):
+        ColumnMap(series_cells=0)
+    with pytest.raises(RecordingError, match="soc_ref_unit 'permille'"):
+        ColumnMap(soc_ref_unit="permille")
     # a later option overrides the preset; None leaves it alone
     m = make_column_map(preset="panasonic-18650pf", discharge_negative=False, voltage=None)
     assert m.discharge_negative is False and m.voltage == "Voltage"

@@ -1,0 +1,383 @@
+"""Is this recording plausible for this cell model?  Unit, sign and range checks before any estimate.
+
+The loaders convert what the user declared; they cannot know that a current column logged in mA
+was declared as A, that a 4-cell pack voltage is fed to a cell model, or that ``soc_ref`` is in
+percent.  An estimator then answers confidently and wrongly.  :func:`check_against_model` looks
+at a loaded :class:`~models.recording.Recording` beside a :class:`~models.thevenin.CellModel`
+(or beside a generic lithium-ion cell when no model exists yet, as in identification) and
+returns a list of :class:`Finding` objects; :func:`require_plausible` raises
+:class:`ImplausibleInputError` on the first finding of severity ``"error"``, naming the column,
+what was seen and the option that fixes it.
+
+Checks (each finding names the option that fixes it):
+
+- ``voltage_v``: the 1st..99th percentile band of the finite samples against the model's voltage
+  window ``v_min_v .. v_max_v`` (a generic 2.0..4.5 V without a model).  About 1000 times too
+  high and inside the window once divided by 1000: millivolts (``--voltage-unit mV``).  Inside
+  the window once divided by an integer ``N >= 2``: a pack of ``N`` cells in series
+  (``--series-cells N``).  Anything else far outside: the wrong column or the wrong model.
+- ``current_a``: the 99.9th percentile of ``|I|`` against the capacity (``C`` = capacity in Ah
+  read as A).  Above 50 C and plausible once divided by 1000: milliamps (``--current-unit mA``).
+- charge throughput: the largest one-way run of the cumulative charge (the largest rise, or fall,
+  of ``Q(t) = integral of I dt`` between two times) cannot exceed the capacity of one cell by
+  much; allowed: 1.5 capacity plus 1 % of C per hour of log (room for a current-sensor offset on
+  long logs; BMS-grade offsets are about 0.5 % of 1C, DESIGN.md section 7).  Beyond it: the
+  current is scaled (mA, or a pack with cells in parallel: ``--parallel-cells M``).
+- sign: with current positive on discharge the terminal voltage drops when the discharge
+  current steps up (``dV = -R0 dI``, Thevenin model; Hu, Li and Peng, J. Power Sources 198
+  (2012)), and falls as charge is drawn (the OCV falls with SOC).  The step slope is measured
+  with spikes removed (:func:`spike_samples`); a positive slope larger than a quarter of the model's
+  R0, or (when the current never steps) a voltage that rises with drawn charge over more than
+  20 % of the capacity, is reported as an inverted sign (``--discharge-negative`` /
+  ``--discharge-positive``).
+- ``soc_ref``: values above 1.5 and at most 100.5 are percent (``--soc-ref-unit percent``);
+  other values outside -0.05..1.05 are refused.
+- spikes: isolated samples far from their neighbours (a 5-sample running median) in current or
+  voltage are outliers, not a sign or unit error; they are refused (they would be integrated as
+  charge) unless ``--trust-input``.
+- missing voltage samples and a dropped truncated last line are reported as warnings.
+
+Every ``"error"`` finding can be overridden with ``--trust-input`` (``trust=True``).
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from socfuse.models.recording import Recording, RecordingError
+
+__all__ = ["Finding", "ImplausibleInputError", "check_against_model", "require_plausible", "spike_samples",
+           "GENERIC_CELL_WINDOW_V", "TRUST_OPTION"]
+
+#: Voltage window assumed for a lithium-ion cell when no model exists yet (identification):
+#: LFP rests at about 2.5..3.65 V, NMC/LCO about 2.5..4.2 V (common practice, no source).
+GENERIC_CELL_WINDOW_V = (2.0, 4.5)
+#: The command-line option that lets an implausible recording through.
+TRUST_OPTION = "--trust-input"
+
+_MAX_C_RATE = 50.0          # |I| above this many C (99.9th percentile) is not a cell current
+_SPIKE_C_RATE = 10.0        # a current spike departs from its neighbours by more than this many C
+_SPIKE_V = 1.0              # a voltage spike departs from its neighbours by more than this, V per cell
+
+
+class ImplausibleInputError(RecordingError):
+    """The recording does not fit the model: a likely unit, sign or column mistake."""
+
+
+@dataclass(frozen=True)
+class Finding:
+    """One plausibility finding.
+
+    Parameters
+    ----------
+    code : str
+        Short identifier (``"voltage-mv"``, ``"voltage-pack"``, ``"current-ma"``,
+        ``"charge-throughput"``, ``"sign-inverted"``, ``"soc-ref-percent"``, ``"soc-ref-range"``,
+        ``"spikes"``, ``"voltage-range"``, ``"current-range"``, ``"voltage-missing"``,
+        ``"truncated-row"``).
+    column : str
+        Canonical column concerned (``current_a``, ``voltage_v``, ``soc_ref``).
+    severity : {"error", "warning"}
+        An error stops a command unless the input is trusted.
+    seen : str
+        What was seen, with units.
+    fix : str
+        The option (or action) that fixes it.
+    """
+
+    code: str
+    column: str
+    severity: str
+    seen: str
+    fix: str
+
+    def message(self, source: str = "") -> str:
+        """One line: ``source: column: seen; fix``."""
+        head = f"{source}: " if source else ""
+        return f"{head}{self.column}: {self.seen}; {self.fix}"
+
+
+def _spikes(x: np.ndarray, floor: float) -> np.ndarray:
+    """Spike samples of ``x``: departures above ``floor`` and 20 times the signal's own 99th-percentile
+    departure from its running median; none when they are not rare (more than 0.5 % of samples)."""
+    a = np.asarray(x, dtype=float)
+    if a.size < 5:
+        return np.zeros(a.size, dtype=bool)
+    ok = np.isfinite(a)
+    b = np.where(ok, a, np.interp(np.arange(a.size), np.flatnonzero(ok), a[ok])) if 0 < ok.sum() < a.size else a
+    if not ok.any():
+        return np.zeros(a.size, dtype=bool)
+    pad = np.concatenate([np.full(2, b[0]), b, np.full(2, b[-1])])
+    dev = np.abs(b - np.median(np.lib.stride_tricks.sliding_window_view(pad, 5), axis=1))
+    scale = float(np.percentile(dev, 99))
+    mask = (dev > max(floor, 20.0 * scale)) & ok
+    if mask.sum() > max(3, 0.005 * a.size):
+        return np.zeros(a.size, dtype=bool)
+    return mask
+
+
+def spike_samples(rec: Recording, model=None) -> np.ndarray:
+    """Samples of ``rec`` that are isolated current or voltage outliers (see :func:`check_against_model`).
+
+    Parameters
+    ----------
+    rec : Recording
+    model : CellModel, optional
+        Sets the current floor (10 C); without it 5 times the 99th percentile of ``|I|`` (at least 1 A).
+
+    Returns
+    -------
+    ndarray of bool (N,)
+    """
+    i_spk, v_spk = _spike_masks(rec, model)
+    return i_spk | v_spk
+
+
+def _spike_masks(rec: Recording, model=None):
+    v_all = rec.voltage_v
+    fin_v = np.isfinite(v_all)
+    hi = float(model.v_max_v) if model is not None else GENERIC_CELL_WINDOW_V[1]
+    cap = float(model.capacity_ah) if model is not None else None
+    v_med = float(np.median(v_all[fin_v])) if fin_v.any() else 0.0
+    cells = max(1.0, round(v_med / hi)) if v_med > hi else 1.0
+    i_floor = _SPIKE_C_RATE * cap if cap else 5.0 * max(1.0, float(np.percentile(np.abs(rec.current_a), 99)))
+    return _spikes(rec.current_a, i_floor), _spikes(v_all, _SPIKE_V * cells)
+
+
+def _rows(mask, rec: Recording, k: int = 3) -> str:
+    idx = np.flatnonzero(mask)[:k]
+    return ", ".join(f"t={rec.time_s[j]:.6g} s" for j in idx)
+
+
+def _charge_ah(t: np.ndarray, i: np.ndarray, gap_factor: float = 5.0) -> np.ndarray:
+    """Cumulative charge (Ah, + = discharge) by the interval-mean rule, counting nothing over
+    logging gaps (intervals longer than ``gap_factor`` median intervals: the current is unknown)."""
+    dt = np.diff(t)
+    if dt.size == 0:
+        return np.zeros(t.size)
+    dq = 0.5 * (i[1:] + i[:-1]) * dt
+    dq[dt > gap_factor * float(np.median(dt))] = 0.0
+    return np.concatenate([[0.0], np.cumsum(dq)]) / 3600.0
+
+
+def _max_run(t: np.ndarray, i: np.ndarray, gap_factor: float = 5.0) -> tuple[float, float]:
+    """Largest rise and largest fall of the cumulative charge between two times of one stretch
+    without logging gaps (across a gap the cell may have been charged or discharged unseen), Ah."""
+    dt = np.diff(t)
+    if dt.size == 0:
+        return 0.0, 0.0
+    cuts = np.flatnonzero(dt > gap_factor * float(np.median(dt))) + 1
+    rise = fall = 0.0
+    for a, b in zip(np.concatenate([[0], cuts]), np.concatenate([cuts, [t.size]])):
+        if b - a < 2:
+            continue
+        q = _charge_ah(t[a:b], i[a:b], np.inf)
+        rise = max(rise, float(np.max(q - np.minimum.accumulate(q))))
+        fall = max(fall, float(np.max(np.maximum.accumulate(q) - q)))
+    return rise, fall
+
+
+def _voltage_findings(v: np.ndarray, lo: float, hi: float, what: str) -> list[Finding]:
+    out: list[Finding] = []
+    if v.size == 0:
+        return out
+    p1, p50, p99 = (float(x) for x in np.percentile(v, [1, 50, 99]))
+    margin_lo, margin_hi = 1.0, 0.5  # under load a cell dips well below its cut-off, rises less above
+    if p1 >= lo - margin_lo and p99 <= hi + margin_hi:
+        return out
+    seen = f"median {p50:.5g} V (1..99 % {p1:.5g}..{p99:.5g} V) against {what} {lo:g}..{hi:g} V"
+    if p50 > 100 and lo - margin_lo <= p1 / 1000 and p99 / 1000 <= hi + margin_hi:
+        return [Finding("voltage-mv", "voltage_v", "error", f"looks like millivolts: {seen}",
+                        "load it with --voltage-unit mV")]
+    if p50 > hi:
+        for n in range(2, 1001):
+            if p1 / n >= lo - margin_lo and p99 / n <= hi + margin_hi and lo <= p50 / n <= hi:
+                return [Finding("voltage-pack", "voltage_v", "error",
+                                f"looks like a pack of about {n} cells in series: {seen}",
+                                f"give the cell count with --series-cells {n} (or a cell voltage column)")]
+            if p99 / n < lo - margin_lo:
+                break
+    return [Finding("voltage-range", "voltage_v", "error", f"outside the cell's range: {seen}",
+                    "check --voltage-col, --voltage-unit and the model")]
+
+
+def _sign_findings(rec: Recording, keep: np.ndarray, r0_ohm: float | None, capacity_ah: float | None,
+                   negative_declared: bool) -> list[Finding]:
+    from socfuse.models.checks import sign_check
+
+    slope, n_used = sign_check(rec.current_a, rec.voltage_v, time_s=rec.time_s, exclude=~keep)
+    t = rec.time_s[keep]
+    i = rec.current_a[keep]
+    v = rec.voltage_v[keep]
+    fix = ("the file may log discharge as positive: drop --discharge-negative (or use --discharge-positive)"
+           if negative_declared else "if the file logs discharge as negative, use --discharge-negative")
+    if slope is not None and n_used >= 3:
+        floor = 0.25 * r0_ohm if r0_ohm else 1e-4
+        if slope > floor:
+            return [Finding("sign-inverted", "current_a", "error",
+                            f"sign looks inverted: the voltage rises when the discharge current rises "
+                            f"(dV/dI = {slope * 1e3:+.1f} mOhm over {n_used} steps)", fix)]
+        if slope < -floor:
+            return []
+    # no decisive steps: the voltage should fall as charge is drawn
+    if t.size < 2:
+        return []
+    q = _charge_ah(t, i)
+    fin = np.isfinite(v)
+    if fin.sum() < 10:
+        return []
+    span = float(np.ptp(q[fin]))
+    if span < (0.2 * capacity_ah if capacity_ah else 1e-3) or np.ptp(v[fin]) == 0:
+        return []
+    c = float(np.corrcoef(q[fin], v[fin])[0, 1])
+    if c > (0.5 if capacity_ah else 0.8):
+        return [Finding("sign-inverted", "current_a", "error",
+                        f"sign looks inverted: the voltage rises as discharge charge is drawn "
+                        f"(correlation {c:+.2f} over {float(np.ptp(q[fin])):.3g} Ah)", fix)]
+    return []
+
+
+def check_against_model(rec: Recording, model=None) -> list[Finding]:
+    """Plausibility findings for ``rec`` against ``model`` (module docstring).
+
+    Parameters
+    ----------
+    rec : Recording
+        Loaded recording (SI units, current positive on discharge).
+    model : CellModel, optional
+        The cell model the recording will be estimated with; None = a generic lithium-ion cell
+        (:data:`GENERIC_CELL_WINDOW_V`, no capacity checks), for identification inputs.
+
+    Returns
+    -------
+    list of Finding
+        Errors first, then warnings; empty when nothing looks wrong.
+    """
+    findings: list[Finding] = []
+    meta = rec.metadata or {}
+    mapping = meta.get("mapping") or {}
+    negative_declared = bool(mapping.get("discharge_negative", False))
+    v_all = rec.voltage_v
+    fin_v = np.isfinite(v_all)
+    if model is not None:
+        lo, hi = float(model.v_min_v), float(model.v_max_v)
+        ocv = np.asarray(model.ocv.ocv_v, dtype=float)
+        lo, hi = min(lo, float(np.min(ocv))), max(hi, float(np.max(ocv)))
+        what = f"the cell model{(' ' + repr(model.name)) if model.name else ''}"
+        cap = float(model.capacity_ah)
+        try:
+            r0 = float(np.median(np.asarray(model.r0_ohm.at(np.linspace(0.2, 0.8, 7), 25.0), dtype=float)))
+        except (ValueError, TypeError):
+            r0 = None
+    else:
+        lo, hi = GENERIC_CELL_WINDOW_V
+        what = "a lithium-ion cell"
+        cap, r0 = None, None
+
+    # spikes first: they must not drive the unit and sign checks
+    i_spk, v_spk = _spike_masks(rec, model)
+    spikes = i_spk | v_spk
+    keep = ~spikes
+    if spikes.any():
+        parts = []
+        if i_spk.any():
+            big = float(np.max(np.abs(rec.current_a[i_spk])))
+            parts.append(f"{int(i_spk.sum())} current spike(s) up to {big:.4g} A ({_rows(i_spk, rec)})")
+        if v_spk.any():
+            big = float(np.max(np.abs(v_all[v_spk])))
+            parts.append(f"{int(v_spk.sum())} voltage spike(s) up to {big:.4g} V ({_rows(v_spk, rec)})")
+        col = "current_a" if i_spk.any() else "voltage_v"
+        findings.append(Finding("spikes", col, "error",
+                                "isolated outliers, not a unit or sign error: " + "; ".join(parts),
+                                f"remove them from the file (they would be counted as charge) or use {TRUST_OPTION}"))
+
+    v = v_all[fin_v & keep]
+    unit_v = _voltage_findings(v, lo, hi, what)
+    findings += unit_v
+
+    i = rec.current_a[keep]
+    if cap is not None and i.size:
+        p999 = float(np.percentile(np.abs(i), 99.9))
+        if p999 > _MAX_C_RATE * cap:
+            seen = (f"99.9 % of |I| up to {p999:.5g} A = {p999 / cap:.4g} C for a {cap:.4g} Ah cell "
+                    f"(above {_MAX_C_RATE:g} C)")
+            if p999 / 1000 <= _MAX_C_RATE * cap:
+                findings.append(Finding("current-ma", "current_a", "error", f"looks like milliamps: {seen}",
+                                        "load it with --current-unit mA"))
+            else:
+                findings.append(Finding("current-range", "current_a", "error", f"not a cell current: {seen}",
+                                        "check --current-col and --current-unit"))
+    if cap is not None and rec.n >= 2 and not any(f.code.startswith("current-") for f in findings):
+        t = rec.time_s[keep]
+        if t.size >= 2:
+            rise, fall = _max_run(t, i)
+            hours = float(t[-1] - t[0]) / 3600.0
+            allowed = 1.5 * cap + 0.01 * cap * hours
+            worst = max(rise, fall)
+            if worst > allowed:
+                ratio = worst / cap
+                way = "discharged" if rise >= fall else "charged"
+                fix = ("if the log is of a pack with M cells in parallel, give --parallel-cells M; "
+                       "if the current is in mA, --current-unit mA")
+                findings.append(Finding("charge-throughput", "current_a", "error",
+                                        f"{worst:.4g} Ah {way} in one run, {ratio:.3g} times the "
+                                        f"{cap:.4g} Ah capacity (at most {allowed:.3g} Ah fits one cell)", fix))
+
+    if not unit_v and not any(f.code in ("current-ma", "current-range") for f in findings):
+        findings += _sign_findings(rec, keep, r0, cap, negative_declared)
+
+    if rec.soc_ref is not None:
+        s = rec.soc_ref[np.isfinite(rec.soc_ref)]
+        if s.size:
+            smax, smin = float(s.max()), float(s.min())
+            if 1.5 < smax <= 100.5 and smin >= -5.0:
+                findings.append(Finding("soc-ref-percent", "soc_ref", "error",
+                                        f"looks like percent: values {smin:.4g}..{smax:.4g} for a fraction 0..1",
+                                        "load it with --soc-ref-unit percent"))
+            elif smax > 1.05 or smin < -0.05:
+                findings.append(Finding("soc-ref-range", "soc_ref", "error",
+                                        f"values {smin:.4g}..{smax:.4g} outside 0..1",
+                                        "check --soc-ref-col (soc_ref is a fraction 0..1)"))
+
+    n_missing = int(np.count_nonzero(~fin_v))
+    if n_missing:
+        findings.append(Finding("voltage-missing", "voltage_v", "warning",
+                                f"{n_missing} of {rec.n} samples missing (blank cells); the filters predict "
+                                "only there", "none needed"))
+    dropped = meta.get("truncated_last_row")
+    if dropped:
+        findings.append(Finding("truncated-row", "(file)", "warning",
+                                f"the last line looked truncated and was dropped: {dropped}", "none needed"))
+    findings.sort(key=lambda f: f.severity != "error")
+    return findings
+
+
+def require_plausible(rec: Recording, model=None, *, trust: bool = False, source: str | None = None):
+    """Run :func:`check_against_model`; raise on the first error unless ``trust``.
+
+    Parameters
+    ----------
+    rec : Recording
+    model : CellModel, optional
+    trust : bool
+        Let errors through (they are returned with the warnings).
+    source : str, optional
+        Name used in the message (default: the recording's source file).
+
+    Returns
+    -------
+    list of Finding
+        All findings (the warnings, and the errors when ``trust``).
+
+    Raises
+    ------
+    ImplausibleInputError
+        One line: the source, the column, what was seen and the option that fixes it.
+    """
+    findings = check_against_model(rec, model)
+    src = source if source is not None else str((rec.metadata or {}).get("source", rec.name))
+    errors = [f for f in findings if f.severity == "error"]
+    if errors and not trust:
+        raise ImplausibleInputError(errors[0].message(src) + f" (or {TRUST_OPTION} to use it as it is)")
+    return findings
