@@ -78,6 +78,10 @@ class BenchResult:
     errors: dict = field(default_factory=dict)
     elapsed_s: float = 0.0
 
+    def to_frame(self) -> pd.DataFrame:
+        """The summary table (one row per run, the ``summary.csv`` columns) as a new DataFrame."""
+        return self.summary.copy()
+
 
 def _estimate(model, rec, method, settings, soc0):
     from socfuse.estimator.filters.run import estimate
