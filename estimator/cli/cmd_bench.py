@@ -95,7 +95,8 @@ def run(args) -> int:
             bounds[main] = (rec.time_s, _bound_sigma(bmod, model, rec, settings))
     except (StopIteration, ValueError, ArithmeticError, AttributeError, TypeError):
         bounds = {}
-    files = write_report(out, res, model, settings=settings, main_recording=main, bounds=bounds)
+    files = write_report(out, res, model, settings=settings, main_recording=main, bounds=bounds,
+                         recordings=recs)
     print(format_summary(res.summary))
     for k, v in res.errors.items():
         print(f"failed: {' / '.join(k)}: {v}")

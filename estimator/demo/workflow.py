@@ -375,7 +375,8 @@ def _step_report(state):
                        for n, dt, s in steps) + "</table>")
     rep = write_report(state["stage"], state["bench"], state["model"], settings=state["settings"],
                        title="socfuse demo: demo cell C48 delivery days", main_recording=MAIN_DAY,
-                       bounds=state["bounds"], sections=state["sections"], intro_html=intro)
+                       bounds=state["bounds"], sections=state["sections"], intro_html=intro,
+                       recordings=state["recs"])
     state["files"].update({"report.html": rep.html, "summary.csv": rep.summary_csv})
     return {}, f"({len(rep.pngs)} figures)"
 
