@@ -197,8 +197,12 @@ def pan_case(root: Path, temp: str, cache: Path) -> Case:
     return case
 
 
-def physics_cases(cache: Path) -> tuple[list, str]:
-    """Cases from datasets/physics.py (PyBaMM), or [] and the reason."""
+def physics_cases(cache: Path, short: bool = False) -> tuple[list, str]:
+    """Cases from datasets/physics.py (PyBaMM; cached by that module), or [] and the reason.
+
+    Identify from the C/20 and pulse tests, tune on ``drive_1``, test ``drive_1`` .. ``drive_3``
+    (``drive_1`` marked tuned-on).  ``short``: the generator's short versions (the tests use them).
+    """
     path = REPO / "datasets" / "physics.py"
     if not path.is_file():
         return [], "datasets/physics.py is not in the repository yet"
@@ -206,46 +210,18 @@ def physics_cases(cache: Path) -> tuple[list, str]:
 
     spec = importlib.util.spec_from_file_location("socfuse_physics_datasets", path)
     mod = importlib.util.module_from_spec(spec)
-    try:
-        spec.loader.exec_module(mod)
-    except Exception as e:  # the generator is someone else's module; report, do not hide
-        return [], f"datasets/physics.py failed to import: {type(e).__name__}: {e}"
-    gen = getattr(mod, "generate_physics_data", None) or getattr(mod, "generate", None)
-    if gen is None:
-        return [], "datasets/physics.py has no generate_physics_data()"
+    spec.loader.exec_module(mod)
     cases = []
-    for cell in ("nmc", "lfp"):
-        out = cache / f"physics_{cell}"
+    for name, cell, what in (("nmc", "chen2020_nmc", "PyBaMM Chen2020 NMC811 (Chen et al. 2020)"),
+                             ("lfp", "prada2013_lfp", "PyBaMM Prada2013 LFP (Prada et al. 2013)")):
         try:
-            files = gen(out, cell=cell) if "cell" in gen.__code__.co_varnames else gen(out)
-        except TypeError:
-            files = gen(out)
-        files = _physics_files(out, files, cell)
-        if files is None:
-            return [], f"datasets/physics.py: could not find the {cell} files it wrote under {out}"
-        c20, pulse, dyn = files
-        tests = [TestRec(p.stem, p, "10 Hz", tuned_on=(j == 0)) for j, p in enumerate(dyn)]
-        cases.append(Case(cell, f"PyBaMM {'Chen2020 NMC811' if cell == 'nmc' else 'Prada2013 LFP'}",
-                          ["--ocv-test", c20, "--pulse-test", pulse], [tests[0]], tests))
+            pc = mod.generate(cell, short=short, log=lambda m: print(f"  physics: {m}", file=sys.stderr, flush=True))
+        except ImportError as e:
+            return [], f"PyBaMM not available ({e})"
+        tests = [TestRec(d, pc.path(d), "10 Hz", tuned_on=(d == "drive_1")) for d in ("drive_1", "drive_2", "drive_3")]
+        cases.append(Case(name + ("-short" if short else ""), what + (" [short]" if short else ""),
+                          ["--ocv-test", pc.path("c20"), "--pulse-test", pc.path("pulse")], [tests[0]], tests))
     return cases, ""
-
-
-def _physics_files(out: Path, files, cell: str):
-    """(c20, pulse, [dynamic...]) from what the generator returned or wrote."""
-    cands = []
-    if isinstance(files, dict):
-        cands = [Path(v) for v in files.values() if isinstance(v, (str, Path))]
-    elif isinstance(files, (list, tuple)):
-        cands = [Path(v) for v in files if isinstance(v, (str, Path))]
-    if not cands:
-        cands = sorted(Path(out).rglob("*.csv"))
-    cands = [p for p in cands if p.suffix in (".csv", ".parquet") and (cell in p.name.lower() or len(cands) < 8)]
-    c20 = [p for p in cands if "c20" in p.name.lower() or "ocv" in p.name.lower()]
-    pulse = [p for p in cands if "pulse" in p.name.lower() or "hppc" in p.name.lower()]
-    dyn = [p for p in cands if p not in c20 and p not in pulse]
-    if not (c20 and pulse and dyn):
-        return None
-    return c20[0], pulse[0], sorted(dyn)
 
 
 # ============================================================================ derived recordings
@@ -463,6 +439,8 @@ def main(argv=None) -> int:
                     help="folder for intermediate files (default ~/.cache/socfuse/generalisation)")
     ap.add_argument("--fresh", action="store_true", help="delete the cached files of the chosen cases first")
     ap.add_argument("--verbose", action="store_true", help="print each socfuse command's exit code to stderr")
+    ap.add_argument("--physics-short", action="store_true",
+                    help="physics cells: the generator's short versions (15-25 min drives)")
     ap.add_argument("--json", default=None, help="also write the rows to this JSON file")
     a = ap.parse_args(argv)
     cache = Path(a.cache)
@@ -485,10 +463,10 @@ def main(argv=None) -> int:
         else:
             ap.error(f"unknown case {name}")
     if any(n in wanted for n in ("nmc", "lfp")):
-        phys, why = physics_cases(cache)
+        phys, why = physics_cases(cache, a.physics_short)
         if why:
             notes.append(f"physics cases skipped: {why}")
-        cases += [c for c in phys if c.name in wanted]
+        cases += [c for c in phys if c.name.split("-")[0] in wanted]
     rows = []
     for case in cases:
         if a.fresh:

@@ -26,14 +26,15 @@ def test_tune_writes_filter_json(files, capsys):
     out = files / "filter.json"
     code = main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out),
                  "--params", "voltage_noise_v", "current_noise_a", "--max-evaluations", "40", "--quiet"])
-    text = capsys.readouterr().out
+    cap = capsys.readouterr()
+    text = cap.out
     assert code == 0
     assert json.loads(out.read_text())["schema"] == FILTER_SCHEMA
     tuned = load_settings(out)
     # the simulated voltage noise is 4 mV (ekf_cases.simulated_recording): the tuned value is near it
     assert 0.004 / 1.5 < tuned.voltage_noise_v < 0.004 * 1.5
     assert "voltage_noise_v" in text and "mean NIS" in text and "log-likelihood" in text
-    assert SAFETY_NOTE in text
+    assert SAFETY_NOTE in cap.err  # cautions go to stderr (DESIGN.md section 4)
     # never overwrite a user's file
     before = out.read_text()
     assert main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out)]) == 2

@@ -1,16 +1,21 @@
 """Noise tuning by innovation likelihood and by SOC error under a NIS constraint."""
 from __future__ import annotations
 
+import dataclasses
+
 import numpy as np
 import pytest
 from scipy import stats
 
 from ekf_cases import drive_profile
-from socfuse.estimator.filters.settings import default_settings
+from socfuse.estimator.filters.settings import FilterSettings, default_settings
 from socfuse.estimator.analysis.tuning import TuningError, innovation_nll, tune
 from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
 
 SIGMA_V = 0.005  # true voltage-sensor noise, V
+# the filter's model is the simulator's: no model-error state, no capacity or resistance error terms
+EXACT_MODEL = {k: 0.0 for k in ("model_error_v", "capacity_error_frac", "resistance_error_ohm")
+               if k in {f.name for f in dataclasses.fields(FilterSettings)}}
 SIGMA_I = 0.2    # true current-sensor noise, A
 
 
@@ -34,7 +39,7 @@ def data():
         recs.append(Recording(t, i + rng.normal(0.0, SIGMA_I, t.size), sim.voltage_v + rng.normal(0.0, SIGMA_V, t.size),
                               soc_ref=sim.soc, name=f"sim{seed}"))
     start = default_settings(model).with_(q_soc_per_s=1e-16, q_rc_v2_per_s=1e-16, gate_sigma=0.0,
-                                          voltage_noise_v=0.02, current_noise_a=0.02)
+                                          voltage_noise_v=0.02, current_noise_a=0.02, **EXACT_MODEL)
     return model, recs, start
 
 

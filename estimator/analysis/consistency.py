@@ -17,6 +17,17 @@ statistics assume the innovations are white; a filter that is mistuned or whose 
 gives correlated innovations, which :func:`innovation_autocorrelation` exposes (the normalised
 sample autocorrelation, whose 95 % band is about ``+-1.96/sqrt(N)``, same chapter).
 
+Correlated innovations.  An equivalent-circuit filter on a real cell leaves time-correlated
+innovations (the model's voltage error persists), and then the band above, which assumes
+independent samples, is far too narrow and its verdict means nothing.  :func:`consistency_test`
+therefore also runs the whiteness test on the lag-1 autocorrelation ``rho`` of the normalised
+residuals (same chapter; 95 % band ``+-1.96/sqrt(N)``) and reports an effective sample count
+``N_eff = N (1 - rho^2) / (1 + rho^2)`` for the mean of the squares (the variance-inflation
+factor of the mean of a first-order autoregressive sequence, whose squares have lag-j
+correlation ``rho^(2j)``; Bartlett, J. R. Stat. Soc. Suppl. 8 (1946) 27-41, cited from memory)
+with the band at ``N_eff``.  The verdict is ``"correlated"`` (never ``"consistent"``) when the
+whiteness test fails and the mean lies inside that wider band.
+
 On long recordings (a day at 1 Hz is 86 400 samples) the band around 1 becomes very narrow
 (about +-0.01), so only a filter whose model matches the cell closely passes; the fraction of
 samples inside the +-3 sigma bound (about 99.7 % for a Gaussian) is reported beside it as a
@@ -30,7 +41,7 @@ import numpy as np
 from scipy import stats
 
 __all__ = [
-    "ConsistencyResult", "chi2_band", "consistency_test", "nis_test", "nees_test", "nis_summary",
+    "ConsistencyResult", "chi2_band", "chi2_band_effective", "consistency_test", "nis_test", "nees_test", "nis_summary",
     "nees_soc", "innovation_autocorrelation", "pooled_nis", "EnsembleConsistency", "nees_ensemble",
 ]
 
@@ -76,34 +87,61 @@ class ConsistencyResult:
     confidence: float
     inside_3sigma: float
     n_excluded: int = 0
+    lag1_autocorr: float = float("nan")
+    whiteness_band: float = float("nan")
+    n_effective: float = float("nan")
+    band_lo_eff: float = float("nan")
+    band_hi_eff: float = float("nan")
+
+    @property
+    def white(self) -> bool | None:
+        """Whiteness test at lag 1: ``|rho| <= 1.96 / sqrt(N)``; None when not tested (N < 20)."""
+        if not np.isfinite(self.lag1_autocorr):
+            return None
+        return bool(abs(self.lag1_autocorr) <= self.whiteness_band)
 
     @property
     def passed(self) -> bool:
-        """True when ``mean`` lies inside the chi-square band."""
-        return bool(self.band_lo <= self.mean <= self.band_hi)
+        """True when ``mean`` lies inside the chi-square band and the residuals pass the whiteness
+        test (when it was run)."""
+        return bool(self.band_lo <= self.mean <= self.band_hi) and self.white is not False
 
     @property
     def verdict(self) -> str:
         """``"consistent"``, ``"overconfident"`` (mean above the band: the filter's sigma is too
-        small) or ``"pessimistic"`` (mean below the band: sigma too large)."""
-        if self.mean > self.band_hi:
+        small), ``"pessimistic"`` (mean below the band: sigma too large) or ``"correlated"``
+        (residuals fail the whiteness test; the mean is inside the band at the effective sample
+        count, or inside the ordinary band).  With correlated residuals the bands are judged at
+        ``n_effective``."""
+        white = self.white
+        lo, hi = self.band_lo, self.band_hi
+        if white is False and np.isfinite(self.band_lo_eff):
+            lo, hi = self.band_lo_eff, self.band_hi_eff
+        if self.mean > hi:
             return "overconfident"
-        if self.mean < self.band_lo:
+        if self.mean < lo:
             return "pessimistic"
-        return "consistent"
+        return "correlated" if white is False else "consistent"
 
     def as_dict(self) -> dict:
         """Plain dict (for tables and JSON), including ``passed`` and ``verdict``."""
         return {"statistic": self.statistic, "n_samples": self.n_samples, "dim": self.dim,
                 "mean": self.mean, "band_lo": self.band_lo, "band_hi": self.band_hi,
                 "confidence": self.confidence, "inside_3sigma": self.inside_3sigma,
-                "n_excluded": self.n_excluded, "passed": self.passed, "verdict": self.verdict}
+                "n_excluded": self.n_excluded, "lag1_autocorr": self.lag1_autocorr,
+                "whiteness_band": self.whiteness_band, "n_effective": self.n_effective,
+                "band_lo_eff": self.band_lo_eff, "band_hi_eff": self.band_hi_eff,
+                "passed": self.passed, "verdict": self.verdict}
 
     def describe(self) -> str:
         """One line for CLI output, e.g. ``mean NIS 1.02 (95 % band 0.98..1.02, n=8000): consistent``."""
+        white = ""
+        if self.white is False:
+            white = (f"; residuals correlated (lag-1 {self.lag1_autocorr:.3f}, white band +-{self.whiteness_band:.3g}; "
+                     f"effective n {self.n_effective:.0f}, band {self.band_lo_eff:.4g}..{self.band_hi_eff:.4g})")
         return (f"mean {self.statistic} {self.mean:.4g} ({100 * self.confidence:.0f} % band "
                 f"{self.band_lo:.4g}..{self.band_hi:.4g}, n={self.n_samples}): {self.verdict}; "
-                f"{100 * self.inside_3sigma:.2f} % inside +-3 sigma (Gaussian {100 * GAUSS_3SIGMA:.2f} %)")
+                f"{100 * self.inside_3sigma:.2f} % inside +-3 sigma (Gaussian {100 * GAUSS_3SIGMA:.2f} %){white}")
 
 
 def chi2_band(n_samples: int, dim: int = 1, confidence: float = 0.95) -> tuple[float, float]:
@@ -166,9 +204,41 @@ def consistency_test(value, variance, statistic: str = "NIS", confidence: float 
         raise ConsistencyError(f"{statistic}: no sample with a finite residual and a positive variance")
     eps = v[ok] ** 2 / s[ok]
     lo, hi = chi2_band(n, 1, confidence)
+    rho = wband = n_eff = lo_e = hi_e = float("nan")
+    if n >= 20:
+        rho, n_eff = _lag1(v, s, ok)
+        wband = float(stats.norm.ppf(0.5 + 0.5 * confidence) / np.sqrt(n))
+        lo_e, hi_e = chi2_band_effective(n_eff, confidence)
     return ConsistencyResult(statistic=statistic, n_samples=n, dim=1, mean=float(eps.mean()),
                              band_lo=lo, band_hi=hi, confidence=float(confidence),
-                             inside_3sigma=float(np.mean(eps <= 9.0)), n_excluded=int(v.size - n))
+                             inside_3sigma=float(np.mean(eps <= 9.0)), n_excluded=int(v.size - n),
+                             lag1_autocorr=rho, whiteness_band=wband, n_effective=n_eff,
+                             band_lo_eff=lo_e, band_hi_eff=hi_e)
+
+
+def _lag1(v, s, ok):
+    """Lag-1 autocorrelation of ``v / sqrt(s)`` over consecutive valid pairs and ``N_eff``."""
+    e = np.where(ok, v / np.sqrt(np.where(ok, s, 1.0)), 0.0)
+    pair = ok[1:] & ok[:-1]
+    a, b = e[:-1][pair], e[1:][pair]
+    den = float(np.sqrt(np.sum(a * a) * np.sum(b * b)))
+    rho = float(np.sum(a * b) / den) if den > 0 and a.size > 1 else 0.0
+    r2 = min(rho * rho, 0.999999)
+    n = int(ok.sum())
+    return rho, float(max(1.0, n * (1.0 - r2) / (1.0 + r2)))
+
+
+def chi2_band_effective(n_effective: float, confidence: float = 0.95) -> tuple[float, float]:
+    """Band of the time average at a (non-integer) effective sample count ``N_eff``.
+
+    ``chi2.ppf((1 -+ confidence)/2, N_eff) / N_eff`` (the chi-square distribution with
+    ``N_eff`` degrees of freedom, scipy accepts real values); used for correlated residuals.
+    """
+    if not (n_effective > 0):
+        raise ConsistencyError(f"effective sample count must be > 0, got {n_effective}")
+    alpha = 1.0 - confidence
+    return (float(stats.chi2.ppf(0.5 * alpha, n_effective) / n_effective),
+            float(stats.chi2.ppf(1.0 - 0.5 * alpha, n_effective) / n_effective))
 
 
 def nis_test(innovation_v, innovation_var_v2, confidence: float = 0.95) -> ConsistencyResult:

@@ -3,6 +3,7 @@ from __future__ import annotations
 
 from socfuse.estimator.cli.main import COMMAND_HELP
 
+import sys
 from pathlib import Path
 
 
@@ -11,10 +12,15 @@ def register(sub) -> None:
 
     p = sub.add_parser(
         "tune", help=COMMAND_HELP["tune"],
-        description="Choose the EKF noise settings from recordings by maximising the innovation likelihood "
-                    "(no reference needed) or, when every recording has a SOC reference, by minimising the SOC "
-                    "RMSE with a penalty when the mean NIS leaves its 95 % chi-square band. Prints the chosen "
-                    "values, the objective before and after and the consistency figures, and writes the tuned "
+        description="Choose the EKF noise settings from recordings: by the innovation likelihood (no reference "
+                    "needed; whitened for time-correlated innovations by default) or, when every recording has a SOC "
+                    "reference, by the SOC error including a wrong start handed over mid-drive (so the voltage "
+                    "feedback stays alive) with a coverage and NIS penalty. Settings stay inside physical bounds "
+                    "for the cell. The last 30 %% of each recording is held out and the start and tuned settings "
+                    "are compared on it (and on --holdout recordings); when the tuned filter is worse by that "
+                    "evidence the command writes nothing and exits 2 with the reason (--accept-worse writes it "
+                    "anyway, with a warning). Prints the chosen values, the objective before and after, the "
+                    "hold-out and per-recording transfer figures and the consistency figures, and writes the tuned "
                     "settings (socfuse.filter/1).")
     p.add_argument("recordings", nargs="+", metavar="REC", help="recording files (CSV, Parquet, .mat)")
     p.add_argument("--model", required=True, help="cell-model JSON (socfuse.cell-model/1)")
@@ -37,6 +43,20 @@ def register(sub) -> None:
     p.add_argument("--coverage", type=float, default=None, metavar="F",
                    help="soc-error: also require this fraction (e.g. 0.95) of samples to have the SOC error "
                         "inside the filter's +-3 sigma (penalised like the NIS band)")
+    p.add_argument("--likelihood", choices=["auto", "whitened", "white"], default="auto",
+                   help="likelihood objective: whitened (the innovations as a first-order autoregressive sequence, "
+                        "so correlated samples are not counted as new evidence), white (textbook), or auto "
+                        "(default: white when the filter has the model-error state, else whitened)")
+    p.add_argument("--holdout-fraction", type=float, default=0.3, metavar="F",
+                   help="fraction at the end of each recording left out of the search and used to check the "
+                        "result (default 0.3; 0 = none)")
+    p.add_argument("--holdout", nargs="+", default=None, metavar="REC",
+                   help="recordings used only to check the result (never in the search)")
+    p.add_argument("--bounds", choices=["physical", "wide"], default="physical",
+                   help="physical (default): each setting within a range plausible for the cell (sensor noise "
+                        "0.05-5 %% of 1C, voltage noise 0.2-50 mV, ...); wide: the old search limits")
+    p.add_argument("--accept-worse", action="store_true",
+                   help="write the tuned settings even when the hold-out evidence says they are worse than the start")
     p.add_argument("--quiet", action="store_true", help="no progress bar")
     from socfuse.estimator.cli.common import add_mapping_options
 
@@ -73,12 +93,29 @@ def run(args) -> int:
             if r.soc_ref is None:
                 raise CliError(f"{path}: no SOC reference (soc_ref column, or --ah-col with --ref-capacity-ah and "
                                "--ref-soc0); --objective soc-error needs one")
+    if not (0.0 <= args.holdout_fraction <= 0.8):
+        raise CliError(f"--holdout-fraction is a fraction in 0..0.8, got {args.holdout_fraction}")
+    hold = [load_from_args(args, r) for r in (args.holdout or [])]
+    if args.objective == "soc-error":
+        for path, r in zip(args.holdout or [], hold):
+            if r.soc_ref is None:
+                raise CliError(f"{path}: no SOC reference; --objective soc-error needs one in --holdout recordings too")
     soc0s = None if args.soc0 is None else [args.soc0] * len(recs)
     res = tune(model, recs, start, objective=args.objective, params=args.params, soc0s=soc0s,
                max_evaluations=args.max_evaluations, penalty_weight=args.penalty_weight, coverage=args.coverage,
-               quiet=args.quiet)
-    save_settings(res.settings, out)
+               quiet=args.quiet, likelihood=args.likelihood, holdout_fraction=args.holdout_fraction,
+               holdout_recs=hold, bounds=args.bounds)
     print(res.describe())
+    for w in res.warnings:
+        print(f"socfuse tune: warning: {w}", file=sys.stderr)
+    if res.refused and not args.accept_worse:
+        print(SAFETY_NOTE, file=sys.stderr)
+        raise CliError("tuned settings refused, nothing written: " + "; ".join(res.reasons)
+                       + " (keep the start settings, or --accept-worse)")
+    if res.refused:
+        print("socfuse tune: WARNING: writing settings that are worse than the start on the hold-out ("
+              + "; ".join(res.reasons) + ")", file=sys.stderr)
+    save_settings(res.settings, out)
     print(f"wrote {out}")
-    print(SAFETY_NOTE)
+    print(SAFETY_NOTE, file=sys.stderr)
     return 0
