@@ -93,20 +93,69 @@ def test_bench_command(repo, tmp_path, capsys):
     rec.to_csv(tmp_path / "day.csv")
     save_model(truth_cell_model(25.0), tmp_path / "model.json")
     out = tmp_path / "bench"
-    argv = ["bench", "--model", str(tmp_path / "model.json"), str(tmp_path / "day.csv"), "--out", str(out),
-            "--scenarios", "nominal", "offset=0.1", "--quiet"]
+    # the recording may come after --scenarios: a value with a recording suffix is a recording
+    argv = ["bench", "--model", str(tmp_path / "model.json"), "--out", str(out),
+            "--scenarios", "nominal", "offset=0.1", str(tmp_path / "day.csv"), "--quiet"]
     assert main(argv) == 0
-    text = capsys.readouterr().out
-    assert SAFETY_NOTE in text and "offset=0.1" in text
+    cap = capsys.readouterr()
+    text = cap.out
+    assert SAFETY_NOTE in cap.err and SAFETY_NOTE not in text and "offset=0.1" in text
     s = pd.read_csv(out / "summary.csv")
     assert list(s.columns[:7]) == DESIGN_COLUMNS and len(s) == 4
     assert (out / "report.html").is_file()
+    assert not [p.name for p in out.iterdir() if p.name.startswith(".socfuse-staging")]
     # DESIGN.md section 4: bad input exits 2 with one line; existing results are never overwritten
+    before = (out / "summary.csv").read_bytes()
     assert main(argv) == 2
-    assert "already holds" in capsys.readouterr().err
-    bad = [a if a != str(out) else str(tmp_path / "other") for a in argv[:-3]] + ["wobble=1"]
+    err = capsys.readouterr().err.strip().splitlines()
+    assert len(err) == 1 and "earlier bench run" in err[0] and "--force" in err[0]
+    assert (out / "summary.csv").read_bytes() == before
+    bad = [a if a != str(out) else str(tmp_path / "other") for a in argv[:-2]] + ["wobble=1", argv[-2]]
     assert main(bad) == 2
     assert "unknown fault 'wobble'" in capsys.readouterr().err
+    assert not (tmp_path / "other").exists()
+    # a folder holding the user's own files is refused unless --force; the user's file survives
+    mine = tmp_path / "mine"
+    mine.mkdir()
+    (mine / "rmse_by_scenario.png").write_bytes(b"my own figure")
+    argv2 = [a if a != str(out) else str(mine) for a in argv]
+    assert main(argv2) == 2
+    assert "did not write (rmse_by_scenario.png)" in capsys.readouterr().err
+    assert (mine / "rmse_by_scenario.png").read_bytes() == b"my own figure" and len(list(mine.iterdir())) == 1
+    # a failure inside the run (no SOC reference) leaves no partial output and no new folder
+    rec.with_(soc_ref=None).to_csv(tmp_path / "noref.csv")
+    argv3 = [a if a != str(out) else str(tmp_path / "fresh") for a in argv[:-2]] + [str(tmp_path / "noref.csv")]
+    assert main(argv3) == 2
+    assert "no SOC reference" in capsys.readouterr().err and not (tmp_path / "fresh").exists()
+    # --methods with an unknown method, --ukf-only with an unknown recording: one line each
+    assert main(argv[:-2] + ["--methods", "ekf", "kalman", argv[-2]]) == 2
+    assert "unknown method(s) kalman" in capsys.readouterr().err
+    assert main([a if a != str(out) else str(tmp_path / "u") for a in argv] + ["--ukf-only", "nope"]) == 2
+    assert "--ukf-only: no recording named nope" in capsys.readouterr().err
+
+
+def test_second_bench_into_a_locked_folder_is_refused(repo, tmp_path, capsys):
+    import fcntl
+    import os
+
+    from socfuse.estimator.cli.main import main
+    from socfuse.models.fileio import LOCK_NAME
+    from socfuse.models.modelfile import save_model
+
+    rec = load_recording(repo / "datasets" / "c48_day_lunch.csv").slice(0, 300)
+    rec.to_csv(tmp_path / "day.csv")
+    save_model(truth_cell_model(25.0), tmp_path / "model.json")
+    out = tmp_path / "busy"
+    out.mkdir()
+    fd = os.open(out / LOCK_NAME, os.O_CREAT | os.O_RDWR)
+    fcntl.flock(fd, fcntl.LOCK_EX)  # a first run holding the folder (flock(2) conflicts between open files)
+    try:
+        assert main(["bench", "--model", str(tmp_path / "model.json"), str(tmp_path / "day.csv"), "--out", str(out),
+                     "--scenarios", "nominal", "--methods", "coulomb", "--quiet"]) == 2
+    finally:
+        os.close(fd)
+    assert "another socfuse run is writing into this folder" in capsys.readouterr().err
+    assert sorted(p.name for p in out.iterdir()) == [LOCK_NAME]
 
 
 def test_progress_is_quiet_off_a_terminal(monkeypatch):

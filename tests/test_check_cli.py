@@ -72,19 +72,26 @@ def test_check_good_csv_exits_0_and_prints_duration(tmp_path, capsys):
     t, i, v = _profile()
     p = _write(tmp_path / "day.csv", t, i, v)
     assert main(["check", str(p)]) == 0
-    out = capsys.readouterr().out
+    cap = capsys.readouterr()
+    out = cap.out
     assert "duration                3599 s" in out
     assert "temperature             25 .. 26 degC" in out
     assert "duplicates dropped      0" in out
-    assert SAFETY_NOTE in out
+    # the caution goes to stderr: stdout carries the results only
+    assert SAFETY_NOTE not in out and SAFETY_NOTE in cap.err
 
 
 def test_check_inverted_sign_warns_and_option_fixes_it(tmp_path, capsys):
     t, i, v = _profile()
     p = _write(tmp_path / "neg.csv", t, i, v, sign=-1.0)
-    assert main(["check", str(p)]) == 0
-    assert "WARNING: sign looks inverted" in capsys.readouterr().out
-    assert main(["check", str(p), "--strict"]) == 2
+    # a likely sign mistake is not usable as declared: exit 2, one line naming the option that fixes it
+    assert main(["check", str(p)]) == 2
+    cap = capsys.readouterr()
+    assert "WARNING: sign looks inverted" in cap.out
+    last = cap.err.strip().splitlines()[-1]
+    assert "current_a" in last and "--discharge-negative" in last
+    assert main(["check", str(p), "--trust-input"]) == 0
+    assert main(["check", str(p), "--trust-input", "--strict"]) == 2
     assert "sign looks inverted" in capsys.readouterr().err
     assert main(["check", str(p), "--discharge-negative", "--strict"]) == 0
     assert "sign check              ok" in capsys.readouterr().out

@@ -34,7 +34,8 @@ def test_estimate_writes_trace(files, method, capsys):
     rc = main(["estimate", "--model", str(d / "model.json"), "--filter", str(d / "filter.json"),
                "--method", method, "--soc0", "0.7", str(d / "rec.csv"), "-o", str(out)])
     assert rc == 0
-    assert SAFETY_NOTE in capsys.readouterr().out
+    cap = capsys.readouterr()
+    assert SAFETY_NOTE in cap.err and SAFETY_NOTE not in cap.out  # the caution on stderr, results on stdout
     df = pd.read_csv(out)
     # DESIGN.md section 3 trace columns
     for c in ("time_s", "soc", "soc_sigma", "voltage_pred_v", "innovation_v", "soc_e", "soc_ref", "soc_error"):
@@ -48,8 +49,9 @@ def test_estimate_writes_trace(files, method, capsys):
 def test_summary_without_output_and_bad_input(files, capsys):
     d, m, rec = files
     assert main(["estimate", "--model", str(d / "model.json"), str(d / "rec.csv"), "--method", "coulomb"]) == 0
-    out = capsys.readouterr().out
-    assert "final SOC" in out and "RMSE vs ref" in out and "OCV reseeds" in out and SAFETY_NOTE in out
+    cap = capsys.readouterr()
+    out = cap.out
+    assert "final SOC" in out and "RMSE vs ref" in out and "OCV reseeds" in out and SAFETY_NOTE in cap.err
     # existing output is not overwritten; a bad filter key and a bad soc0 exit 2 with one line
     (d / "exists.csv").write_text("keep me\n")
     assert main(["estimate", "--model", str(d / "model.json"), str(d / "rec.csv"), "-o", str(d / "exists.csv")]) == 2

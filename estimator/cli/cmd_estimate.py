@@ -1,12 +1,11 @@
 """``socfuse estimate --model M [--filter F] --method ekf|coulomb|ukf [--soc0 X] REC -o trace.csv``."""
 from __future__ import annotations
 
-from pathlib import Path
 
 import numpy as np
 
 from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
-from socfuse.models.fileio import replacing
+from socfuse.models.fileio import check_output_file, replacing
 
 _METHODS = ("ekf", "coulomb", "ukf", "rts")
 
@@ -21,7 +20,9 @@ def register(sub) -> None:
         epilog="Without --filter the settings are derived from the model (estimator.settings.default_settings): "
                "voltage noise 10 mV, current noise C/100, SOC random walk 1 %% per hour, 5-sigma innovation "
                "gate, SOC clipped to 0..1, rest = |I| <= C/50 for at least 3600 s before an OCV reseed "
-               "(C = the model capacity in Ah as a current in A). " + SAFETY_NOTE.replace("%", "%%"))
+               "(C = the model capacity in Ah as a current in A). The recording is checked against the model "
+               "first (units, pack voltage, current sign, soc_ref in percent, spikes); a likely mistake stops "
+               "the command with exit 2 naming the option that fixes it, --trust-input overrides. " + SAFETY_NOTE)
     p.add_argument("rec", metavar="REC", help="recording file (.csv, .parquet, .mat)")
     p.add_argument("--model", required=True, metavar="M", help="cell model JSON (socfuse.cell-model/1)")
     p.add_argument("--filter", metavar="F", default=None,
@@ -42,9 +43,9 @@ def register(sub) -> None:
     p.set_defaults(func=run)
 
 
-def _load_recording(args):
-    from socfuse.estimator.cli.common import load_from_args
-    return load_from_args(args, args.rec)
+def _load_recording(args, model):
+    from socfuse.estimator.cli.common import load_checked
+    return load_checked(args, args.rec, model)
 
 
 def summary_lines(tr) -> list:
@@ -77,12 +78,13 @@ def run(args) -> int:
 
     if args.soc0 is not None and not (0.0 <= args.soc0 <= 1.0):
         raise CliError(f"--soc0 must be a fraction in 0..1, got {args.soc0}")
-    out = Path(args.output) if args.output else None
-    if out is not None and out.exists() and not args.force:
-        raise CliError(f"{out}: exists; not overwritten (use --force or another name)")
+    from socfuse.estimator.cli.common import check_json_inputs, note
+
+    out = check_output_file(args.output, args.force, "-o") if args.output else None
+    check_json_inputs(cell_model=args.model, filter_settings=args.filter)
     model = load_model(args.model)
     settings = resolve_settings(model, args.filter)
-    rec = _load_recording(args)
+    rec = _load_recording(args, model)
     if args.method == "rts":
         from socfuse.estimator.filters.smoother import rts_smooth
         tr = rts_smooth(model, rec, settings, args.soc0)
@@ -94,6 +96,5 @@ def run(args) -> int:
         print(f"wrote {out} ({tr.n} rows, method {tr.method})")
     else:
         print("\n".join(summary_lines(tr)))
-    print()
-    print(SAFETY_NOTE)
+    note(SAFETY_NOTE)
     return 0

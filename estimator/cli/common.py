@@ -2,21 +2,26 @@
 
 Use::
 
-    from socfuse.estimator.cli.common import add_mapping_options, load_from_args
+    from socfuse.estimator.cli.common import add_mapping_options, load_from_args, load_checked
     add_mapping_options(parser)             # in register(): --time-col, --current-unit, --preset, ...
     rec = load_from_args(args, path)         # in run(): a models.recording.Recording
+    rec = load_checked(args, path, model)    # ... checked for plausibility against the model first
 
 The options map onto :class:`models.loaders.ColumnMap` fields; options left out keep the
-preset's (or the canonical) value.
+preset's (or the canonical) value.  ``--trust-input`` lets a recording through that
+:func:`models.plausibility.check_against_model` finds implausible (a likely unit or sign
+mistake stops the command otherwise, exit 2, naming the column and the option that fixes it).
 """
 from __future__ import annotations
 
 import argparse
+import sys
 
 from socfuse.models.loaders import PRESETS, ColumnMap, load_recording, make_column_map
 from socfuse.models.recording import Recording
 
-__all__ = ["add_mapping_options", "mapping_from_args", "load_from_args"]
+__all__ = ["add_mapping_options", "mapping_from_args", "load_from_args", "load_checked", "check_json_inputs",
+           "note"]
 
 # (flag, ColumnMap field, help)
 _COLUMN_FLAGS = (
@@ -75,8 +80,17 @@ def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
                    help="CSV numbers use a decimal comma (then fields are separated by ; or tab)")
     g.add_argument("--mat-struct", dest="map_mat_struct", default=None, metavar="NAME",
                    help=".mat variable holding the struct of columns (default: the only struct)")
+    g.add_argument("--soc-ref-unit", dest="map_soc_ref_unit", choices=["fraction", "percent"], default=None,
+                   help="unit of the soc_ref column (default fraction 0..1)")
+    g.add_argument("--series-cells", dest="map_series_cells", type=int, default=None, metavar="N",
+                   help="the file logs a pack of N cells in series: the voltage is divided by N (balanced cells)")
+    g.add_argument("--parallel-cells", dest="map_parallel_cells", type=int, default=None, metavar="M",
+                   help="the file logs a pack of M cells in parallel: the current is divided by M")
     g.add_argument("--recording-name", dest="map_name", default=None, metavar="NAME",
                    help="recording name used in reports (default: the file name)")
+    g.add_argument("--trust-input", action="store_true",
+                   help="use the recording even when it looks implausible for the model (a likely unit, sign or "
+                        "pack mistake, or spikes); without it such a recording stops the command with exit 2")
     return parser
 
 
@@ -91,3 +105,50 @@ def mapping_from_args(args: argparse.Namespace) -> ColumnMap:
 def load_from_args(args: argparse.Namespace, path) -> Recording:
     """Load ``path`` with the mapping given on the command line (raises RecordingError)."""
     return load_recording(path, mapping_from_args(args))
+
+
+def note(text: str) -> None:
+    """One line to stderr (notes and cautions never mix with the results on stdout)."""
+    print(text, file=sys.stderr)
+
+
+def load_checked(args: argparse.Namespace, path, model=None) -> Recording:
+    """Load ``path`` and check it against ``model`` (:func:`models.plausibility.require_plausible`).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed options (mapping options and ``--trust-input``).
+    path : str or Path
+        The recording file.
+    model : CellModel, optional
+        The model it will be estimated with; None = a generic lithium-ion cell (identification).
+
+    Returns
+    -------
+    Recording
+        Warnings (missing voltage samples, a dropped truncated line, and the errors when trusted)
+        are printed to stderr as ``note:`` lines.
+
+    Raises
+    ------
+    RecordingError
+        The file cannot be loaded, or it looks implausible and ``--trust-input`` was not given.
+    """
+    from socfuse.models.plausibility import require_plausible
+
+    rec = load_from_args(args, path)
+    for f in require_plausible(rec, model, trust=bool(getattr(args, "trust_input", False)), source=str(path)):
+        note(f"note: {f.message(str(path))}" if f.severity == "warning" else
+             f"note: trusted as given: {f.message(str(path))}")
+    return rec
+
+
+def check_json_inputs(**paths) -> None:
+    """Read each given JSON input (``what=path``; None skipped) with :func:`models.fileio.read_json`
+    first, so a damaged cell-model or filter file is refused naming the file."""
+    from socfuse.models.fileio import read_json
+
+    for what, path in paths.items():
+        if path is not None:
+            read_json(path, what.replace("_", "-"))

@@ -2,13 +2,19 @@
 
 Each sub-command lives in its own module ``socfuse.estimator.cli.cmd_<name>`` exposing
 ``register(subparsers)``, which adds its parser and sets ``func`` to a callable taking the
-parsed arguments and returning an exit code.  Bad usage or bad input exits with code 2 and a
-one-line reason on stderr.
+parsed arguments and returning an exit code.
+
+Failures (DESIGN.md section 4): bad usage or bad input exits with code 2 and one line on stderr
+(a usage error adds one short usage line); anything else is a bug: exit 1 with one line naming
+the exception.  ``SOCFUSE_DEBUG=1`` shows the traceback instead.  A closed pipe on stdout
+(``socfuse check F | head``) ends the command quietly (exit 141, as a shell reports SIGPIPE);
+Ctrl-C exits 130.  Results go to stdout; cautions, notes and progress to stderr.
 """
 from __future__ import annotations
 
 import argparse
 import importlib
+import os
 import sys
 
 SAFETY_NOTE = (
@@ -35,6 +41,32 @@ class CliError(Exception):
     """Bad usage or bad input: printed as one line, exit code 2."""
 
 
+class UsageError(CliError):
+    """A command line argparse refused: one line, then one short usage line."""
+
+    def __init__(self, message: str, usage: str):
+        super().__init__(message)
+        self.usage = usage
+
+
+class _Parser(argparse.ArgumentParser):
+    """ArgumentParser whose errors are one line plus one short usage line (sub-parsers inherit it)."""
+
+    def short_usage(self) -> str:
+        pos = []
+        for a in self._actions:
+            if a.option_strings or isinstance(a, argparse._SubParsersAction):
+                continue
+            name = a.metavar or a.dest.upper()
+            pos.append(f"{name} [{name} ...]" if a.nargs in ("+", "*") else name)
+        sub = any(isinstance(a, argparse._SubParsersAction) for a in self._actions)
+        return (f"usage: {self.prog} [options] {'COMMAND ' if sub else ''}{' '.join(pos)}".rstrip()
+                + f"  (see {self.prog} --help)")
+
+    def error(self, message):  # noqa: D102 - argparse hook
+        raise UsageError(message, self.short_usage())
+
+
 def _chosen(argv) -> str | None:
     """The sub-command named in ``argv`` (the first word that is one), or None."""
     for a in argv:
@@ -48,7 +80,7 @@ def _chosen(argv) -> str | None:
 def build_parser(argv=None) -> argparse.ArgumentParser:
     """The argument parser; only the chosen sub-command's module is imported (lazy start-up:
     ``socfuse --help`` imports neither numba nor scipy).  ``argv=None`` registers every command."""
-    p = argparse.ArgumentParser(
+    p = _Parser(
         prog="socfuse",
         description="State-of-charge estimation for battery-management engineers: characterise a cell, "
                     "run an EKF beside coulomb counting, benchmark under faults, tune, report, export C99.",
@@ -63,22 +95,56 @@ def build_parser(argv=None) -> argparse.ArgumentParser:
     return p
 
 
-def main(argv=None) -> int:
-    argv = sys.argv[1:] if argv is None else list(argv)
-    parser = build_parser(argv)
-    args = parser.parse_args(argv)
-    if not getattr(args, "func", None):
-        parser.print_help()
-        return 2
+def _one_line(e: BaseException) -> str:
+    text = str(e).strip()
+    if isinstance(e, OSError) and e.filename is not None and e.strerror:
+        text = f"{e.filename}: {e.strerror}"
+    return text.splitlines()[0] if text else type(e).__name__
+
+
+def _quiet_pipe() -> int:
+    """stdout's reader went away: point stdout at /dev/null so the exit flush cannot fail again."""
     try:
+        devnull = os.open(os.devnull, os.O_WRONLY)
+        os.dup2(devnull, sys.stdout.fileno())
+    except (OSError, ValueError):
+        pass
+    return 141
+
+
+def main(argv=None) -> int:
+    """Run the ``socfuse`` command line; returns the exit code (module docstring)."""
+    argv = sys.argv[1:] if argv is None else list(argv)
+    debug = os.environ.get("SOCFUSE_DEBUG", "") not in ("", "0")
+    name = _chosen(argv) or "socfuse"
+    prefix = "socfuse" if name == "socfuse" else f"socfuse {name}"
+    try:
+        parser = build_parser(argv)
+        args = parser.parse_args(argv)
+        if not getattr(args, "func", None):
+            parser.print_help()
+            return 2
         return int(args.func(args) or 0)
-    except CliError as e:
-        print(f"socfuse {args.command}: {e}", file=sys.stderr)
+    except UsageError as e:
+        print(f"{prefix}: error: {e}", file=sys.stderr)
+        print(e.usage, file=sys.stderr)
         return 2
-    except (ValueError, FileNotFoundError, KeyError) as e:
-        msg = str(e).strip().splitlines()[0] if str(e).strip() else type(e).__name__
-        print(f"socfuse {args.command}: {msg}", file=sys.stderr)
+    except BrokenPipeError:
+        return _quiet_pipe()
+    except KeyboardInterrupt:
+        print(f"{prefix}: interrupted", file=sys.stderr)
+        return 130
+    except (CliError, ValueError, OSError) as e:
+        if debug:
+            raise
+        print(f"{prefix}: {_one_line(e)}", file=sys.stderr)
         return 2
+    except Exception as e:  # a bug: say so in one line
+        if debug:
+            raise
+        print(f"{prefix}: internal error: {type(e).__name__}: {_one_line(e)} (a bug in socfuse; run with "
+              "SOCFUSE_DEBUG=1 for the traceback and please report it)", file=sys.stderr)
+        return 1
 
 
 if __name__ == "__main__":  # pragma: no cover
