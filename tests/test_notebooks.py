@@ -26,6 +26,28 @@ def test_notebook_runs_and_has_no_stored_outputs(repo, name, monkeypatch):
     text = "".join(o.get("text", "") for c in nb.cells if c.cell_type == "code" for o in c.get("outputs", []))
     assert "Caution:" in text  # the safety note closes each notebook
     assert "Traceback" not in text
+    if name.startswith("02"):
+        _check_energy_verdict(repo, text)
+
+
+def _check_energy_verdict(repo, text):
+    """Notebook 02 shows the reference beside the estimate and says plainly when the estimate is wrong."""
+    import re
+
+    import pandas as pd
+
+    ref = re.search(r"end of day, reference: SOC_C ([\d.]+) %", text)
+    est = re.search(r"end of day, estimate:  SOC_C ([\d.]+) %", text)
+    err = re.search(r"error: ([+-][\d.]+) SOC points, ([+-]\d+) Wh", text)
+    assert ref and est and err, text[-1500:]
+    # the reference printed is the recording's own last soc_ref (read here straight from the CSV)
+    last = pd.read_csv(repo / "datasets" / "c48_day_long.csv")["soc_ref"].iloc[-1]
+    assert float(ref.group(1)) == pytest.approx(100 * last, abs=0.05)
+    assert float(err.group(1)) == pytest.approx(float(est.group(1)) - float(ref.group(1)), abs=0.11)
+    wrong = abs(float(err.group(1))) > 2.0  # the 2-point band of DESIGN.md section 4
+    assert ("The estimate is WRONG" in text) == wrong
+    if wrong:  # an overstated SOC overstates the energy left, and the other way round
+        assert (float(err.group(2)) > 0) == (float(err.group(1)) > 0)
 
 
 def test_notebooks_match_their_builder(repo, tmp_path):
