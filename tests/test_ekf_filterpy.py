@@ -8,7 +8,7 @@ from scipy.linalg import solve_discrete_are
 from scipy.stats import chi2
 
 from ekf_cases import drive_profile, simulated_recording, tiny_model
-from socfuse.estimator.filters.ekf import run_ekf, run_ekf_store, setup
+from socfuse.estimator.filters.ekf import initial_soc, run_ekf, run_ekf_store, setup
 from socfuse.estimator.filters.settings import default_settings
 from socfuse.models import Recording, simulate
 
@@ -22,14 +22,15 @@ def _filterpy_run(m, su, rec, x0, p0):
 
     F, B and Q are built here from the model constants (constant RC tables, so a = exp(-dt/tau)
     and b = R (1 - a) exactly); Hx and HJacobian are the model's measurement through
-    ``EkfSetup.measure`` (the same tabulated OCV curve).
+    ``EkfSetup.measure`` (the same tabulated OCV curve).  The model-error state, when on, is a
+    first-order Gauss-Markov process (F = exp(-dt/tau), Q = sigma^2 (1 - F^2)); the capacity
+    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R i_k)^2``.
     """
     s = su.settings
     nx = su.n_x
     kf = ExtendedKalmanFilter(dim_x=nx, dim_z=1)
     kf.x = x0.reshape(nx, 1).copy()
     kf.P = p0.copy()
-    kf.R = np.array([[s.voltage_noise_v ** 2]])
     xs, ps = [], []
     t, i, v = rec.time_s, rec.current_a, rec.voltage_v
     for k in range(rec.n):
@@ -52,25 +53,38 @@ def _filterpy_run(m, su, rec, x0, p0):
                 f[:, su.i_b] -= g
                 f[su.i_b, su.i_b] = 1.0
                 qd[su.i_b] = s.q_bias_a2_per_s
+            qm = np.outer(g, g) * s.current_noise_a ** 2 + np.diag(qd) * dt
+            qm[0, 0] += s.capacity_error_frac ** 2 * abs(g[0] * (u - b))
+            if su.i_e >= 0:
+                ae = np.exp(-dt / s.model_error_tau_s)
+                f[su.i_e, su.i_e] = ae
+                qm[su.i_e, su.i_e] = s.model_error_v ** 2 * (1 - ae ** 2)
             kf.F = f
             kf.B = g.reshape(nx, 1)
-            kf.Q = np.outer(g, g) * s.current_noise_a ** 2 + np.diag(qd) * dt
+            kf.Q = qm
             kf.predict(u=np.array([[u]]))
         if np.isfinite(v[k]):
             ik, tk = i[k], np.nan
             kf.update(np.array([[v[k]]]), HJacobian=lambda x: su.measure(x[:, 0], ik, tk)[1].reshape(1, -1),
-                      Hx=lambda x: np.array([[su.measure(x[:, 0], ik, tk)[0]]]))
+                      Hx=lambda x: np.array([[su.measure(x[:, 0], ik, tk)[0]]]),
+                      R=np.array([[s.voltage_noise_v ** 2 + (s.resistance_error_ohm * ik) ** 2]]))
         xs.append(kf.x[:, 0].copy())
         ps.append(kf.P.copy())
     return np.array(xs), np.array(ps)
 
 
-@pytest.mark.parametrize("n_rc,bias,uneven", [(2, False, False), (1, True, True)])
-def test_matches_filterpy_every_step(n_rc, bias, uneven):
+WHITE = dict(model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, voltage_noise_v=0.01)
+
+
+@pytest.mark.parametrize("n_rc,bias,uneven,new", [(2, False, False, False), (1, True, True, False),
+                                                  (2, True, True, True)])
+def test_matches_filterpy_every_step(n_rc, bias, uneven, new):
     m = tiny_model(n_rc=n_rc)
-    # no clipping, no gate: the reference has neither
+    # no clipping, no gate: the reference has neither; ``new``: the default noise model (model-error
+    # state, current-dependent R, capacity term), else white voltage noise only
     s = default_settings(m).with_(gate_sigma=0.0, soc_min=-1.0, soc_max=2.0, estimate_bias=bias,
-                                  q_rc_v2_per_s=1e-6)
+                                  q_rc_v2_per_s=1e-6, **({} if new else WHITE))
+    assert (setup(m, s).i_e >= 0) == new
     rec, _ = simulated_recording(m, n=600, soc0=0.7, uneven=uneven, seed=4)
     if bias:  # a sensor offset and a few missing voltages (predict only)
         v = rec.voltage_v.copy()
@@ -79,7 +93,7 @@ def test_matches_filterpy_every_step(n_rc, bias, uneven):
     su = setup(m, s)
     tr, (p_post, p_prior, f) = run_ekf_store(m, rec, s, soc0=0.65)
     x0 = np.zeros(su.n_x)
-    x0[0] = 0.65
+    x0[0] = initial_soc(su, rec, 0.65)[0]  # 0.65 unless the hand-over check moved it
     xs, ps = _filterpy_run(m, su, rec, x0, p_prior[0])
     # filterpy.kalman.ExtendedKalmanFilter is the reference: agreement to 1e-9 at every step
     np.testing.assert_allclose(tr.states, xs, rtol=0, atol=1e-9)
@@ -89,7 +103,7 @@ def test_matches_filterpy_every_step(n_rc, bias, uneven):
 
 def test_covariance_converges_to_dare():
     m = tiny_model(n_rc=1, linear=True)  # OCV 3.0 + 1.2 SOC, R0 20 mohm, one 30 s pair
-    s = default_settings(m).with_(q_soc_per_s=1e-6, q_rc_v2_per_s=1e-6, gate_sigma=0.0)
+    s = default_settings(m).with_(q_soc_per_s=1e-6, q_rc_v2_per_s=1e-6, gate_sigma=0.0, estimate_bias=False, **WHITE)
     n = 4000
     t = np.arange(n, dtype=float)
     i = np.full(n, 0.5)
@@ -111,7 +125,9 @@ def test_nis_inside_chi2_band():
     m = tiny_model(n_rc=2)
     sigma_v = 0.004
     s = default_settings(m).with_(voltage_noise_v=sigma_v, current_noise_a=1e-6, q_soc_per_s=1e-14,
-                                  q_rc_v2_per_s=1e-14, p0_soc=0.02, p0_rc_v=1e-4, gate_sigma=0.0)
+                                  q_rc_v2_per_s=1e-14, p0_soc=0.02, p0_rc_v=1e-4, gate_sigma=0.0,
+                                  estimate_bias=False, model_error_v=0.0, resistance_error_ohm=0.0,
+                                  capacity_error_frac=0.0)
     n = 3000
     t, i = drive_profile(n, seed=7, uneven=True)
     sim = simulate(m, t, i, soc0=0.7)

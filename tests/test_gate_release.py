@@ -7,7 +7,7 @@ own SOC (models.simulate), a closed-form truth for this check.
 """
 import numpy as np
 
-from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters.ekf import initial_soc, run_ekf, setup
 from socfuse.estimator.filters.settings import default_settings
 from socfuse.estimator.filters.ukf import run_ukf
 from tests.ekf_cases import simulated_recording, tiny_model
@@ -16,8 +16,12 @@ from tests.ekf_cases import simulated_recording, tiny_model
 def _case():
     model = tiny_model(n_rc=1)
     rec, sim = simulated_recording(model, n=1500, soc0=0.8, noise_v=0.002)
-    s = default_settings(model).with_(voltage_noise_v=0.002, p0_soc=0.01, gate_sigma=5.0)
-    return model, rec, sim, s
+    # white voltage noise only (the classic noise model, where a lock-out was seen), and no voltage at the
+    # first sample, so the hand-over check (estimator.filters.ekf.handover) cannot widen the wrong start
+    s = default_settings(model).with_(voltage_noise_v=0.002, p0_soc=0.01, gate_sigma=5.0, model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False)
+    v = rec.voltage_v.copy()
+    v[0] = np.nan
+    return model, rec.with_(voltage_v=v), sim, s
 
 
 def test_gate_without_release_locks_out_and_release_recovers():
@@ -32,6 +36,17 @@ def test_gate_without_release_locks_out_and_release_recovers():
     assert freed.n_gated < 200              # only the first runs were gated
     # the release lets one sample through per 30 s of gating: at 1 Hz at least 30 samples were gated first
     assert freed.n_gated >= 30
+
+
+def test_handover_check_widens_a_wrong_start():
+    model, rec, sim, s = _case()
+    rec = rec.with_(voltage_v=np.concatenate([[sim.voltage_v[0]], rec.voltage_v[1:]]))
+    tr = run_ekf(model, rec, s.with_(gate_release_s=0.0), soc0=0.6)  # 20 points off, claimed 1 point
+    # the first voltage contradicts the hand-over: the start sigma covers the error and nothing locks out
+    assert initial_soc(setup(model, s), rec, 0.6)[1] > 0.1 and tr.n_gated < 50
+    assert np.abs(tr.soc - sim.soc)[-300:].max() < 0.01
+    right = run_ekf(model, rec, s, soc0=0.8)  # a right hand-over keeps its sigma
+    assert right.soc_sigma[0] <= 0.0101
 
 
 def test_ukf_uses_the_same_release_rule():

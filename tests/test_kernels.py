@@ -57,8 +57,14 @@ def test_tables_match_model_functions():
 def test_ekf_tracks_simulation_and_batch_equals_single():
     m = tiny_model(n_rc=2)
     rec, sim = simulated_recording(m, n=1500, soc0=0.75, uneven=True)
-    tr = estimate(m, rec, "ekf")  # starts from the OCV inverse at the first sample
+    tr = estimate(m, rec, "ekf")  # default settings: starts from the OCV inverse at the first sample
     assert abs(tr.soc[0] - 0.75) < 0.05
+    assert np.sqrt(np.mean(tr.soc_error[300:] ** 2)) < 0.02
+    assert np.all(np.abs(tr.soc_error) <= 3 * tr.soc_sigma)  # the reported sigma covers the error
+    # the simulation has no model error and 5 mV white noise: with settings that say so the filter
+    # must track it to a point
+    exact = default_settings(m).with_(model_error_v=0.0, voltage_noise_v=0.005, estimate_bias=False)
+    tr = estimate(m, rec, "ekf", exact)
     assert np.sqrt(np.mean(tr.soc_error[300:] ** 2)) < 0.01
     assert np.all(np.isfinite(tr.states)) and tr.n_gated == 0
     recs = [rec, rec.slice(0, 700), rec.slice(100, 1400)]
@@ -71,7 +77,7 @@ def test_ekf_tracks_simulation_and_batch_equals_single():
 
 def test_linearise_matches_finite_differences():
     m = tiny_model(n_rc=2, hysteresis=True)
-    su = setup(m, default_settings(m).with_(estimate_bias=True))
+    su = setup(m, default_settings(m).with_(estimate_bias=True, model_error_v=0.0))
     x = np.array([0.6, 0.01, 0.02, 0.1, 0.3])
     xp, f, g, q, h, y = su.linearise(x, 2.0, 3.0, 1.5)
     # central differences (textbook numerical Jacobian) of the same transition
@@ -86,9 +92,34 @@ def test_linearise_matches_finite_differences():
         dx[j] = eps
         fd = (su.measure(xp + dx, 3.0)[0] - su.measure(xp - dx, 3.0)[0]) / (2 * eps)
         assert h[j] == pytest.approx(fd, abs=1e-6)
-    # SOC column: the PCHIP slope (scipy PchipInterpolator derivative) minus dR0/dSOC * (i - bias);
-    # R0 = 0.02 - 0.005 soc, so dR0/dSOC = -0.005 ohm exactly
-    assert h[0] == pytest.approx(float(m.ocv.slope(xp[0])) + 0.005 * (3.0 - xp[3]), abs=1e-4)
+    # SOC column: the PCHIP slope (scipy PchipInterpolator derivative) only; the -i dR0/dSOC term of
+    # the exact derivative is left out by design (kernels docstring, "Jacobian choice"): here
+    # R0 = 0.02 - 0.005 soc, so the exact derivative would be larger by 0.005 * (i - bias)
+    assert h[0] == pytest.approx(float(m.ocv.slope(xp[0])), abs=1e-4)
+    fd0 = (su.measure(xp + [eps, 0, 0, 0, 0], 3.0)[0] - su.measure(xp - [eps, 0, 0, 0, 0], 3.0)[0]) / (2 * eps)
+    assert fd0 - h[0] == pytest.approx(0.005 * (3.0 - xp[3]), abs=1e-3)  # table slope vs PCHIP slope
+
+
+def test_model_error_state_exact_discretisation():
+    m = tiny_model(n_rc=1)
+    s = default_settings(m).with_(model_error_v=0.01, model_error_tau_s=50.0, estimate_bias=False,
+                                  capacity_error_frac=0.0)
+    su = setup(m, s)
+    assert su.n_x == 3 and su.i_e == 2 and su.names[-1] == "model_error_v"
+    x = np.array([0.5, 0.01, 0.004])
+    xp, f, g, q, h, y = su.linearise(x, 1.0, 1.0, 7.0)
+    # first-order Gauss-Markov process, exact discretisation (Gelb 1974, Table 4.4-1, from memory):
+    # a = exp(-dt/tau), q = sigma^2 (1 - a^2), so the stationary variance stays sigma^2 for any dt
+    a = np.exp(-7.0 / 50.0)
+    assert xp[2] == pytest.approx(a * 0.004, rel=1e-12) and f[2, 2] == pytest.approx(a, rel=1e-12)
+    assert q[2, 2] == pytest.approx(0.01 ** 2 * (1 - a * a), rel=1e-12)
+    assert h[2] == 1.0 and y == pytest.approx(su.measure(xp, 1.0)[0])
+    assert y - su.measure(np.array([xp[0], xp[1], 0.0]), 1.0)[0] == pytest.approx(xp[2], abs=1e-15)
+    # capacity uncertainty: SOC variance grows by capacity_error^2 |dSOC| per interval
+    s2 = s.with_(capacity_error_frac=0.03)
+    q2 = setup(m, s2).linearise(x, 2.0, 2.0, 10.0)[3]
+    q1 = su.linearise(x, 2.0, 2.0, 10.0)[3]
+    assert q2[0, 0] - q1[0, 0] == pytest.approx(0.03 ** 2 * 2.0 * 10.0 / (4.8 * 3600), rel=1e-9)
 
 
 def test_pure_python_equals_compiled(tmp_path):

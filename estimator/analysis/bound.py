@@ -160,10 +160,12 @@ def _model_run(time_s, current_a, voltage_v, temp_c, states, tab, n_rc, i_b, i_h
     b = b0.copy()
     bn = np.zeros((nx, nx))
     fb = np.zeros((nx, nx))
-    r = prm[K.P_VN] * prm[K.P_VN]
+    vn2 = prm[K.P_VN] * prm[K.P_VN]
+    re2 = prm[K.P_RERR] * prm[K.P_RERR]
     eye = np.eye(nx)
     zq = np.zeros((nx, nx))
     for k in range(n):
+        r = vn2 + re2 * current_a[k] * current_a[k]  # the EKF's R_k (kernels docstring)
         if k == 0:
             y, hrow = K.measure(tab, n_rc, i_b, i_h, prm, states[0], current_a[0], temp_c[0])
             _predict_update(b, eye, zq, hrow, r, first_update and voltage_v[0] == voltage_v[0], bn, fb)

@@ -42,7 +42,7 @@ def run_coulomb(model, rec, settings: FilterSettings | None = None, soc0: float 
     """
     su = setup(model, settings)
     s = su.settings
-    z0, sig0 = initial_soc(su, rec, soc0)
+    z0, sig0 = initial_soc(su, rec, soc0, check=False)
     n = rec.n
     soc, sig = np.empty(n), np.empty(n)
     m = n // 2 + 1

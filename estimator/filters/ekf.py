@@ -40,6 +40,7 @@ class EkfSetup:
     n_x: int
     names: tuple
     settings: FilterSettings
+    i_e: int = -1
 
     def linearise(self, x, i_prev, i_next, dt_s, t_prev=np.nan, t_next=np.nan):
         """``(x_pred, F, G, Q, H, y_pred)`` of one step; see :func:`estimator.kernels.linearise`."""
@@ -79,6 +80,10 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     if tab.has_hysteresis:
         i_h = nx
         nx += 1
+    i_e = -1
+    if s.model_error_v > 0.0:
+        i_e = nx
+        nx += 1
     prm = np.zeros(K.N_PRM)
     prm[K.P_VN] = s.voltage_noise_v
     prm[K.P_IN] = s.current_noise_a
@@ -96,9 +101,13 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_HM] = tab.hyst_max_v
     prm[K.P_TMIN] = tab.t_min
     prm[K.P_TSTEP] = tab.t_step
+    prm[K.P_SE] = s.model_error_v
+    prm[K.P_TAUE] = s.model_error_tau_s
+    prm[K.P_CAPERR] = s.capacity_error_frac
+    prm[K.P_RERR] = s.resistance_error_ohm
     prm.setflags(write=False)
     out = EkfSetup(tab, prm, n_rc, i_b, i_h, bool(s.estimate_hysteresis) and tab.has_hysteresis, nx,
-                   state_names(n_rc, i_b >= 0, i_h >= 0), s)
+                   state_names(n_rc, i_b >= 0, i_h >= 0, i_e >= 0), s, i_e)
     if tables is None:
         if len(_SETUP_CACHE) > 32:
             _SETUP_CACHE.clear()
@@ -114,31 +123,64 @@ def temperature_array(rec) -> np.ndarray:
     return np.where(np.isfinite(t), t, K.DEFAULT_TEMP_C)
 
 
-def initial_soc(su: EkfSetup, rec, soc0: float | None = None) -> tuple[float, float]:
-    """Initial SOC and its sigma (see the module docstring for the rule)."""
+def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True) -> tuple[float, float]:
+    """Initial SOC and its sigma (see the module docstring for the rule).
+
+    With ``soc0`` given and ``check`` True (the filters), the hand-over is checked against the
+    first voltage sample (:func:`handover`); the baseline passes ``check=False`` and counts from
+    ``soc0`` as given.
+    """
     s = su.settings
+    v = np.asarray(rec.voltage_v, dtype=float)
     if soc0 is not None:
         soc0 = float(soc0)
         if not np.isfinite(soc0):
             raise ValueError(f"soc0 must be finite, got {soc0}")
-        return soc0, s.p0_soc
-    v = np.asarray(rec.voltage_v, dtype=float)
+        sig = s.p0_soc
+        if check and rec.n and np.isfinite(v[0]):
+            # hand-over check: widen the given sigma to cover a disagreement with the voltage
+            zv, sv = _soc_from_voltage(su, v[0], float(rec.current_a[0]), float(temperature_array(rec)[0]))
+            return handover(soc0, sig, zv, sv)
+        return soc0, sig
     ok = np.flatnonzero(np.isfinite(v))
     if ok.size == 0:
         raise ValueError(f"recording {rec.name!r}: no finite voltage sample to start from; give soc0")
     k = int(ok[0])
-    t = float(temperature_array(rec)[k])
-    i = float(rec.current_a[k])
+    return _soc_from_voltage(su, v[k], float(rec.current_a[k]), float(temperature_array(rec)[k]))
+
+
+def handover(soc0: float, sig0: float, z_v: float, sig_v: float) -> tuple[float, float]:
+    """Start ``(soc, sigma)`` from a handed-over SOC after the check against the first voltage sample.
+
+    Covariance matching at the start (Mehra, IEEE Trans. Autom. Control 17, 1972, cited from
+    memory): the difference ``d = soc0 - z_v`` between the given SOC and the one read from the
+    voltage (``z_v`` with its own sigma ``sig_v``, large under load) should lie within their
+    combined spread.  When it does, the start is ``(soc0, sig0)``.  When it does not, the given
+    sigma is widened to ``w = sqrt(d^2 - sig_v^2)`` and the start is the inverse-variance mean of
+    ``soc0`` (sigma ``w``) and ``z_v`` with the sigma ``w`` (capped at 0.5), so a wrong hand-over
+    (a remembered SOC after an unknown rest, a swapped pack) is not defended by an over-confident
+    prior, and the first linearisation is not made at a point the voltage has already ruled out.
+    """
+    d2 = (soc0 - z_v) ** 2 - sig_v ** 2
+    if not d2 > sig0 * sig0:
+        return float(soc0), float(sig0)
+    w2 = d2
+    z = (soc0 / w2 + z_v / sig_v ** 2) / (1.0 / w2 + 1.0 / sig_v ** 2)
+    return float(z), float(min(np.sqrt(w2), 0.5))
+
+
+def _soc_from_voltage(su: EkfSetup, v: float, i: float, t: float) -> tuple[float, float]:
+    s = su.settings
     tab = su.tables
     pk = tab.packed
     # first guess without the drop, then one refinement with R0 at that SOC
-    z = K.ocv_inverse(pk, v[k], t, tab.t_min, tab.t_step)
+    z = K.ocv_inverse(pk, v, t, tab.t_min, tab.t_step)
     r0 = K.table_value(pk, 2, z, t, tab.t_min, tab.t_step)
-    z = K.ocv_inverse(pk, v[k] + r0 * i, t, tab.t_min, tab.t_step)
+    z = K.ocv_inverse(pk, v + r0 * i, t, tab.t_min, tab.t_step)
     r0 = K.table_value(pk, 2, z, t, tab.t_min, tab.t_step)
     r_rc = sum(K.table_value(pk, 4 + j, z, t, tab.t_min, tab.t_step) for j in range(tab.n_rc))
     _, slope = K.ocv_lookup(pk, z, t, tab.t_min, tab.t_step)
-    sv2 = s.voltage_noise_v ** 2 + (r0 * i) ** 2 + (r_rc * i) ** 2 + tab.hyst_max_v ** 2
+    sv2 = s.voltage_noise_v ** 2 + s.model_error_v ** 2 + (r0 * i) ** 2 + (r_rc * i) ** 2 + tab.hyst_max_v ** 2
     sig = float(np.clip(np.sqrt(sv2) / max(abs(slope), 1e-3), 0.01, 0.5))
     return float(z), sig
 
@@ -155,6 +197,8 @@ def _prior(su: EkfSetup, z0: float, sig0: float):
         p0[su.i_b, su.i_b] = s.p0_bias_a ** 2
     if su.i_h >= 0:
         p0[su.i_h, su.i_h] = s.p0_hyst ** 2 if su.est_h else 0.0
+    if su.i_e >= 0:
+        p0[su.i_e, su.i_e] = s.model_error_v ** 2
     return x0, p0
 
 

@@ -36,7 +36,24 @@ class FilterSettings:
     Parameters
     ----------
     voltage_noise_v : float
-        Sigma of the terminal-voltage measurement (sensor plus model error), V.
+        Sigma of the white part of the terminal-voltage error, per sample, V: the voltage
+        sensor's own noise when ``model_error_v > 0`` (the model's slowly varying error then has
+        its own state), else sensor plus model error lumped as white noise (rate dependent).
+    model_error_v : float
+        Magnitude (stationary sigma) of the model's slowly varying voltage error, V: OCV-table
+        error, hysteresis the model does not carry, RC-dynamics mismatch.  > 0 adds a
+        first-order Gauss-Markov state to the measurement equation (Gelb 1974, coloured
+        measurement noise by state augmentation; see :mod:`estimator.filters.kernels`), which
+        makes the filter's confidence independent of the sample rate.  0 = off (white noise only).
+    model_error_tau_s : float
+        Correlation time of that error, s (``a = exp(-dt/tau)``, ``q = sigma^2 (1 - a^2)``).
+    resistance_error_ohm : float
+        One-sigma error of the series resistance the model predicts with, ohm: adds
+        ``(resistance_error_ohm * current)^2`` to the white voltage variance of each sample (a
+        voltage under load says less about the OCV than one at rest).
+    capacity_error_frac : float
+        One-sigma relative error of the model capacity (fraction): the SOC variance grows by
+        ``capacity_error_frac^2 |dSOC|`` per interval, so the sigma widens with charge throughput.
     current_noise_a : float
         Sigma of white current-sensor noise, A.  Enters the process noise through the input
         Jacobian ``G``: ``Q_k = G G^T current_noise_a^2 + diag(q_*) dt``.
@@ -110,6 +127,10 @@ class FilterSettings:
     reseed: bool = True
     early_reseed_s: float = 0.0
     n_soc_grid: int = 401
+    model_error_v: float = 0.0
+    model_error_tau_s: float = 60.0
+    capacity_error_frac: float = 0.0
+    resistance_error_ohm: float = 0.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -128,7 +149,7 @@ class FilterSettings:
             object.__setattr__(self, f.name, float(v))
             if f.name in ("soc_min", "soc_max"):
                 continue
-            if f.name in ("voltage_noise_v",) and v <= 0:
+            if f.name in ("voltage_noise_v", "model_error_tau_s") and v <= 0:
                 raise SettingsError(f"filter setting {f.name} must be > 0, got {v!r}")
             if v < 0:
                 raise SettingsError(f"filter setting {f.name} must be >= 0, got {v!r}")
@@ -166,16 +187,33 @@ def default_settings(model) -> FilterSettings:
       on when the model has hysteresis.
     """
     c = float(model.capacity_ah)
+    r0_mid = float(model.r0_ohm.at(0.5, 25.0))
     q_each = [(0.1 * float(p.r_ohm.at(0.5, 25.0)) * c) ** 2 / float(p.tau_s.at(0.5, 25.0)) for p in model.rc]
     q_rc = max(q_each) if q_each else 1e-7
     p_rc = sum(float(p.r_ohm.at(0.5, 25.0)) * c for p in model.rc)
     return FilterSettings(
-        voltage_noise_v=0.01, current_noise_a=c / 100.0, q_soc_per_s=0.01 ** 2 / 3600.0,
+        voltage_noise_v=0.002, current_noise_a=c / 100.0, q_soc_per_s=0.01 ** 2 / 3600.0,
         q_rc_v2_per_s=q_rc, q_bias_a2_per_s=(c / 100.0) ** 2 / 3600.0, q_hyst_per_s=1e-6,
         p0_soc=0.02, p0_rc_v=max(p_rc, 0.005), p0_bias_a=c / 50.0, p0_hyst=0.5,
-        estimate_bias=False, estimate_hysteresis=model.hysteresis is not None,
+        estimate_bias=True, estimate_hysteresis=model.hysteresis is not None,
         gate_sigma=5.0, soc_min=0.0, soc_max=1.0, rest_current_a=c / 50.0, rest_min_s=3600.0,
-        reseed=True, early_reseed_s=0.0, n_soc_grid=401)
+        reseed=True, early_reseed_s=0.0, n_soc_grid=401,
+        model_error_v=_model_error_v(model), model_error_tau_s=60.0, capacity_error_frac=0.02,
+        resistance_error_ohm=0.2 * r0_mid)
+
+
+def _model_error_v(model) -> float:
+    """Magnitude of the slowly varying model error, V: 10 mV (common practice for an
+    equivalent-circuit model on dynamic load, no source) root-sum-squared with the OCV table's
+    own residual when the model file records one (``provenance.ocv.residual_v``)."""
+    extra = 0.0
+    try:
+        r = float((getattr(model, "provenance", None) or {}).get("ocv", {}).get("residual_v") or 0.0)
+        if math.isfinite(r) and 0.0 < r < 0.2:
+            extra = r
+    except (AttributeError, TypeError, ValueError):
+        extra = 0.0
+    return math.sqrt(0.01 ** 2 + extra ** 2)
 
 
 def settings_to_dict(s: FilterSettings) -> dict:

@@ -22,7 +22,7 @@ class Trace:
     voltage_pred_v : (N,)  predicted terminal voltage before the update, V (NaN for the baseline)
     innovation_v : (N,)  measured minus predicted voltage, V (NaN where no voltage or baseline)
     innovation_var_v2 : (N,)  innovation variance S, V^2 (NaN for the baseline)
-    states : (N, n_x)  full state ``[soc, v_rc_1..n, (bias_a), (h)]``
+    states : (N, n_x)  full state ``[soc, v_rc_1..n, (bias_a), (h), (model_error_v)]``
     soc_e : (N,) or None  energy-based SOC (fraction, at rest) from :mod:`estimator.energy`
     energy_wh_remaining : (N,) or None  rest energy left per cell, Wh
     soc_ref, soc_error : (N,) or None  lab reference and ``soc - soc_ref`` (fractions)
@@ -81,9 +81,9 @@ class Trace:
         return pd.DataFrame(cols)
 
 
-def state_names(n_rc: int, bias: bool, hyst: bool) -> tuple:
+def state_names(n_rc: int, bias: bool, hyst: bool, model_error: bool = False) -> tuple:
     return ("soc", *[f"v_rc_{j + 1}_v" for j in range(n_rc)], *(["bias_a"] if bias else []),
-            *(["hyst"] if hyst else []))
+            *(["hyst"] if hyst else []), *(["model_error_v"] if model_error else []))
 
 
 def make_trace(model, rec, method, soc, soc_sigma, vpred, innov, s, states, n_gated=0, reseeds=(),

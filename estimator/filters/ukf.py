@@ -3,9 +3,12 @@
 filterpy's ``UnscentedKalmanFilter`` with ``MerweScaledSigmaPoints`` (van der Merwe 2004;
 Julier and Uhlmann 1997) runs the process model :func:`estimator.kernels.transition` and
 the measurement :func:`estimator.kernels.measure` (the sampling rule, per-step ``dt``), so
-it shares the EKF's model code.  ``Q_k`` is the EKF's ``G G^T sigma_i^2 + diag(q) dt`` at
-the current mean.  NaN voltage = predict only; the same innovation gate and SOC clip as
-the EKF; the initial state comes from :func:`estimator.ekf.initial_soc`.
+it shares the EKF's model code (including the model-error state).  ``Q_k`` is the EKF's
+(:func:`estimator.kernels.linearise`) at the current mean, ``R_k = sigma_v^2 + (sigma_R i_k)^2``
+as in the EKF.  NaN voltage = predict only; the same innovation gate, gate release and SOC
+projection as the EKF; the initial state comes from :func:`estimator.ekf.initial_soc`.  Zero initial
+variances (``p0_soc = p0_rc_v = 0``, allowed by the schema) are raised to a tiny floor, since
+the sigma points need a positive-definite ``P``.
 """
 from __future__ import annotations
 
@@ -28,8 +31,10 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     nx = su.n_x
     z0, sig0 = initial_soc(su, rec, soc0)
     x0, p0 = _prior(su, z0, sig0)
-    if su.i_h >= 0 and not su.est_h:
-        p0[su.i_h, su.i_h] = 1e-12  # the sigma points need a positive-definite P
+    # the sigma points need a positive-definite P: zero variances (deterministic hysteresis,
+    # p0_soc = p0_rc_v = 0) get a floor far below any physical uncertainty
+    d0 = np.diag(p0).copy()
+    p0[np.diag_indices(nx)] = np.maximum(d0, 1e-12)
     pts = MerweScaledSigmaPoints(nx, alpha=UKF_ALPHA, beta=UKF_BETA, kappa=UKF_KAPPA)
     t, i, v = rec.time_s, rec.current_a, rec.voltage_v
     tc = temperature_array(rec)
@@ -43,8 +48,6 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     ukf = UnscentedKalmanFilter(dim_x=nx, dim_z=1, dt=1.0, hx=hx, fx=fx, points=pts)
     ukf.x = x0.copy()
     ukf.P = p0.copy()
-    r = np.array([[s.voltage_noise_v ** 2]])
-    ukf.R = r
     n = rec.n
     states = np.empty((n, nx))
     sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
@@ -57,12 +60,13 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
             if run_on:
                 run_s += dt
             _, _, _, q, _, _ = su.linearise(ukf.x, i[k - 1], i[k], dt, tc[k - 1], tc[k])
-            if su.i_h >= 0 and not su.est_h:
-                q[su.i_h, su.i_h] += 1e-12
+            q[np.diag_indices(nx)] += 1e-12
             ukf.Q = q
             ukf.predict(dt=dt, u=u, t_c=tc[k - 1])
         else:
             ukf.sigmas_f = pts.sigma_points(ukf.x, ukf.P)
+        r = np.array([[s.voltage_noise_v ** 2 + (s.resistance_error_ohm * i[k]) ** 2]])
+        ukf.R = r
         zs = np.array([hx(sp, i[k], tc[k]) for sp in ukf.sigmas_f])
         zp, smat = unscented_transform(zs, pts.Wm, pts.Wc, r)
         vp[k] = zp[0]

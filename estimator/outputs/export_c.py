@@ -57,10 +57,7 @@ SOURCE_FILES = ("socfuse_ekf.h", "socfuse_ekf.c", "harness.c")
 DEMO_DAY = "c48_day_lunch.csv"
 
 # health monitor and plausibility limits (common practice, no source; see README of the export)
-NIS_ALPHA = 1.0 / 64.0   # running mean over about 64 updates
-NIS_CAP = 25.0           # one sample adds at most a 5-sigma innovation
-NIS_HIGH = 9.0           # mean NIS 9 = innovations of 3 sigma on average: far above chi-square(1) mean 1
-NIS_LOW = 4.0
+from socfuse.estimator.filters.kernels import NIS_ALPHA, NIS_CAP, NIS_HIGH, NIS_LOW  # noqa: E402  (defined once)
 P_FLOOR = 1e-12
 T_LIMITS_C = (-60.0, 150.0)
 
@@ -190,7 +187,9 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         generator=GENERATOR, model_comment=safe_text(model.name or "unnamed cell model"),
         safety_note=_safety_note(),
         n_rc=su.n_rc, has_bias=int(su.i_b >= 0), has_hyst=int(su.i_h >= 0), est_hyst=int(su.est_h), n_x=su.n_x,
-        i_b=su.i_b, i_h=su.i_h, n_t=int(packed.shape[1]), n_s=n_s,
+        i_b=su.i_b, i_h=su.i_h, has_err=int(su.i_e >= 0), i_e=su.i_e,
+        model_error_v=c_float(s.model_error_v), model_error_tau_s=c_float(s.model_error_tau_s),
+        capacity_error_frac=c_float(s.capacity_error_frac), resistance_error_ohm=c_float(s.resistance_error_ohm), n_t=int(packed.shape[1]), n_s=n_s,
         n_bisect=int(math.ceil(math.log2(max(n_s - 1, 2)))) + 1,
         capacity_as=c_float(tab.capacity_as), eta_charge=c_float(tab.eta_charge), hyst_gamma=c_float(tab.hyst_gamma),
         hyst_max_v=c_float(tab.hyst_max_v), t_min=c_float(tab.t_min), t_step=c_float(tab.t_step),
