@@ -101,7 +101,7 @@ def test_verdict_names_the_winner_the_margin_and_a_reason():
     assert c.ekf_loses and any("cold recording (mean 5.0 degC, 1.0 to 9.0)" in r for r in c.reasons)
     assert any("mean NIS 1.90 outside its 95 % band" in r for r in c.reasons)
     # 1.03 - 1.00 = 0.03 <= 0.05 points: about equal
-    assert v[("day_a", "nominal")].winner == "tie"
+    assert v[("day_a", "nominal")].winner == "tie" and v[("day_a", "nominal")].leaders == ("ekf", "coulomb")
     head = " ".join(verdict_sentences(s))
     assert "the EKF has the lower SOC RMSE in 1, the coulomb baseline in 2, and they are about equal in 1" in head
     assert "cold / nominal (1.39 vs 1.09 points)" in head

@@ -153,6 +153,8 @@ class Verdict:
         Likely reasons when the EKF loses (or has the larger maximum error).
     sentence : str
         One plain sentence with the numbers.
+    leaders : tuple of str
+        The methods within the tie margin of the lowest RMSE (one when there is a clear winner).
     """
 
     recording: str
@@ -162,6 +164,7 @@ class Verdict:
     ekf_loses: bool
     reasons: tuple
     sentence: str
+    leaders: tuple = ()
 
 
 def figure_png(fig, dpi: int = 110) -> bytes:
@@ -396,11 +399,9 @@ def verdicts(summary, recordings=None) -> list[Verdict]:
             rows[m] = {k: r[k] for k in g.columns}
         order = sorted(figs, key=lambda m: figs[m][0])
         best = order[0]
-        winner = best
-        if len(order) > 1:
-            a, b = figs[order[0]][0], figs[order[1]][0]
-            if b - a <= max(TIE_POINTS, TIE_FRACTION * b):
-                winner = "tie"
+        a = figs[best][0]
+        leaders = tuple(m for m in order if figs[m][0] - a <= max(TIE_POINTS, TIE_FRACTION * figs[m][0]))
+        winner = best if len(leaders) == 1 else "tie"
         spec = str(rows[best].get("faults", "") or "")
         ekf_loses = False
         reasons: tuple = ()
@@ -435,7 +436,7 @@ def verdicts(summary, recordings=None) -> list[Verdict]:
             text = f"{rec}, {sc}: " + "; ".join(
                 f"{METHOD_LABELS.get(m, m)} RMSE {figs[m][0]:.2f}, P95 {figs[m][1]:.2f}, max {figs[m][2]:.2f} points"
                 for m in order) + "."
-        out.append(Verdict(str(rec), str(sc), winner, figs, ekf_loses, reasons, text))
+        out.append(Verdict(str(rec), str(sc), winner, figs, ekf_loses, reasons, text, leaders))
     return out
 
 
@@ -501,7 +502,8 @@ def _verdict_html(summary, recordings) -> str:
     rows = []
     for v in vs:
         if v.winner == "tie":
-            win = '<td class="win win-tie">= about equal</td>'
+            names = " = ".join(f"{METHOD_GLYPHS.get(m, '')} {METHOD_LABELS.get(m, m)}" for m in v.leaders)
+            win = f'<td class="win win-tie">{html.escape(names)} (about equal)</td>'
         else:
             win = (f'<td class="win win-{html.escape(v.winner)}">{METHOD_GLYPHS.get(v.winner, "")} '
                    f"{html.escape(METHOD_LABELS.get(v.winner, v.winner))}</td>")

@@ -1,0 +1,366 @@
+"""Regenerate every figure the README quotes and store them in ``docs/readme_figures.json``.
+
+Run from the repository root (under ``nice``: the slow parts take minutes on 2 cores)::
+
+    nice python benchmarks/readme_figures.py                      # every part
+    nice python benchmarks/readme_figures.py --parts demo energy  # some parts (the others are kept)
+    python benchmarks/readme_figures.py --check                   # compare README and the file only
+
+Each part runs what a user runs, with default options, and writes its figures (one number per
+key, in the unit the README prints) into the JSON file together with the command, the git commit
+and the UTC time.  The README marks each quoted number with an HTML comment naming its key,
+``966<!--fig:energy.usable_600w_wh--> Wh``, invisible when rendered; ``tests/test_readme_figures.py``
+fails when a marked number and the stored value disagree beyond the README's printed rounding.
+
+Parts (the numbers come from the documented paths, never from hand-picked options):
+
+- ``demo``: ``socfuse demo --out DIR`` (identification, likelihood tuning, benchmark on the three demo
+  days, tolerance study); mean RMSE per scenario and method over the days, the cold day, the EKF's
+  coverage range, the demo tolerance study's P95.
+- ``energy``: ``socfuse energy --model DIR/model.json --load-w 600 --pack 14s4p`` on the demo's
+  identified model (its printed rest and usable energy) and ``soc_c_to_e(model, 0.5)``.
+- ``montecarlo``: ``tolerance_study(model, lunch_day)`` with 1,000 runs and the sweeps, once with the
+  model-derived default settings and once with the demo's tuned ``filter.json``; its run time from
+  ``benchmarks/montecarlo_speed.py`` (last line).
+- ``speed``: ``benchmarks/speed.py`` (last line ``ns_per_step=.. ratio_vs_filterpy=..`` and the real
+  10 Hz and batched lines).
+- ``identify``: ``benchmarks/identify_speed.py`` (pulse-test timings) and the demo round trip of
+  ``socfuse.identify`` against the truth simulator's parameters.
+- ``generalisation``: ``benchmarks/generalisation.py --json`` (every reference case of DESIGN.md
+  section 7 through the CLI: demo, Panasonic 25/10/0 degC at 10 Hz, PyBaMM NMC and LFP); RMSE, max
+  and coverage per case, recording, rate and method, and its headline line.
+
+Intermediate files go to ``~/.cache/socfuse/readme_figures`` (``--work DIR``).  Timings are figures
+of this shared 2-core machine at the time of the run, stored as measured.
+"""
+from __future__ import annotations
+
+import argparse
+import contextlib
+import io
+import json
+import math
+import os
+import re
+import shutil
+import subprocess
+import sys
+import time
+from datetime import datetime, timezone
+from pathlib import Path
+
+REPO = Path(__file__).resolve().parents[1]
+if str(REPO) not in sys.path:
+    sys.path.insert(0, str(REPO))
+
+FIGURES = REPO / "docs" / "readme_figures.json"
+README = REPO / "README.md"
+SCHEMA = "socfuse.readme-figures/1"
+PARTS = ("demo", "energy", "montecarlo", "speed", "identify", "generalisation")
+MARKER = re.compile(r"([+-]?\d[\d,]*(?:\.\d+)?)<!--fig:([A-Za-z0-9_.\-]+)-->")
+DEMO_SCENARIOS = ("nominal", "soc0", "offset", "gain", "vnoise", "fade", "toffset", "vdrop", "ocv_offset", "combined")
+
+
+# ====================================================================== comparison (used by the test)
+def readme_marks(text: str) -> list[tuple[str, str, int]]:
+    """``(key, printed number, line number)`` for every ``N<!--fig:KEY-->`` in the README text."""
+    out = []
+    for k, line in enumerate(text.splitlines(), start=1):
+        for m in MARKER.finditer(line):
+            out.append((m.group(2), m.group(1), k))
+    return out
+
+
+def printed_mismatch(printed: str, value: float) -> str | None:
+    """Why ``printed`` does not show ``value`` at its own rounding (None when it does).
+
+    ``"959"`` shows 958.5 .. 959.5; ``"0.98"`` shows 0.975 .. 0.985 (half a unit of the last digit).
+    """
+    s = printed.replace(",", "")
+    decimals = len(s.split(".")[1]) if "." in s else 0
+    half = 0.5 * 10.0 ** (-decimals)
+    if not isinstance(value, (int, float)) or not math.isfinite(float(value)):
+        return f"stored value {value!r} is not a number"
+    if abs(float(s) - float(value)) > half * (1 + 1e-9) + 1e-12:
+        return f"README prints {printed}, regenerated value is {float(value):.{decimals + 2}f}"
+    return None
+
+
+def flat_figures(data: dict) -> dict:
+    """``key -> value`` over all parts of a figures file (keys are ``part.name``)."""
+    out = {}
+    for part, body in data.get("parts", {}).items():
+        for k, v in body.get("figures", {}).items():
+            out[f"{part}.{k}"] = v
+    return out
+
+
+def check_readme(readme_text: str, data: dict) -> list[str]:
+    """Problems between the README's marked numbers and the stored figures (empty: all agree)."""
+    figs = flat_figures(data)
+    problems = []
+    for key, printed, line in readme_marks(readme_text):
+        if key not in figs:
+            problems.append(f"README line {line}: {printed} is marked {key!r}, which the figures file does not have")
+            continue
+        why = printed_mismatch(printed, figs[key])
+        if why:
+            problems.append(f"README line {line} ({key}): {why}")
+    return problems
+
+
+# ====================================================================== helpers
+def _git_commit() -> str:
+    if os.environ.get("SOCFUSE_GIT_COMMIT"):  # a snapshot of a commit (git archive) has no .git
+        return os.environ["SOCFUSE_GIT_COMMIT"]
+    try:
+        out = subprocess.run(["git", "rev-parse", "--short", "HEAD"], cwd=REPO, capture_output=True, text=True,
+                             check=True)
+        dirty = subprocess.run(["git", "status", "--porcelain", "--untracked-files=no"], cwd=REPO,
+                               capture_output=True, text=True, check=True).stdout.strip()
+        return out.stdout.strip() + ("+uncommitted" if dirty else "")
+    except (OSError, subprocess.CalledProcessError):
+        return "unknown"
+
+
+def _cli(argv) -> str:
+    """Run ``socfuse ARGV`` in process; its stdout (exit code must be 0)."""
+    from socfuse.estimator.cli.main import main
+
+    buf = io.StringIO()
+    with contextlib.redirect_stdout(buf):
+        rc = main([str(a) for a in argv])
+    if rc not in (0, None):
+        raise RuntimeError(f"socfuse {' '.join(map(str, argv))} exited {rc}")
+    return buf.getvalue()
+
+
+def _script(name: str, *args: str) -> str:
+    """Run ``benchmarks/NAME ARGS`` in a fresh interpreter; its stdout."""
+    env = dict(os.environ, PYTHONPATH=str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    res = subprocess.run([sys.executable, str(REPO / "benchmarks" / name), *args], cwd=REPO, env=env,
+                         capture_output=True, text=True)
+    if res.returncode != 0:
+        raise RuntimeError(f"benchmarks/{name} exited {res.returncode}: {res.stderr.strip().splitlines()[-1:]}")
+    return res.stdout
+
+
+def _num(pattern: str, text: str, what: str) -> float:
+    m = re.search(pattern, text)
+    if m is None:
+        raise RuntimeError(f"{what}: pattern {pattern!r} not found in the output")
+    return float(m.group(1).replace(",", ""))
+
+
+def _demo_dir(work: Path, refresh: bool) -> Path:
+    out = work / "demo"
+    if refresh or not (out / "summary.csv").is_file():
+        if out.exists():
+            shutil.rmtree(out)
+        _cli(["demo", "--out", out, "--quiet"])
+    return out
+
+
+# ====================================================================== parts
+def part_demo(work: Path) -> tuple[dict, str]:
+    import pandas as pd
+
+    out = _demo_dir(work, refresh=True)
+    s = pd.read_csv(out / "summary.csv")
+    figs: dict = {}
+    for sc in DEMO_SCENARIOS:
+        for m in ("ekf", "coulomb", "ukf"):
+            sub = s[(s["scenario"] == sc) & (s["method"] == m)]
+            if len(sub):
+                figs[f"rmse_mean.{sc}.{m}"] = float(sub["rmse_pct"].mean())
+                figs[f"max.{sc}.{m}"] = float(sub["max_abs_pct"].max())
+    for day in sorted(set(s["recording"])):
+        for m in ("ekf", "coulomb"):
+            sub = s[(s["recording"] == day) & (s["scenario"] == "nominal") & (s["method"] == m)]
+            if len(sub):
+                short = day.replace("c48_day_", "")
+                figs[f"{short}.nominal.{m}.rmse"] = float(sub["rmse_pct"].iloc[0])
+                figs[f"{short}.nominal.{m}.max"] = float(sub["max_abs_pct"].iloc[0])
+                figs[f"{short}.nominal.{m}.p95"] = float(sub["p95_abs_pct"].iloc[0])
+    cov = s.loc[s["method"] == "ekf", "inside_3sigma"].astype(float).dropna()
+    if len(cov):
+        figs["ekf_coverage_min_pct"] = 100.0 * float(cov.min())
+        figs["ekf_coverage_max_pct"] = 100.0 * float(cov.max())
+    page = (out / "report.html").read_text(encoding="utf-8")
+    m = re.findall(r"(ekf|coulomb)\s+P50 ([\d.]+) %\s+P95 ([\d.]+) %", page)
+    for meth, p50, p95 in m:
+        figs[f"tolerance.{meth}.p50"] = float(p50)
+        figs[f"tolerance.{meth}.p95"] = float(p95)
+    return figs, f"socfuse demo --out {out}"
+
+
+def part_energy(work: Path) -> tuple[dict, str]:
+    from socfuse.estimator.filters.energy import soc_c_to_e, usable_energy
+    from socfuse.models.modelfile import load_model
+
+    out = _demo_dir(work, refresh=False)
+    model_path = out / "model.json"
+    text = _cli(["energy", "--model", model_path, "--load-w", "600", "--pack", "14s4p"])
+    model = load_model(model_path)
+    r = usable_energy(model, power_w=600.0, pack="14s4p", n_steps=1000)
+    figs = {
+        "rest_wh": _num(r"rest energy \(full to empty\): ([\d.,]+) Wh", text, "energy"),
+        "usable_600w_wh": _num(r"usable energy at [^:]*: ([\d.,]+) Wh", text, "energy"),
+        "runtime_600w_h": r.runtime_s / 3600.0,
+        "soc_e_at_half_pct": 100.0 * float(soc_c_to_e(model, 0.5)),
+    }
+    return figs, f"socfuse energy --model {model_path} --load-w 600 --pack 14s4p"
+
+
+def _study_figs(study, prefix: str) -> dict:
+    figs = {}
+    for m in study.methods:
+        figs[f"{prefix}.{m}.p50"] = 100.0 * float(study.p50[m])
+        figs[f"{prefix}.{m}.p95"] = 100.0 * float(study.p95[m])
+    for sw in study.sweeps:
+        scale, unit = (1000.0, "ma") if sw.knob == "current_offset_a" else (100.0, "pct")
+        for m, lim in sw.limit.items():
+            if lim is not None:
+                figs[f"{prefix}.{m}.{sw.knob}_limit_{unit}"] = scale * float(lim)
+    return figs
+
+
+def part_montecarlo(work: Path) -> tuple[dict, str]:
+    from socfuse.estimator.analysis.montecarlo import tolerance_study
+    from socfuse.estimator.filters.settings import load_settings
+    from socfuse.models.loaders import load_recording
+    from socfuse.models.modelfile import load_model
+
+    out = _demo_dir(work, refresh=False)
+    model = load_model(out / "model.json")
+    day = load_recording(REPO / "datasets" / "c48_day_lunch.csv")
+    t0 = time.perf_counter()
+    figs = _study_figs(tolerance_study(model, day, n_runs=1000, seed=0), "default")
+    figs["default_seconds"] = time.perf_counter() - t0
+    figs.update(_study_figs(tolerance_study(model, day, load_settings(out / "filter.json"), n_runs=1000, seed=0),
+                            "tuned"))
+    figs["samples"] = float(day.n)
+    last = _script("montecarlo_speed.py").strip().splitlines()[-1]
+    figs["speed_runs"] = _num(r"runs=(\d+)", last, "montecarlo_speed")
+    figs["speed_seconds"] = _num(r"seconds=([\d.]+)", last, "montecarlo_speed")
+    return figs, ("tolerance_study(demo model, c48_day_lunch, n_runs=1000, seed=0) with default settings and with "
+                  "the demo's filter.json; python benchmarks/montecarlo_speed.py")
+
+
+def part_speed(work: Path) -> tuple[dict, str]:
+    text = _script("speed.py")
+    last = text.strip().splitlines()[-1]
+    figs = {"ns_per_step": _num(r"ns_per_step=([\d.]+)", last, "speed"),
+            "ratio_vs_filterpy": _num(r"ratio_vs_filterpy=([\d.]+)", last, "speed"),
+            "batch_million_per_s": _num(r"batched: .*?: ([\d.]+) million cell-steps/s", text, "speed")}
+    real = re.search(r"(\d+) steps\s+ours\s+([\d.]+) ns/step.*ratio\s+(\d+)\s+\(demo model on the real", text)
+    if real:
+        figs.update({"real_steps": float(real.group(1)), "real_ns_per_step": float(real.group(2)),
+                     "real_ratio_vs_filterpy": float(real.group(3))})
+    return figs, "python benchmarks/speed.py"
+
+
+def part_identify(work: Path) -> tuple[dict, str]:
+    import numpy as np
+
+    from socfuse.estimator.demo.truth import truth_cell_model
+    from socfuse.models.identify.pipeline import identify
+    from socfuse.models.loaders import load_recording
+
+    data = REPO / "datasets"
+    c20 = load_recording(data / "c48_c20_25degC.csv")
+    pulses = [load_recording(data / "c48_pulse_25degC.csv"), load_recording(data / "c48_pulse_05degC.csv")]
+    res = identify(c20, pulses, name="demo cell C48 (identified)")
+    model = res.model
+    truth = truth_cell_model(25.0)
+    z = np.linspace(0.1, 0.9, 81)
+    figs = {"demo_capacity_ah": float(model.capacity_ah),
+            "demo_capacity_err_pct": 100.0 * (model.capacity_ah / truth.capacity_ah - 1.0),
+            "demo_ocv_max_err_mv": 1000.0 * float(np.max(np.abs(np.asarray(model.ocv.voltage(z, 25.0))
+                                                                 - np.asarray(truth.ocv.voltage(z, 25.0)))))}
+    zz = np.linspace(0.2, 0.9, 8)
+    for t_c in (25.0, 5.0):
+        tm = truth_cell_model(t_c)
+        r0 = np.asarray(model.r0_ohm.at(zz, t_c), dtype=float)
+        r0_t = np.asarray(tm.r0_ohm.at(zz, t_c), dtype=float)
+        figs[f"demo_r0_max_err_pct_{t_c:g}c"] = 100.0 * float(np.max(np.abs(r0 / r0_t - 1.0)))
+    text = _script("identify_speed.py")
+    m = re.findall(r"([\d.]+) s", text)
+    if m:
+        figs["speed_lines"] = float(len(m))
+    demo_t = re.search(r"demo[^\n]*?pulse[^\n]*?([\d.]+) s", text)
+    if demo_t:
+        figs["demo_pulse_s"] = float(demo_t.group(1))
+    return figs, "socfuse.identify on datasets/ against the truth simulator; python benchmarks/identify_speed.py"
+
+
+def part_generalisation(work: Path) -> tuple[dict, str]:
+    out = work / "generalisation.json"
+    text = _script("generalisation.py", "--json", str(out))
+    last = text.strip().splitlines()[-1]
+    figs = {"worst_ekf_rmse_pct": _num(r"worst_ekf_rmse_pct=([\d.]+)", last, "generalisation"),
+            "coverage_min_pct": _num(r"coverage_min=([\d.]+)", last, "generalisation")}
+    m = re.search(r"ekf_beats_baseline=(\d+)/(\d+)", last)
+    if m:
+        figs["ekf_beats"], figs["pairs"] = float(m.group(1)), float(m.group(2))
+    for r in json.loads(out.read_text()):
+        if r.get("method") not in ("ekf", "coulomb"):
+            continue
+        key = "_".join(str(r.get(k, "")) for k in ("case", "recording", "rate", "method"))
+        key = re.sub(r"[^A-Za-z0-9_.\-]", "_", key)
+        for col in ("rmse_pct", "max_pct", "coverage_pct", "wrong_start_rmse_pct", "offset_rmse_pct"):
+            v = r.get(col)
+            if isinstance(v, (int, float)) and math.isfinite(v):
+                figs[f"{key}.{col}"] = float(v)
+    return figs, "python benchmarks/generalisation.py --json FILE"
+
+
+RUNNERS = {"demo": part_demo, "energy": part_energy, "montecarlo": part_montecarlo, "speed": part_speed,
+           "identify": part_identify, "generalisation": part_generalisation}
+
+
+def load_figures(path: Path = FIGURES) -> dict:
+    """The stored figures file (an empty skeleton when there is none)."""
+    if path.is_file():
+        return json.loads(path.read_text(encoding="utf-8"))
+    return {"schema": SCHEMA, "parts": {}}
+
+
+def main(argv=None) -> int:
+    ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    ap.add_argument("--parts", nargs="+", choices=PARTS, default=list(PARTS), help="parts to regenerate")
+    ap.add_argument("--out", default=str(FIGURES), help="figures file (default docs/readme_figures.json)")
+    ap.add_argument("--work", default=str(Path.home() / ".cache" / "socfuse" / "readme_figures"),
+                    help="folder for intermediate files")
+    ap.add_argument("--check", action="store_true", help="only compare the README with the figures file")
+    a = ap.parse_args(argv)
+    path = Path(a.out)
+    data = load_figures(path)
+    if not a.check:
+        work = Path(a.work)
+        work.mkdir(parents=True, exist_ok=True)
+        # demo first: energy and montecarlo use its model
+        for name in [p for p in PARTS if p in a.parts]:
+            t0 = time.perf_counter()
+            print(f"[{name}] ...", file=sys.stderr, flush=True)
+            figs, command = RUNNERS[name](work)
+            data["parts"][name] = {"command": command, "git_commit": _git_commit(),
+                                   "generated_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
+                                   "seconds": round(time.perf_counter() - t0, 1),
+                                   "figures": {k: (round(v, 6) if isinstance(v, float) else v)
+                                               for k, v in sorted(figs.items())}}
+            print(f"[{name}] {len(figs)} figures in {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
+            path.parent.mkdir(parents=True, exist_ok=True)
+            tmp = path.with_suffix(".json.tmp")
+            tmp.write_text(json.dumps(data, indent=1, sort_keys=True) + "\n", encoding="utf-8")
+            tmp.replace(path)
+    problems = check_readme(README.read_text(encoding="utf-8"), data)
+    n = len(readme_marks(README.read_text(encoding="utf-8")))
+    for p in problems:
+        print(p)
+    print(f"readme_marks={n} disagreeing={len(problems)} figures={len(flat_figures(data))}")
+    return 1 if problems else 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
