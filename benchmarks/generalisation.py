@@ -73,10 +73,9 @@ if str(REPO.parent) not in sys.path and not (REPO / "socfuse").is_dir():  # prag
 
 os.environ.setdefault("PYBAMM_DISABLE_TELEMETRY", "true")
 
-WRONG_START = 0.30          # 30 points (issue 11, item 5)
-WRONG_START_AFTER_S = 600.0
-HANDOVER_FRACTION = 0.40    # hand-over at the first loaded sample after 40 % of the recording
-LOAD_C = 0.2                # "under load": |I| >= C/5
+# the wrong start is the one socfuse tune's soc-error objective uses (one definition): 30 points, handed
+# over at the first sample with |I| >= C/5 after 40 % of the recording, scored from 600 s after it
+from socfuse.estimator.analysis.tuning import WRONG_START, WRONG_START_AFTER_S, handover_index  # noqa: E402
 OFFSET_C = 0.025            # 0.5 % of a 5C full scale (estimator.analysis.faults default)
 PAN_PRESET = "panasonic-18650pf"
 
@@ -206,11 +205,7 @@ def physics_cases(cache: Path, short: bool = False) -> tuple[list, str]:
     path = REPO / "datasets" / "physics.py"
     if not path.is_file():
         return [], "datasets/physics.py is not in the repository yet"
-    import importlib.util
-
-    spec = importlib.util.spec_from_file_location("socfuse_physics_datasets", path)
-    mod = importlib.util.module_from_spec(spec)
-    spec.loader.exec_module(mod)
+    from socfuse.datasets import physics as mod
     cases = []
     for name, cell, what in (("nmc", "chen2020_nmc", "PyBaMM Chen2020 NMC811 (Chen et al. 2020)"),
                              ("lfp", "prada2013_lfp", "PyBaMM Prada2013 LFP (Prada et al. 2013)")):
@@ -281,14 +276,6 @@ def _derive(rec: TestRec, capacity_ah, work: Path, kind: str, **kw) -> Path:
     return out
 
 
-def handover_index(time_s, current_a, capacity_ah) -> int:
-    """First sample after HANDOVER_FRACTION of the duration with |I| >= LOAD_C * C."""
-    t = np.asarray(time_s)
-    start = t[0] + HANDOVER_FRACTION * (t[-1] - t[0])
-    ok = np.nonzero((t >= start) & (np.abs(current_a) >= LOAD_C * capacity_ah))[0]
-    return int(ok[0]) if ok.size else int(np.searchsorted(t, start))
-
-
 # ============================================================================ metrics
 def read_trace(path: Path):
     import pandas as pd
@@ -312,7 +299,13 @@ def metrics(tr, after_s: float | None = None) -> dict:
 
 
 # ============================================================================ running a case
-def run_case(case: Case, cache: Path, quick: bool, verbose: bool) -> list[dict]:
+def run_case(case: Case, cache: Path, quick: bool, verbose: bool, scenarios=("wrong_start", "offset"),
+             only=None) -> list[dict]:
+    """Rows of one case: identify, tune, then estimate every test recording with both methods.
+
+    ``scenarios``: which of ``wrong_start`` and ``offset`` to run beside the nominal one (tests run
+    fewer to stay short); ``only``: names of the test recordings to run (default all).
+    """
     work = cache / case.name
     work.mkdir(parents=True, exist_ok=True)
     cli = Cli(work / "cli.log", verbose)
@@ -338,12 +331,16 @@ def run_case(case: Case, cache: Path, quick: bool, verbose: bool) -> list[dict]:
             refused.write_text(f"exit {rc}: {cli.last_stderr.strip()}\n")
         (work / "tune_stdout.txt").write_text(cli.last_stdout + cli.last_stderr)
     if refused.exists():
-        tune_note = "tune refused; defaults used: " + refused.read_text().strip().splitlines()[0][:160]
+        txt = refused.read_text().strip().splitlines()
+        why = [ln for ln in txt if "refused" in ln] or txt[:1]
+        tune_note = "tune refused, defaults used: " + why[0].split("refused, nothing written: ")[-1][:300]
     filt_args = ["--filter", filt] if filt.exists() else []
 
     tests = list(case.tests)
     if quick:
         tests = [t for t in tests if t.tuned_on][:1] + [t for t in tests if not t.tuned_on][:1]
+    if only is not None:
+        tests = [t for t in tests if t.name in only]
     plan = [(t, False) for t in tests]
     if case.extra.get("one_hz") and not quick:
         plan += [(t, True) for t in tests if t.name in case.extra["one_hz"]]
@@ -356,11 +353,11 @@ def run_case(case: Case, cache: Path, quick: bool, verbose: bool) -> list[dict]:
         rec_args = list(base.mapping) + (mapping if base.mapping else [])
         r = _load(base, capacity)
         offset_a = OFFSET_C * capacity
-        off_file = _derive(base, capacity, work, "offset", offset_a=offset_a)
+        off_file = _derive(base, capacity, work, "offset", offset_a=offset_a) if "offset" in scenarios else None
         k = handover_index(r.time_s, r.current_a, capacity)
         ref_k = float(r.soc_ref[k])
         wrong = ref_k - WRONG_START if ref_k > 0.5 else ref_k + WRONG_START
-        hand_file = _derive(base, capacity, work, "handover", k=k)
+        hand_file = _derive(base, capacity, work, "handover", k=k) if "wrong_start" in scenarios else None
         for method in ("ekf", "coulomb"):
             res = {"case": case.name, "recording": rec.name + (" (tuned on)" if rec.tuned_on else ""),
                    "rate": base.rate, "method": method, "tuned_on": rec.tuned_on, "note": tune_note}
@@ -375,12 +372,12 @@ def run_case(case: Case, cache: Path, quick: bool, verbose: bool) -> list[dict]:
                     continue
             res.update(metrics(read_trace(tr_nom)))
             tr_ws = work / f"{tag}_wrongstart.csv"
-            if not tr_ws.exists():
+            if not tr_ws.exists() and "wrong_start" in scenarios:
                 cli(["estimate", "--model", model, *m_args, "--soc0", f"{wrong:.6f}", hand_file, "-o", tr_ws])
             if tr_ws.exists():
                 res["wrong_start_rmse_pct"] = metrics(read_trace(tr_ws), WRONG_START_AFTER_S)["rmse_pct"]
             tr_off = work / f"{tag}_offset.csv"
-            if not tr_off.exists():
+            if not tr_off.exists() and "offset" in scenarios:
                 cli(["estimate", "--model", model, *m_args, off_file, "-o", tr_off])
             if tr_off.exists():
                 res["offset_rmse_pct"] = metrics(read_trace(tr_off))["rmse_pct"]

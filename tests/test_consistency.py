@@ -123,3 +123,38 @@ def test_whiteness_detects_correlated_innovations():
         ar[k] = 0.8 * ar[k - 1] + white[k]
     _, rho_ar, _ = innovation_autocorrelation(ar, np.ones(5000), 3)
     assert rho_ar[0] == pytest.approx(0.8, abs=0.03)
+
+
+def test_correlated_innovations_are_never_called_consistent():
+    # A first-order autoregressive sequence with unit marginal variance: its NIS mean is about 1, so
+    # the ordinary chi-square test alone would say "consistent"; the whiteness test of Bar-Shalom,
+    # Li, Kirubarajan (2001, ch. 5.4: lag autocorrelation outside +-1.96/sqrt(N)) must flag it.
+    from socfuse.estimator.analysis.consistency import chi2_band_effective
+
+    rng = np.random.default_rng(4)
+    n, a = 20000, 0.9
+    w = rng.normal(size=n)
+    e = np.empty(n)
+    e[0] = w[0]
+    for k in range(1, n):
+        e[k] = a * e[k - 1] + np.sqrt(1.0 - a * a) * w[k]  # stationary variance 1 (textbook AR(1))
+    res = nis_test(e, np.ones(n))
+    assert res.mean == pytest.approx(1.0, abs=0.1)
+    assert res.lag1_autocorr == pytest.approx(a, abs=0.02)
+    assert res.white is False and not res.passed
+    assert res.verdict == "correlated"
+    assert "correlated" in res.describe()
+    # effective sample count of the mean of squares of an AR(1) sequence: N (1 - a^2) / (1 + a^2)
+    # (squares of a Gaussian AR(1) have lag-j correlation a^(2j); Bartlett 1946, from memory)
+    assert res.n_effective == pytest.approx(n * (1 - a ** 2) / (1 + a ** 2), rel=0.05)
+    lo, hi = chi2_band_effective(res.n_effective)
+    # scipy.stats.chi2 with real degrees of freedom as the reference
+    assert (lo, hi) == pytest.approx((stats.chi2.ppf(0.025, res.n_effective) / res.n_effective,
+                                      stats.chi2.ppf(0.975, res.n_effective) / res.n_effective), rel=1e-12)
+    assert (res.band_lo_eff, res.band_hi_eff) == pytest.approx((lo, hi), rel=1e-12)
+    assert res.band_hi_eff > res.band_hi  # the band widens
+    # the same sequence, overconfident by a factor 4 in variance, is still called overconfident
+    assert nis_test(2.0 * e, np.ones(n)).verdict == "overconfident"
+    # white samples of the same length pass (lag-1 inside the band)
+    white = nis_test(w, np.ones(n))
+    assert white.white is True and white.verdict == "consistent"
