@@ -28,7 +28,7 @@ from pathlib import Path
 
 import numpy as np
 
-from socfuse.models.fileio import write_text_replacing
+from socfuse.models.fileio import JsonFileError, read_json, write_text_replacing
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.tables import ParamTable
 from socfuse.models.thevenin import CellModel, Hysteresis, RcPair
@@ -158,9 +158,9 @@ def load_model(path) -> CellModel:
     """Read and validate a cell-model JSON file."""
     path = Path(path)
     try:
-        d = json.loads(path.read_text())
+        d = read_json(path, "cell-model")  # names the file on bad UTF-8, deep nesting, absurd numbers
     except FileNotFoundError:
         raise ModelFileError(f"{path}: no such file") from None
-    except json.JSONDecodeError as e:
-        raise ModelFileError(f"{path}: not valid JSON (line {e.lineno}, column {e.colno}: {e.msg})") from None
+    except JsonFileError as e:
+        raise ModelFileError(str(e)) from None
     return model_from_dict(d, where=str(path))

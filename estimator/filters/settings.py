@@ -17,7 +17,7 @@ import json
 import math
 from dataclasses import asdict, dataclass, fields, replace
 from pathlib import Path
-from socfuse.models.fileio import write_text_replacing
+from socfuse.models.fileio import JsonFileError, read_json, write_text_replacing
 
 __all__ = ["FILTER_SCHEMA", "FilterSettings", "SettingsError", "default_settings", "save_settings",
            "load_settings", "resolve_settings", "settings_from_dict", "settings_to_dict"]
@@ -140,7 +140,7 @@ class FilterSettings:
                     raise SettingsError(f"filter setting {f.name} must be true or false, got {v!r}")
                 continue
             if f.name == "n_soc_grid":
-                if isinstance(v, bool) or int(v) != v or not (11 <= int(v) <= 10001):
+                if isinstance(v, bool) or not isinstance(v, (int, float)) or int(v) != v or not (11 <= int(v) <= 10001):
                     raise SettingsError(f"filter setting n_soc_grid must be an integer in 11..10001, got {v!r}")
                 object.__setattr__(self, f.name, int(v))
                 continue
@@ -276,9 +276,9 @@ def load_settings(path, base: FilterSettings | None = None) -> FilterSettings:
     """Read and validate a ``socfuse.filter/1`` file; missing keys come from ``base``."""
     path = Path(path)
     try:
-        d = json.loads(path.read_text())
+        d = read_json(path, "filter-settings")  # names the file on bad UTF-8, deep nesting, absurd numbers
     except FileNotFoundError:
         raise SettingsError(f"{path}: no such file") from None
-    except json.JSONDecodeError as e:
-        raise SettingsError(f"{path}: not valid JSON (line {e.lineno}, column {e.colno}: {e.msg})") from None
+    except JsonFileError as e:
+        raise SettingsError(str(e)) from None
     return settings_from_dict(d, where=str(path), base=base)
