@@ -203,7 +203,7 @@ def _remove(p: Path) -> None:
 
 
 @contextmanager
-def output_folder(path, tool: str, *, force: bool = False, rerun: bool = True):
+def output_folder(path, tool: str, *, force: bool = False, rerun: bool = True, legacy_marker: str | None = None):
     """Context manager for a run that writes a folder of outputs (module docstring).
 
     Parameters
@@ -218,6 +218,9 @@ def output_folder(path, tool: str, *, force: bool = False, rerun: bool = True):
     rerun : bool
         Allow replacing the outputs of an earlier run of ``tool`` (demo, export-c); False
         refuses such a folder unless ``force`` (bench: reports are never replaced silently).
+    legacy_marker : str, optional
+        File name by which an older version of ``tool`` marked its folders (without
+        ``.socfuse-run.json``); a folder holding it counts as written by ``tool``.
 
     Yields
     ------
@@ -249,6 +252,8 @@ def output_folder(path, tool: str, *, force: bool = False, rerun: bool = True):
             prev_raw = (out / MARKER_NAME).read_bytes()
         ours = set(prev["files"]) if prev and prev.get("tool") == tool else set()
         present = {e.name for e in out.iterdir()} - {LOCK_NAME, MARKER_NAME}
+        if prev is None and legacy_marker and (out / legacy_marker).is_file():
+            ours = set(present)
         if ours and not rerun and not force and present & ours:
             raise OutputPathError(f"{out} holds the outputs of an earlier {tool} run; choose a new --out folder "
                                   "or use --force (files are never replaced silently)")

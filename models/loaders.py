@@ -28,8 +28,9 @@ Rules (the same for every format):
 - Damaged CSV files: a data row with fewer fields than the header is refused, except the last
   line of the file, which a logger killed while writing leaves short: it is dropped and
   reported in ``metadata["truncated_last_row"]``; so is a last line without a line end whose
-  last field is shorter than every value of that column in the rows before it (a number cut
-  in the middle).  A field over the CSV module's limit (128 KiB) is refused.
+  last field is blank or shorter than every value of that column in the 50 rows before it (a
+  number cut in the middle).  A cut that leaves a field as long as earlier ones (columns
+  written with varying widths) cannot be told from a complete line.  A field over the CSV module's limit (128 KiB) is refused.
 - Packs: ``series_cells`` divides the voltage and ``parallel_cells`` the current, so a pack log
   can be estimated with a cell model (the cells are assumed balanced).
 - Rows whose time repeats the previous row's time exactly are dropped (the first is kept)
@@ -61,7 +62,7 @@ from socfuse.models.recording import Recording, RecordingError
 
 __all__ = [
     "ColumnMap", "PRESETS", "make_column_map", "load_recording", "read_table", "RawTable",
-    "CANONICAL_COLUMNS",
+    "CANONICAL_COLUMNS", "bundled_recording_path",
 ]
 
 CANONICAL_COLUMNS = ("time_s", "current_a", "voltage_v", "temperature_c", "soc_ref")
@@ -382,16 +383,15 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
         info["truncated_last_row"] = f"file line {line} has {nf} of {width} fields"
         rows.pop()
         line_no.pop()
-    elif rows and not ends_with_newline and len(rows) > 1:
-        last = rows[-1]
-        c = max((c for c, f in enumerate(last) if f.strip()), default=-1)
-        if c >= 0:
-            prev = [len(r[c].strip()) for r in rows[-51:-1] if r[c].strip()]
-            if prev and len(last[c].strip()) < min(prev):
-                info["truncated_last_row"] = (f"file line {line_no[-1]} ends without a line end after a short "
-                                              f"field {last[c].strip()!r}")
-                rows.pop()
-                line_no.pop()
+    elif rows and not ends_with_newline and len(rows) > 1 and named > 0:
+        last, c = rows[-1], named - 1  # a cut inside the last line shortens (or empties) its last field
+        prev = [r[c].strip() for r in rows[-51:-1]]
+        field = last[c].strip()
+        if all(prev) and (not field or len(field) < min(len(x) for x in prev)):
+            info["truncated_last_row"] = (f"file line {line_no[-1]} ends without a line end after a short "
+                                          f"field {field!r}")
+            rows.pop()
+            line_no.pop()
     if not rows:
         raise RecordingError(f"{path}: no data rows after the header (file line {hidx + 1})")
     columns = list(zip(*rows))
@@ -788,3 +788,24 @@ def load_recording(path, mapping: ColumnMap | None = None, *, preset: str | None
     cmap = make_column_map(preset=preset, mapping=mapping, **options)
     table = read_table(path, cmap)
     return recording_from_table(table, cmap)
+
+
+def bundled_recording_path(name: str) -> Path | None:
+    """Path of a bundled demo recording (package data ``socfuse.datasets``), or None when not installed.
+
+    Works in a source checkout (the repository's ``datasets/`` folder) and after a plain
+    (non-editable) install, where the demo data is package data of ``socfuse.datasets``.
+    """
+    import importlib.resources as resources
+
+    try:
+        root = resources.files("socfuse.datasets")
+    except (ModuleNotFoundError, TypeError):
+        return None
+    try:
+        item = root / name
+        if item.is_file():
+            return Path(str(item))
+    except (OSError, TypeError):
+        return None
+    return None

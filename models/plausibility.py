@@ -95,7 +95,7 @@ class Finding:
     def message(self, source: str = "") -> str:
         """One line: ``source: column: seen; fix``."""
         head = f"{source}: " if source else ""
-        return f"{head}{self.column}: {self.seen}; {self.fix}"
+        return f"{head}{self.column}: {self.seen}" + (f"; {self.fix}" if self.fix else "")
 
 
 def _spikes(x: np.ndarray, floor: float) -> np.ndarray:
@@ -290,7 +290,7 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
         col = "current_a" if i_spk.any() else "voltage_v"
         findings.append(Finding("spikes", col, "error",
                                 "isolated outliers, not a unit or sign error: " + "; ".join(parts),
-                                f"remove them from the file (they would be counted as charge) or use {TRUST_OPTION}"))
+                                "remove them from the file (they would be counted as charge)"))
 
     v = v_all[fin_v & keep]
     unit_v = _voltage_findings(v, lo, hi, what)
@@ -344,11 +344,11 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
     if n_missing:
         findings.append(Finding("voltage-missing", "voltage_v", "warning",
                                 f"{n_missing} of {rec.n} samples missing (blank cells); the filters predict "
-                                "only there", "none needed"))
+                                "only there", ""))
     dropped = meta.get("truncated_last_row")
     if dropped:
-        findings.append(Finding("truncated-row", "(file)", "warning",
-                                f"the last line looked truncated and was dropped: {dropped}", "none needed"))
+        findings.append(Finding("truncated-row", "file", "warning",
+                                f"the last line looked truncated and was dropped: {dropped}", ""))
     findings.sort(key=lambda f: f.severity != "error")
     return findings
 

@@ -148,4 +148,8 @@ def main(argv=None) -> int:
 
 
 if __name__ == "__main__":  # pragma: no cover
-    sys.exit(main())
+    # python -m runs this file as __main__: use the package's copy so its exception classes are the ones
+    # the commands raise
+    from socfuse.estimator.cli.main import main as _main
+
+    sys.exit(_main())
