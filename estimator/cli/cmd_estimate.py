@@ -18,7 +18,7 @@ def register(sub) -> None:
                     "CSV (time_s, soc, soc_sigma, voltage_pred_v, innovation_v, soc_e, energy_wh_remaining, "
                     "and soc_ref, soc_error when the recording has a reference); without it print a summary.",
         epilog="Without --filter the settings are derived from the model (estimator.settings.default_settings): "
-               "voltage noise 10 mV, current noise C/100, SOC random walk 1 %% per hour, 5-sigma innovation "
+               "voltage noise 10 mV, current noise C/100, SOC random walk 1 % per hour, 5-sigma innovation "
                "gate, SOC clipped to 0..1, rest = |I| <= C/50 for at least 3600 s before an OCV reseed "
                "(C = the model capacity in Ah as a current in A). The recording is checked against the model "
                "first (units, pack voltage, current sign, soc_ref in percent, spikes); a likely mistake stops "

@@ -9,7 +9,7 @@ from socfuse.models.identify.pipeline import identify
 from socfuse.models.modelfile import save_model
 
 from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
-from socfuse.estimator.cli.common import add_mapping_options, load_from_args
+from socfuse.estimator.cli.common import add_mapping_options, load_checked
 from socfuse.models.fileio import replacing
 
 
@@ -65,8 +65,15 @@ def _check_new(path, force: bool, what: str) -> None:
 
 
 def run(args) -> int:
+    from socfuse.models.fileio import check_output_file, check_output_folder
+
     _check_new(args.output, args.force, "output file")
     _check_new(args.power_table, args.force, "power table")
+    check_output_file(args.output, args.force, "-o")  # before any work: missing or unwritable folders
+    if args.power_table:
+        check_output_file(args.power_table, args.force, "--power-table")
+    if args.plots:
+        check_output_folder(args.plots, "--plots")
     if args.ocv_breakpoints < 3:
         raise CliError("--ocv-breakpoints must be at least 3")
     if args.refine_stride < 1:
@@ -76,10 +83,11 @@ def run(args) -> int:
     if args.pulse_temperature_c is not None and len(args.pulse_temperature_c) != len(args.pulse_test):
         raise CliError(f"{len(args.pulse_temperature_c)} --pulse-temperature-c for {len(args.pulse_test)} "
                        "--pulse-test files")
-    ocv_rec = load_from_args(args, args.ocv_test)
-    pulses = [load_from_args(args, f) for f in args.pulse_test]
-    refine = load_from_args(args, args.refine) if args.refine else None
-    vals = [load_from_args(args, f) for f in (args.validate or [])]
+    # plausibility against a generic lithium-ion cell (units, pack voltage, sign, spikes); --trust-input overrides
+    ocv_rec = load_checked(args, args.ocv_test)
+    pulses = [load_checked(args, f) for f in args.pulse_test]
+    refine = load_checked(args, args.refine) if args.refine else None
+    vals = [load_checked(args, f) for f in (args.validate or [])]
     res = identify(ocv_rec, pulses, rc_pairs=args.rc_pairs, ocv_source=args.ocv_source, refine=refine,
                    validate=vals, n_ocv_breakpoints=args.ocv_breakpoints,
                    pulse_temperatures_c=args.pulse_temperature_c, soc_mode=args.pulse_soc,

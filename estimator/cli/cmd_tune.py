@@ -68,7 +68,7 @@ def run(args) -> int:
     from socfuse.models.modelfile import load_model
 
     from socfuse.estimator.cli.main import SAFETY_NOTE, CliError
-    from socfuse.estimator.cli.common import load_from_args
+    from socfuse.estimator.cli.common import load_checked
     from socfuse.estimator.filters.settings import resolve_settings, save_settings
     from socfuse.estimator.analysis.tuning import tune
 
@@ -87,7 +87,7 @@ def run(args) -> int:
         raise CliError(f"--max-evaluations must be at least 2, got {args.max_evaluations}")
     model = load_model(args.model)
     start = resolve_settings(model, args.filter_path)
-    recs = [load_from_args(args, r) for r in args.recordings]
+    recs = [load_checked(args, r, model) for r in args.recordings]
     if args.objective == "soc-error":
         for path, r in zip(args.recordings, recs):
             if r.soc_ref is None:
@@ -95,7 +95,7 @@ def run(args) -> int:
                                "--ref-soc0); --objective soc-error needs one")
     if not (0.0 <= args.holdout_fraction <= 0.8):
         raise CliError(f"--holdout-fraction is a fraction in 0..0.8, got {args.holdout_fraction}")
-    hold = [load_from_args(args, r) for r in (args.holdout or [])]
+    hold = [load_checked(args, r, model) for r in (args.holdout or [])]
     if args.objective == "soc-error":
         for path, r in zip(args.holdout or [], hold):
             if r.soc_ref is None:
