@@ -41,9 +41,11 @@ temperature with 0.2 degC noise and 0.1 degC steps.  The offset and gain are the
 cell (one sensor); the noise seed differs per file.  The NMC cell's sensor reads high (+offset, gain
 1.004), the LFP cell's low (-offset, gain 0.996).
 
-``soc_ref`` is the true SOC: the model's own charge counter (``Discharge capacity [A.h]``, the
-integral of the true current) over the cell's C/20 discharge capacity, 1 at full (the upper cut-off at
-equilibrium) and 0 where the C/20 discharge reaches the lower cut-off.  The manifest also holds the
+Every test starts from "full" as a lab defines it: the cell's standard charge (C/20 to the upper
+cut-off, constant voltage until C/50, 1 h rest; not recorded).  ``soc_ref`` is the true SOC: the
+model's own charge counter (``Discharge capacity [A.h]``, the integral of the true current) over the
+cell's C/20 discharge capacity, 1 at full and 0 where the C/20 discharge from full reaches the lower
+cut-off.  The manifest also holds the
 true equilibrium voltage over that SOC (PyBaMM's ``Bulk open-circuit voltage [V]``: the electrode OCPs
 at the particle-averaged stoichiometries, i.e. the voltage a fully relaxed cell shows) and the true
 C/20 capacity, which tests compare identification against.
@@ -66,7 +68,7 @@ import numpy as np
 
 __all__ = ["CELLS", "CellSpec", "PhysicsCase", "SensorSpec", "cache_dir", "generate", "load_case", "main"]
 
-GENERATOR_VERSION = 2
+GENERATOR_VERSION = 3
 MANIFEST_SCHEMA = "socfuse.physics-manifest/1"
 SECONDS_PER_HOUR = 3600.0
 
@@ -197,30 +199,41 @@ def _params(pybamm, spec: CellSpec):
 _TEMP_VAR = "Volume-averaged cell temperature [C]"
 
 
-def _collect(sol, keep_jumps: bool = True) -> dict:
-    """Time, true current, voltage, temperature, charge counter and bulk OCV of a solution.
+def _collect(cycles) -> dict:
+    """Time, true current, voltage, temperature, charge counter and bulk OCV of solution cycles.
 
     PyBaMM repeats the boundary time between experiment steps; the later sample (the new step's
     current) is kept, so the times are strictly increasing.
     """
-    t = np.asarray(sol["Time [s]"].entries, dtype=float)
-    out = {
-        "time_s": t,
-        "current_a": np.asarray(sol["Current [A]"].entries, dtype=float),
-        "voltage_v": np.asarray(sol["Voltage [V]"].entries, dtype=float),
-        "temperature_c": np.asarray(sol[_TEMP_VAR].entries, dtype=float),
-        "discharged_ah": np.asarray(sol["Discharge capacity [A.h]"].entries, dtype=float),
-        "ocv_v": np.asarray(sol["Bulk open-circuit voltage [V]"].entries, dtype=float),
-    }
+    names = {"time_s": "Time [s]", "current_a": "Current [A]", "voltage_v": "Voltage [V]",
+             "temperature_c": _TEMP_VAR, "discharged_ah": "Discharge capacity [A.h]",
+             "ocv_v": "Bulk open-circuit voltage [V]"}
+    out = {k: np.concatenate([np.asarray(c[v].entries, dtype=float) for c in cycles]) for k, v in names.items()}
+    t = out["time_s"]
     keep = np.ones(t.size, dtype=bool)
     keep[:-1] = np.diff(t) > 1e-9  # drop the earlier of two equal times
     return {k: v[keep] for k, v in out.items()}
 
 
-def _run_experiment(pybamm, spec: CellSpec, steps, initial_soc: float = 1.0):
-    exp = pybamm.Experiment(list(steps))
+def _precondition_steps(spec: CellSpec) -> list[str]:
+    """The lab's standard charge before every test: what "full" (SOC 1) means here.
+
+    From PyBaMM's equilibrium at the upper cut-off: a 6 min 1C discharge, a C/20 charge to the
+    upper cut-off, a constant-voltage hold until C/50 and a 1 h rest (not recorded).
+    """
+    return ["Discharge at 1C for 6 minutes (60 second period)",
+            f"Charge at C/20 until {spec.v_max} V (60 second period)",
+            f"Hold at {spec.v_max} V until C/50 (60 second period)",
+            "Rest for 1 hour (60 second period)"]
+
+
+def _run_experiment(pybamm, spec: CellSpec, steps):
+    """Solve the preconditioning and then ``steps``; returns the solution and the test's cycles."""
+    pre = _precondition_steps(spec)
+    exp = pybamm.Experiment(pre + list(steps))
     sim = pybamm.Simulation(_model(pybamm, spec), parameter_values=_params(pybamm, spec), experiment=exp)
-    return sim.solve(initial_soc=initial_soc)
+    sol = sim.solve(initial_soc=1.0)
+    return sol, list(sol.cycles[len(pre):])
 
 
 def _c20_steps(spec: CellSpec) -> list[str]:
@@ -259,14 +272,14 @@ def _pulse_steps(spec: CellSpec, short: bool, step_a: float, cv_remaining_s=None
 
 def _simulate_pulse(pybamm, spec: CellSpec, short: bool, step_a: float):
     steps, kinds = _pulse_steps(spec, short, step_a)
-    sol = _run_experiment(pybamm, spec, steps)
+    sol, cycles = _run_experiment(pybamm, spec, steps)
     # charge pulses that met the upper cut-off: continue at constant voltage for the rest of the 10 s.
     # PyBaMM skips a step whose limit is met at its start, so steps are told apart by their current:
     # a discharge pulse is ~10 s at +1C, a charge pulse any stretch of negative current.
     remaining = {}
     level = -1
     charged = {}
-    for st in sol.cycles:
+    for st in cycles:
         tt = st["Time [s]"].entries
         i_mean = float(np.mean(st["Current [A]"].entries))
         dur = float(tt[-1] - tt[0])
@@ -280,8 +293,8 @@ def _simulate_pulse(pybamm, spec: CellSpec, short: bool, step_a: float):
             remaining[k] = 10.0 - dur
     if remaining:
         steps, kinds = _pulse_steps(spec, short, step_a, remaining)
-        sol = _run_experiment(pybamm, spec, steps)
-    return sol, remaining
+        sol, cycles = _run_experiment(pybamm, spec, steps)
+    return cycles, remaining
 
 
 def _drive_profile(seed: int, duration_s: float, one_c_a: float, park_s: float = 0.0):
@@ -392,22 +405,26 @@ def _generate_cell(spec: CellSpec, folder: Path, short: bool, log=None) -> dict:
 
     # --- C/20 test: defines the capacity and the SOC scale
     say(f"{spec.key}: C/20 test")
-    sol = _run_experiment(pybamm, spec, _c20_steps(spec))
-    sig = _collect(sol)
+    sol, cycles = _run_experiment(pybamm, spec, _c20_steps(spec))
+    sig = _collect(cycles)
     q = sig["discharged_ah"]
+    # "full" = the preconditioned state at the start of the test; the counter then holds the charge
+    # between PyBaMM's equilibrium at the upper cut-off and that state
+    q_full = float(cycles[0]["Discharge capacity [A.h]"].entries[0])
     # C/20 discharge capacity: charge counted from full to the end of the discharge step
-    dis = sol.cycles[1]
-    c20_ah = float(dis["Discharge capacity [A.h]"].entries[-1] - sol.cycles[0]["Discharge capacity [A.h]"].entries[-1])
-    q_full = float(sol.cycles[0]["Discharge capacity [A.h]"].entries[0])
+    dis = cycles[1]
+    c20_ah = float(dis["Discharge capacity [A.h]"].entries[-1] - q_full)
     sig["soc_ref"] = 1.0 - (q - q_full) / c20_ah
     # equilibrium voltage over SOC from the discharge branch (bulk OCV; a function of charge only)
-    dd = _collect(dis)
+    dd = _collect([dis])
     soc_d = 1.0 - (dd["discharged_ah"] - q_full) / c20_ah
     grid = np.linspace(0.0, 1.0, 1001)
     order = np.argsort(soc_d)
     eq_v = np.interp(grid, soc_d[order], dd["ocv_v"][order])
+    if grid[-1] > soc_d.max():  # the rest before the discharge: the relaxed full cell
+        eq_v[grid > soc_d.max()] = float(cycles[0]["Bulk open-circuit voltage [V]"].entries[-1])
     # the stoichiometry window charge (PyBaMM's 0..100 % scale) for drive start states
-    qn_ah = float(sol["Negative electrode capacity [A.h]"].entries[0])
+    qn_ah = float(sol["Negative electrode capacity [A.h]"].entries[0])  # constant
     q_window_ah = float((x100 - x0) * qn_ah)
 
     def write(name: str, sig: dict, seed: int, extra: dict | None = None):
@@ -422,9 +439,9 @@ def _generate_cell(spec: CellSpec, folder: Path, short: bool, log=None) -> dict:
     # --- pulse test
     say(f"{spec.key}: pulse test")
     step_a = c20_ah / 1.0  # 10 % of the C/20 capacity in 0.1 h
-    sol, cv = _simulate_pulse(pybamm, spec, short, step_a)
-    sig = _collect(sol)
-    sig["soc_ref"] = 1.0 - (sig["discharged_ah"] - sig["discharged_ah"][0]) / c20_ah
+    cycles, cv = _simulate_pulse(pybamm, spec, short, step_a)
+    sig = _collect(cycles)
+    sig["soc_ref"] = 1.0 - (sig["discharged_ah"] - q_full) / c20_ah
     steps, kinds = _pulse_steps(spec, short, step_a, cv)
     n_dis = kinds.count("discharge_pulse")
     n_chg = kinds.count("charge_pulse")
@@ -439,8 +456,8 @@ def _generate_cell(spec: CellSpec, folder: Path, short: bool, log=None) -> dict:
     for k, name in enumerate(("drive_1", "drive_2", "drive_3")):
         say(f"{spec.key}: {name}")
         sol, s0 = _simulate_drive(pybamm, spec, name, short, one_c_a)
-        sig = _collect(sol)
-        soc_start = 1.0 - (1.0 - s0) * q_window_ah / c20_ah
+        sig = _collect([sol])
+        soc_start = 1.0 - ((1.0 - s0) * q_window_ah - q_full) / c20_ah
         sig["soc_ref"] = soc_start - (sig["discharged_ah"] - sig["discharged_ah"][0]) / c20_ah
         write(name, sig, seed=10 + k, extra={"profile_seed": _DRIVES[name][0], "soc_start": soc_start})
 
@@ -452,6 +469,7 @@ def _generate_cell(spec: CellSpec, folder: Path, short: bool, log=None) -> dict:
         "pybamm_version": pybamm.__version__, "short": bool(short),
         "v_min": spec.v_min, "v_max": spec.v_max,
         "nominal_capacity_ah": one_c_a, "c20_capacity_ah": c20_ah, "stoichiometry_window_ah": q_window_ah,
+        "full_below_equilibrium_ah": q_full, "precondition": _precondition_steps(spec),
         "coulombic_efficiency": 1.0,
         "sensors": {"offset_a": s.offset_frac_1c * one_c_a, "gain": s.gain, "current_noise_a": s.noise_frac_1c * one_c_a,
                     "current_quant_a": s.current_quant_a, "voltage_noise_v": s.voltage_noise_v,

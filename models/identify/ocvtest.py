@@ -29,9 +29,10 @@ import numpy as np
 
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.recording import Recording, RecordingError, charge_throughput_ah
+from socfuse.models.segment import segment_recording
 from socfuse.models.identify.curves import curve_from_dense, isotonic_increasing, MIN_STEP_V
 
-__all__ = ["Step", "find_steps", "OcvTestResult", "identify_ocv_test", "OcvTestError"]
+__all__ = ["Step", "find_steps", "steps_from_segmentation", "OcvTestResult", "identify_ocv_test", "OcvTestError"]
 
 
 class OcvTestError(RecordingError):
@@ -55,45 +56,48 @@ class Step:
     duration_s: float
 
 
-def _classify(current_a, threshold_a):
-    k = np.zeros(current_a.size, dtype=np.int8)
-    k[current_a > threshold_a] = 1
-    k[current_a < -threshold_a] = -1
-    return k
+def steps_from_segmentation(seg) -> list[Step]:
+    """The :class:`Step` list of a :class:`models.segment.Segmentation` (offset-corrected charges).
+
+    Neighbouring segments of one kind (a constant-current step and the constant-voltage taper
+    after it, split where the current fell fast) are one step here.
+    """
+    t, i = seg.time_s, seg.current_a
+    n = t.size
+    q = charge_throughput_ah(t, i)
+    groups = []
+    for sg in seg.segments:
+        if groups and groups[-1][0] == sg.kind and groups[-1][2] == sg.start:
+            groups[-1][2] = sg.stop
+        else:
+            groups.append([sg.kind, sg.start, sg.stop])
+    out = []
+    for kind, a, b in groups:
+        lo, hi = max(a - 1, 0), min(b, n - 1)
+        out.append(Step(kind, int(a), int(b), float(q[hi] - q[lo]), float(np.mean(i[a:b])), float(t[hi] - t[lo])))
+    return out
 
 
-def find_steps(rec: Recording, threshold_a: float | None = None) -> list[Step]:
+def find_steps(rec: Recording, threshold_a: float | None = None, segmentation=None) -> list[Step]:
     """Cut a recording into rest, discharge and charge steps.
 
     Parameters
     ----------
     rec : Recording
     threshold_a : float, optional
-        ``|current| <= threshold_a`` is rest.  Default: 5 % of the 90th percentile of the
-        non-zero ``|current|`` (at least 1 mA), so a constant-voltage taper down to 5 % of
-        the test current still counts as charge.
+        Fixed ``|current|`` rest threshold, A.  Default: the noise-based switching thresholds of
+        :func:`models.segment.segment_recording` (which also estimates and subtracts the sensor
+        zero offset); a constant-voltage taper stays a charge step while its current is above
+        3 noise sigmas.
+    segmentation : Segmentation, optional
+        A segmentation already made for ``rec``.
 
     Returns
     -------
-    list of Step, in time order
+    list of Step, in time order (charges offset-corrected)
     """
-    i = rec.current_a
-    if threshold_a is None:
-        a = np.abs(i)
-        nz = a[a > 1e-6]
-        threshold_a = max(1e-3, 0.05 * float(np.percentile(nz, 90))) if nz.size else 1e-3
-    kind = _classify(i, threshold_a)
-    q = charge_throughput_ah(rec.time_s, i)
-    edges = np.flatnonzero(np.diff(kind)) + 1
-    starts = np.concatenate([[0], edges])
-    stops = np.concatenate([edges, [i.size]])
-    names = {0: "rest", 1: "discharge", -1: "charge"}
-    out = []
-    for s, e in zip(starts, stops):
-        lo, hi = max(s - 1, 0), min(e, i.size - 1)
-        out.append(Step(names[int(kind[s])], int(s), int(e), float(q[hi] - q[lo]),
-                        float(np.mean(i[s:e])), float(rec.time_s[hi] - rec.time_s[lo])))
-    return out
+    seg = segmentation or segment_recording(rec.time_s, rec.current_a, rec.voltage_v, threshold_a=threshold_a)
+    return steps_from_segmentation(seg)
 
 
 @dataclass(frozen=True, eq=False)
@@ -128,6 +132,10 @@ class OcvTestResult:
         What could not be estimated and why.
     source : str
         File / recording name.
+    offset_a, offset_sigma_a : float, float or None
+        Current-sensor zero offset subtracted before counting charge, and its standard error (A).
+    segmentation : dict
+        Summary of the segmentation (noise floor, thresholds, counts).
     """
 
     capacity_ah: float
@@ -147,6 +155,9 @@ class OcvTestResult:
     notes: tuple = ()
     source: str = ""
     steps: tuple = field(default=(), repr=False)
+    offset_a: float = 0.0
+    offset_sigma_a: float | None = None
+    segmentation: dict = field(default_factory=dict, repr=False)
 
     def provenance(self) -> dict:
         return {
@@ -154,6 +165,7 @@ class OcvTestResult:
             "capacity_ah": self.capacity_ah, "test_current_a": self.test_current_a,
             "hysteresis_half_gap_v": self.hysteresis_v, "coulombic_efficiency": self.coulombic_efficiency,
             "breakpoint_error_v": self.breakpoint_error_v, "notes": list(self.notes),
+            "current_offset_a": self.offset_a, "current_offset_sigma_a": self.offset_sigma_a,
         }
 
 
@@ -171,7 +183,7 @@ def _branch_on_grid(soc, v, grid):
 def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | None = None,
                       v_max_v: float | None = None, threshold_a: float | None = None,
                       n_grid: int = 401, limit_tol_v: float = 0.05,
-                      edge_trim: float = 0.03) -> OcvTestResult:
+                      edge_trim: float = 0.03, offset_a: float | None = None) -> OcvTestResult:
     """Identify OCV(SOC), capacity, hysteresis and coulombic efficiency from a low-rate test.
 
     Parameters
@@ -184,7 +196,10 @@ def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | 
         Voltage limits.  Default: the discharge end voltage and the charge end voltage (or the
         rested voltage before the discharge), rounded to 10 mV.
     threshold_a : float, optional
-        Rest threshold for :func:`find_steps`.
+        Fixed rest threshold for :func:`find_steps` (default: from the recording's noise floor).
+    offset_a : float, optional
+        Known current-sensor zero offset, A (default: estimated from the rests by
+        :func:`models.segment.segment_recording`; it is subtracted before any charge is counted).
     n_grid : int
         Points of the dense common SOC grid.
     limit_tol_v : float
@@ -203,8 +218,10 @@ def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | 
         No discharge or charge step of useful length.
     """
     where = rec.name or "low-rate test"
-    steps = find_steps(rec, threshold_a)
-    t, i, v = rec.time_s, rec.current_a, rec.voltage_v
+    seg = segment_recording(rec.time_s, rec.current_a, rec.voltage_v, offset_a=offset_a, threshold_a=threshold_a)
+    steps = steps_from_segmentation(seg)
+    # every charge below is counted with the offset-corrected current
+    t, i, v = rec.time_s, seg.current_a, rec.voltage_v
     if np.any(~np.isfinite(v)):
         k = int(np.argmax(~np.isfinite(v)))
         raise OcvTestError(f"{where}: column voltage_v is missing (NaN) at row {k}")
@@ -260,7 +277,9 @@ def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | 
         q_ch = float(q[lo] - q[hi])  # charge put in, positive
         cc = np.abs(i[c.start:c.stop])
         test_currents.append(float(np.median(cc)))
-        taper = cc[-1] < 0.5 * np.median(cc) and np.max(v[c.start:c.stop]) >= v_max_v - 0.01
+        # the end current from the last few samples (one noisy sample must not decide)
+        cc_end = float(np.median(cc[-3:]))
+        taper = cc_end < 0.7 * np.median(cc) and np.max(v[c.start:c.stop]) >= v_max_v - 0.01
         follows = d is not None and c.start >= d.stop
         if cap is None:
             cap = q_ch
@@ -269,7 +288,16 @@ def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | 
                          "or resistive drop estimate)")
         if d is not None and follows and taper:
             eta = cap / q_ch
-            if not (0.9 < eta <= 1.0):
+            # uncertainty of the ratio from the offset's standard error over both steps' durations
+            # (plus 0.1 % for the rest of the counting): above 1 within it means "1"
+            sig = 0.001
+            if seg.offset_sigma_a is not None and cap > 0:
+                dur_h = (d.duration_s + c.duration_s) / 3600.0
+                sig += 2.0 * seg.offset_sigma_a * dur_h / cap
+            if 1.0 < eta <= 1.0 + 3.0 * sig:
+                notes.append(f"coulombic efficiency measured {eta:.4f}, within its uncertainty of 1: 1 is used")
+                eta = 1.0
+            elif not (0.9 < eta <= 1.0):
                 notes.append(f"coulombic efficiency {eta:.4f} outside (0.9, 1]: not used")
                 eta = None
         elif d is not None:
@@ -346,4 +374,5 @@ def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | 
         half_gap_v=half_gap, discharge_curve=dis_curve, hysteresis_v=hyst, coulombic_efficiency=eta,
         v_min_v=float(v_min_v), v_max_v=float(v_max_v),
         test_current_a=float(np.median(test_currents)) if test_currents else 0.0,
-        breakpoint_error_v=err, notes=tuple(notes), source=where, steps=tuple(steps))
+        breakpoint_error_v=err, notes=tuple(notes) + tuple(seg.notes), source=where, steps=tuple(steps),
+        offset_a=seg.offset_a, offset_sigma_a=seg.offset_sigma_a, segmentation=seg.as_dict())

@@ -55,6 +55,7 @@ from scipy.optimize import least_squares
 
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.recording import Recording, RecordingError, charge_throughput_ah
+from socfuse.models.segment import segment_recording
 from socfuse.models.tables import ParamTable
 from socfuse.models.thevenin import RcPair
 from socfuse.models.identify.fastsim import unit_rc_response
@@ -242,7 +243,8 @@ class Pulse:
     time from the sample before to the last pulse sample plus half of the two edge intervals
     (the interval-mean convention), ``direction`` +1 discharge, -1 charge/regen.  ``kind`` is
     ``"pulse"``, or ``"move"`` for a longer step (e.g. the constant-current discharge between
-    SOC levels) whose following rest is still used for the RC fit.
+    SOC levels) whose following rest is still used for the RC fit.  ``limited`` is ``"upper"``
+    (``"lower"``) when the voltage was held at a limit during the step (constant voltage).
     """
 
     start: int
@@ -253,74 +255,63 @@ class Pulse:
     duration_s: float
     direction: int
     kind: str = "pulse"
-
-
-def _gap_mask(t, gap_s):
-    dt = np.diff(t)
-    if gap_s is None:
-        gap_s = max(60.0, 20.0 * float(np.median(dt)))
-    return dt > gap_s
+    limited: str = ""
 
 
 def detect_pulses(rec: Recording, threshold_a: float | None = None, max_pulse_s: float = 120.0,
                   jump_fraction: float = 0.2, gap_s: float | None = None,
-                  include_moves: bool = False) -> list[Pulse]:
+                  include_moves: bool = False, segmentation=None) -> list[Pulse]:
     """Find the pulses of a pulse test (no hand-entered indices).
+
+    The recording is cut by :func:`models.segment.segment_recording`: the current-sensor zero
+    offset is estimated from the rests and subtracted, and rests and steps are told apart with
+    two noise-based thresholds (hysteresis), so sensor noise never splits a step.
 
     Parameters
     ----------
     rec : Recording
     threshold_a : float, optional
-        ``|i| <= threshold_a`` is rest; default ``max(5 mA, 1 % of max |i|)``.
+        Fixed ``|i|`` rest threshold (A) instead of the noise-based switching thresholds.
     max_pulse_s : float
-        Longest active run that still counts as a pulse (s); longer runs are moves.
+        Longest step that still counts as a pulse (s); longer steps are moves.
     jump_fraction : float
-        An active run is split where the current changes by more than this fraction.
+        A step is split where the current changes by more than this fraction.
     gap_s : float, optional
         Intervals longer than this are gaps that end a rest; default
         ``max(60 s, 20 x median interval)``.
     include_moves : bool
-        Also return the longer active runs, with ``kind="move"``.
+        Also return the longer steps, with ``kind="move"``.
+    segmentation : Segmentation, optional
+        A segmentation already made for ``rec``.
 
     Returns
     -------
-    list of Pulse, in time order
+    list of Pulse, in time order.  ``Pulse.limited`` is ``"upper"`` for a charge pulse held at
+    the upper voltage limit (constant voltage: cut short at full), ``"lower"`` likewise.
     """
     t, i = rec.time_s, rec.current_a
-    n = t.size
-    if threshold_a is None:
-        threshold_a = max(5e-3, 0.01 * float(np.max(np.abs(i))))
-    active = np.abs(i) > threshold_a
-    gap = _gap_mask(t, gap_s)
-    # run boundaries: activity changes, sign flips, current jumps
-    brk = np.zeros(n, dtype=bool)
-    brk[0] = True
-    brk[1:] = active[1:] != active[:-1]
-    both = active[1:] & active[:-1]
-    flip = both & (np.sign(i[1:]) != np.sign(i[:-1]))
-    jump = both & (np.abs(i[1:] - i[:-1]) > jump_fraction * np.maximum(np.abs(i[:-1]), threshold_a))
-    brk[1:] |= flip | jump | gap
-    starts = np.flatnonzero(brk)
-    stops = np.concatenate([starts[1:], [n]])
+    seg = segmentation or segment_recording(t, i, rec.voltage_v, gap_s=gap_s, jump_fraction=jump_fraction,
+                                            threshold_a=threshold_a)
+    segs = seg.segments
     out = []
-    for k, (s, e) in enumerate(zip(starts, stops)):
-        if not active[s]:
+    for k, sg in enumerate(segs):
+        if sg.kind == "rest":
             continue
-        lo, hi = max(s - 1, 0), min(e, n - 1)
-        dur = float(0.5 * (t[e - 1] + t[hi]) - 0.5 * (t[lo] + t[s]))
+        s, e = sg.start, sg.stop
+        lo, hi = max(s - 1, 0), min(e, t.size - 1)
+        dur = float(0.5 * (t[e - 1] + t[hi]) - 0.5 * (t[lo] + t[s]))  # interval-mean convention
         kind = "pulse" if dur <= max_pulse_s else "move"
-        if (kind == "move" and not include_moves) or e - s < 1:
+        if kind == "move" and not include_moves:
             continue
-        # rest after: following runs that are inactive, up to a gap
         rest_stop = e - 1
-        if e < n and not active[e]:
-            j = k + 1
-            rest_stop = stops[j] - 1
+        if k + 1 < len(segs) and segs[k + 1].kind == "rest":
+            rest_stop = segs[k + 1].stop - 1
         rb = s
-        if s > 0 and not active[s - 1]:
-            rb = starts[k - 1]
+        if k > 0 and segs[k - 1].kind == "rest":
+            rb = segs[k - 1].start
         cur = float(np.mean(i[s:e]))
-        out.append(Pulse(int(s), int(e), int(rest_stop), int(rb), cur, dur, 1 if cur > 0 else -1, kind))
+        out.append(Pulse(int(s), int(e), int(rest_stop), int(rb), cur, dur,
+                         1 if cur > 0 else -1, kind, sg.limited))
     return out
 
 
@@ -416,7 +407,12 @@ class PulseFit:
 
 @dataclass(frozen=True, eq=False)
 class PulseTestResult:
-    """A pulse test analysed: per-pulse fits, levels, rest points, temperature."""
+    """A pulse test analysed: per-pulse fits, levels, rest points, temperature.
+
+    ``recording`` is the offset-corrected recording; ``offset_a`` / ``offset_sigma_a`` the
+    current-sensor zero offset subtracted and its standard error (A); ``segmentation`` the summary
+    of :func:`models.segment.segment_recording`.
+    """
 
     pulses: tuple
     temperature_c: float
@@ -427,6 +423,9 @@ class PulseTestResult:
     notes: tuple = ()
     soc: np.ndarray = field(default=None, repr=False)
     recording: Recording | None = field(default=None, repr=False)
+    offset_a: float = 0.0
+    offset_sigma_a: float | None = None
+    segmentation: dict = field(default_factory=dict, repr=False)
 
     @property
     def n_levels(self) -> int:
@@ -458,34 +457,27 @@ def _edge_r0(t, i, v, soc, k_before, k_after, rc_list, ocv):
 def _history_start(t, a, b, tau):
     """First sample of the current history used for a unit RC response (30 tau before the rest,
     and at least two samples before the pulse)."""
-    return int(max(min(np.searchsorted(t, t[b] - 30.0 * tau), a - 2), 0))
+    tb = t[min(b, t.size - 1)]  # a pulse may run to the end of the file
+    return int(max(min(np.searchsorted(t, tb - 30.0 * tau), a - 2), 0))
 
 
 def rest_points(rec: Recording, soc, threshold_a: float | None = None, min_rest_s: float = 600.0,
-                gap_s: float | None = None):
+                gap_s: float | None = None, segmentation=None):
     """Rest-end voltages of a test: ``(soc, voltage_v, rest_length_s)`` arrays.
 
-    Every rest (``|i| <= threshold_a``) of at least ``min_rest_s``, cut at gaps, contributes its
-    last sample.  These are OCV points (on the side of the hysteresis the last current left).
+    Every rest of at least ``min_rest_s`` (from :func:`models.segment.segment_recording`, cut at
+    gaps) contributes its last sample.  These are OCV points (on the side of the hysteresis the
+    last current left).
     """
-    t, i, v = rec.time_s, rec.current_a, rec.voltage_v
-    if threshold_a is None:
-        threshold_a = max(5e-3, 0.01 * float(np.max(np.abs(i))))
-    quiet = np.abs(i) <= threshold_a
-    gap = _gap_mask(t, gap_s)
-    brk = np.zeros(t.size, dtype=bool)
-    brk[0] = True
-    brk[1:] = (quiet[1:] != quiet[:-1]) | gap
-    starts = np.flatnonzero(brk)
-    stops = np.concatenate([starts[1:], [t.size]])
+    t, v = rec.time_s, rec.voltage_v
+    seg = segmentation or segment_recording(t, rec.current_a, v, gap_s=gap_s, threshold_a=threshold_a)
     s_out, v_out, d_out = [], [], []
-    for s, e in zip(starts, stops):
-        if not quiet[s]:
-            continue
-        if t[e - 1] - t[s] >= min_rest_s and np.isfinite(v[e - 1]):
+    for sg in seg.rests(min_rest_s):
+        e = sg.stop
+        if np.isfinite(v[e - 1]):
             s_out.append(float(soc[e - 1]))
             v_out.append(float(v[e - 1]))
-            d_out.append(float(t[e - 1] - t[s]))
+            d_out.append(float(t[e - 1] - t[sg.start]))
     return np.array(s_out), np.array(v_out), np.array(d_out)
 
 
@@ -494,7 +486,7 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
                         soc0: float = 1.0, threshold_a: float | None = None, max_pulse_s: float = 120.0,
                         min_relax_s: float = 30.0, max_relax_s: float = 3600.0, level_gap: float = 0.005,
                         rest_min_s: float = 600.0, gap_s: float | None = None, tau_min_s: float = 1.0,
-                        relax_skip_s: float = 1.0) -> PulseTestResult:
+                        relax_skip_s: float = 1.0, offset_a: float | None = None) -> PulseTestResult:
     """Analyse one pulse test: every pulse's R0, RC fits (1 and 2 pairs), SOC and level.
 
     Parameters
@@ -526,14 +518,20 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
     relax_skip_s : float
         The first part of each rest (s after the first rest sample, that sample included) is
         left out of the relaxation fit.
+    offset_a : float, optional
+        Known current-sensor zero offset (A); default estimated from the test's rests.  It is
+        subtracted from the current before anything else (charge counting, RC histories).
 
     Returns
     -------
     PulseTestResult
     """
     where = rec.name or "pulse test"
+    seg = segment_recording(rec.time_s, rec.current_a, rec.voltage_v, offset_a=offset_a, gap_s=gap_s,
+                            threshold_a=threshold_a)
+    rec = rec.with_(current_a=seg.current_a)
     t, i, v = rec.time_s, rec.current_a, rec.voltage_v
-    notes = []
+    notes = list(seg.notes)
     if temperature_c is None:
         if rec.temperature_c is not None and np.any(np.isfinite(rec.temperature_c)):
             temperature_c = float(np.nanmedian(rec.temperature_c))
@@ -541,7 +539,7 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
             temperature_c = 25.0
             notes.append("no temperature column: the test is taken as 25 degC")
     soc, soc_label = pulse_soc(rec, capacity_ah, soc_mode, soc0)
-    pulses = detect_pulses(rec, threshold_a, max_pulse_s, gap_s=gap_s, include_moves=True)
+    pulses = detect_pulses(rec, threshold_a, max_pulse_s, gap_s=gap_s, include_moves=True, segmentation=seg)
     if not any(p.kind == "pulse" for p in pulses):
         raise PulseError(f"{where}: no pulses found (active runs of at most {max_pulse_s:g} s in column current_a)")
     bad_v = ~np.isfinite(v)
@@ -637,8 +635,9 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
                     vals.append(res[1])
             if vals:
                 pf.r0_ohm[n_rc] = float(np.mean(vals))
-    rs, rv, _ = rest_points(rec, soc, threshold_a, rest_min_s, gap_s)
-    return PulseTestResult(tuple(fits_out), float(temperature_c), soc_label, rs, rv, where, tuple(notes), soc, rec)
+    rs, rv, _ = rest_points(rec, soc, threshold_a, rest_min_s, gap_s, segmentation=seg)
+    return PulseTestResult(tuple(fits_out), float(temperature_c), soc_label, rs, rv, where, tuple(notes), soc, rec,
+                           seg.offset_a, seg.offset_sigma_a, seg.as_dict())
 
 
 # ============================================================================ model order and tables
