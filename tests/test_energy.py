@@ -236,8 +236,9 @@ def test_cli_energy_table(tmp_path, capsys):
     path = tmp_path / "c48.json"
     save_model(nmc_model(), path)
     assert main(["energy", "--model", str(path), "--load-a", "9.6", "--pack", "14s4p"]) == 0
-    out = capsys.readouterr().out
-    assert SAFETY_NOTE in out
+    cap = capsys.readouterr()
+    out = cap.out
+    assert SAFETY_NOTE in cap.err and SAFETY_NOTE not in out  # results on stdout, the caution on stderr
     row50 = next(line for line in out.splitlines() if line.split()[:1] == ["50"])
     assert float(row50.split()[1]) == pytest.approx(100 * float(soc_c_to_e(nmc_model(), 0.5)), abs=0.006)
     assert "runtime" in out and "cut-off at SOC_C" in out and "14s4p" in out

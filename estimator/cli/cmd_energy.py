@@ -4,6 +4,7 @@ from __future__ import annotations
 from socfuse.estimator.cli.main import COMMAND_HELP
 
 import math
+import sys
 
 
 def register(sub) -> None:
@@ -51,6 +52,9 @@ def run(args) -> int:
     for name, val in (("--load-a", args.load_a), ("--load-w", args.load_w), ("--peak-a", args.peak_a)):
         if val is not None and not (math.isfinite(val) and val >= 0):
             raise CliError(f"{name} is a discharge load >= 0, got {val}")
+    from socfuse.estimator.cli.common import check_json_inputs
+
+    check_json_inputs(cell_model=args.model)
     model = load_model(args.model)
     temp = 25.0 if args.temperature_c is None else args.temperature_c
     table = energy_table(model)
@@ -95,5 +99,5 @@ def run(args) -> int:
         print(f"cut-off at SOC_C {100 * full.cutoff_soc:.1f} % ({reason})")
         if math.isfinite(full.mean_voltage_v):
             print(f"mean terminal voltage {full.mean_voltage_v:.3f} V, mean current {full.mean_current_a:.3f} A")
-    print(SAFETY_NOTE)
+    print(SAFETY_NOTE, file=sys.stderr)
     return 0
