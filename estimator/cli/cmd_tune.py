@@ -16,7 +16,7 @@ def register(sub) -> None:
                     "needed; whitened for time-correlated innovations by default) or, when every recording has a SOC "
                     "reference, by the SOC error including a wrong start handed over mid-drive (so the voltage "
                     "feedback stays alive) with a coverage and NIS penalty. Settings stay inside physical bounds "
-                    "for the cell. The last 30 %% of each recording is held out and the start and tuned settings "
+                    "for the cell. The last 30 % of each recording is held out and the start and tuned settings "
                     "are compared on it (and on --holdout recordings); when the tuned filter is worse by that "
                     "evidence the command writes nothing and exits 2 with the reason (--accept-worse writes it "
                     "anyway, with a warning). Prints the chosen values, the objective before and after, the "
