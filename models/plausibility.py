@@ -279,6 +279,7 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
     i_spk, v_spk = _spike_masks(rec, model)
     spikes = i_spk | v_spk
     keep = ~spikes
+    spike_finding = None
     if spikes.any():
         parts = []
         if i_spk.any():
@@ -288,7 +289,7 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
             big = float(np.max(np.abs(v_all[v_spk])))
             parts.append(f"{int(v_spk.sum())} voltage spike(s) up to {big:.4g} V ({_rows(v_spk, rec)})")
         col = "current_a" if i_spk.any() else "voltage_v"
-        findings.append(Finding("spikes", col, "error",
+        spike_finding = (Finding("spikes", col, "error",
                                 "isolated outliers, not a unit or sign error: " + "; ".join(parts),
                                 "remove them from the file (they would be counted as charge)"))
 
@@ -324,6 +325,9 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
                                         f"{worst:.4g} Ah {way} in one run, {ratio:.3g} times the "
                                         f"{cap:.4g} Ah capacity (at most {allowed:.3g} Ah fits one cell)", fix))
 
+    units = ("current-ma", "current-range", "voltage-mv", "voltage-pack", "voltage-range")
+    if spike_finding is not None and not any(f.code in units for f in findings):
+        findings.append(spike_finding)  # with a scale error the "spikes" are that error's consequence
     if not unit_v and not any(f.code in ("current-ma", "current-range") for f in findings):
         findings += _sign_findings(rec, keep, r0, cap, negative_declared)
 
