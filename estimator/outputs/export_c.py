@@ -250,30 +250,25 @@ def _state_bytes_lp64(nx: int) -> int:
 
 # ----------------------------------------------------------------------------- golden vectors
 def default_golden_recording(model=None):
-    """The bundled demo day (``datasets/c48_day_lunch.csv``), or else a simulated profile.
+    """The bundled demo day ``c48_day_lunch.csv`` (package data ``socfuse.datasets``).
 
-    The fallback simulates a stop-and-go day of demo cell C48 with :func:`models.simulate` on
-    ``model`` (1 s samples, 4 h, a one-hour rest in the middle) when the datasets folder is
-    absent (an installed package without the demo data).
+    Found in a source checkout and after a plain (non-editable) install alike
+    (:func:`models.loaders.bundled_recording_path`).  There is no silent fallback: without the
+    demo data the caller must give the golden recording.  ``model`` is accepted for
+    compatibility and not used.
+
+    Raises
+    ------
+    ExportError
+        The demo day is not installed.
     """
-    from socfuse.models.loaders import load_recording
-    from socfuse.models.recording import Recording
+    from socfuse.models.loaders import bundled_recording_path, load_recording
 
-    path = Path(__file__).resolve().parents[2] / "datasets" / DEMO_DAY
-    if path.is_file():
-        return load_recording(path)
-    if model is None:
-        raise ExportError(f"demo day {DEMO_DAY} not found and no model to simulate one")
-    from socfuse.models.thevenin import simulate
-
-    rng = np.random.default_rng(4848)
-    t = np.arange(0.0, 4 * 3600.0)
-    c = model.capacity_ah
-    i = np.where((t % 300) < 200, 0.8 * c, -0.2 * c) + 0.05 * c * rng.standard_normal(t.size)
-    i[(t > 7200) & (t < 7200 + 3900)] = 0.0
-    sim = simulate(model, t, i, 25.0, soc0=0.95)
-    v = sim.voltage_v + 0.002 * rng.standard_normal(t.size)
-    return Recording(t, i, v, np.full(t.size, 25.0), sim.soc, name="simulated day")
+    path = bundled_recording_path(DEMO_DAY)
+    if path is None:
+        raise ExportError(f"the bundled demo day {DEMO_DAY} (package data socfuse.datasets) is not installed; "
+                          "give the golden recording (--golden REC)")
+    return load_recording(path)
 
 
 def _rounded(rec):
