@@ -57,7 +57,8 @@ FIGURES = REPO / "docs" / "readme_figures.json"
 README = REPO / "README.md"
 SCHEMA = "socfuse.readme-figures/1"
 PARTS = ("demo", "energy", "montecarlo", "speed", "identify", "generalisation")
-MARKER = re.compile(r"([+-]?\d[\d,]*(?:\.\d+)?)<!--fig:([A-Za-z0-9_.\-]+)-->")
+# a sign belongs to the number only after a space or "(": in "+-42" the 42 is unsigned
+MARKER = re.compile(r"((?:(?<=[\s(])[+-])?\d[\d,]*(?:\.\d+)?)<!--fig:([A-Za-z0-9_.\-]+)-->")
 DEMO_SCENARIOS = ("nominal", "soc0", "offset", "gain", "vnoise", "fade", "toffset", "vdrop", "ocv_offset", "combined")
 
 
@@ -186,12 +187,29 @@ def part_demo(work: Path) -> tuple[dict, str]:
     if len(cov):
         figs["ekf_coverage_min_pct"] = 100.0 * float(cov.min())
         figs["ekf_coverage_max_pct"] = 100.0 * float(cov.max())
+    lunch = s[(s["recording"] == "c48_day_lunch") & (s["scenario"] == "nominal") & (s["method"] == "ekf")]
+    if len(lunch):
+        figs["lunch.nominal.ekf.final_abs"] = float(lunch["final_abs_pct"].iloc[0])
+    figs.update(_bound_final(out))
     page = (out / "report.html").read_text(encoding="utf-8")
     m = re.findall(r"(ekf|coulomb)\s+P50 ([\d.]+) %\s+P95 ([\d.]+) %", page)
     for meth, p50, p95 in m:
         figs[f"tolerance.{meth}.p50"] = float(p50)
         figs[f"tolerance.{meth}.p95"] = float(p95)
     return figs, f"socfuse demo --out {out}"
+
+
+def _bound_final(out: Path) -> dict:
+    """Final posterior Cramer-Rao SOC sigma on the lunch day with the demo's model and filter, points."""
+    from socfuse.estimator.analysis.bound import pcrb_soc_sigma
+    from socfuse.estimator.filters.settings import load_settings
+    from socfuse.models.loaders import load_recording
+    from socfuse.models.modelfile import load_model
+
+    model = load_model(out / "model.json")
+    day = load_recording(REPO / "datasets" / "c48_day_lunch.csv")
+    sig = pcrb_soc_sigma(model, day, load_settings(out / "filter.json")).soc_sigma
+    return {"lunch.bound_final_sigma": 100.0 * float(sig[-1])}
 
 
 def part_energy(work: Path) -> tuple[dict, str]:
@@ -222,6 +240,7 @@ def _study_figs(study, prefix: str) -> dict:
         for m, lim in sw.limit.items():
             if lim is not None:
                 figs[f"{prefix}.{m}.{sw.knob}_limit_{unit}"] = scale * float(lim)
+            figs[f"{prefix}.{m}.{sw.knob}_p95_at_{scale * float(sw.values[0]):g}{unit}_pct"] = 100.0 * float(sw.p95[m][0])
     return figs
 
 
@@ -252,7 +271,8 @@ def part_speed(work: Path) -> tuple[dict, str]:
     last = text.strip().splitlines()[-1]
     figs = {"ns_per_step": _num(r"ns_per_step=([\d.]+)", last, "speed"),
             "ratio_vs_filterpy": _num(r"ratio_vs_filterpy=([\d.]+)", last, "speed"),
-            "batch_million_per_s": _num(r"batched: .*?: ([\d.]+) million cell-steps/s", text, "speed")}
+            "batch_million_per_s": _num(r"batched: .*?: ([\d.]+) million cell-steps/s", text, "speed"),
+            "load_average": _num(r"load average ([\d.]+)", text, "speed")}
     real = re.search(r"(\d+) steps\s+ours\s+([\d.]+) ns/step.*ratio\s+(\d+)\s+\(demo model on the real", text)
     if real:
         figs.update({"real_steps": float(real.group(1)), "real_ns_per_step": float(real.group(2)),
@@ -270,28 +290,50 @@ def part_identify(work: Path) -> tuple[dict, str]:
     data = REPO / "datasets"
     c20 = load_recording(data / "c48_c20_25degC.csv")
     pulses = [load_recording(data / "c48_pulse_25degC.csv"), load_recording(data / "c48_pulse_05degC.csv")]
-    res = identify(c20, pulses, name="demo cell C48 (identified)")
+    lunch = load_recording(data / "c48_day_lunch.csv")
+    res = identify(c20, pulses, name="demo cell C48 (identified)", validate=lunch, validate_soc0=1.0)
     model = res.model
     truth = truth_cell_model(25.0)
-    z = np.linspace(0.1, 0.9, 81)
+    g = np.linspace(0.1, 0.9, 81)
     figs = {"demo_capacity_ah": float(model.capacity_ah),
             "demo_capacity_err_pct": 100.0 * (model.capacity_ah / truth.capacity_ah - 1.0),
-            "demo_ocv_max_err_mv": 1000.0 * float(np.max(np.abs(np.asarray(model.ocv.voltage(z, 25.0))
-                                                                 - np.asarray(truth.ocv.voltage(z, 25.0)))))}
-    zz = np.linspace(0.2, 0.9, 8)
-    for t_c in (25.0, 5.0):
-        tm = truth_cell_model(t_c)
-        r0 = np.asarray(model.r0_ohm.at(zz, t_c), dtype=float)
-        r0_t = np.asarray(tm.r0_ohm.at(zz, t_c), dtype=float)
-        figs[f"demo_r0_max_err_pct_{t_c:g}c"] = 100.0 * float(np.max(np.abs(r0 / r0_t - 1.0)))
+            "demo_ocv_max_err_mv": 1000.0 * float(np.max(np.abs(np.asarray(model.ocv.voltage(g))
+                                                                 - np.asarray(truth.ocv.voltage(g))))),
+            "demo_validate_rms_mv": 1000.0 * float(res.validation[0].rms_v)}
+    # as tests/test_identify_demo.py: relative error at the model's own SOC breakpoints, per temperature row
+    for t_row, t_true in zip(model.r0_ohm.temperature_c, (5.0, 25.0)):
+        tm = truth_cell_model(t_true)
+        soc = model.r0_ohm.soc
+        r0 = np.asarray(model.r0_ohm.at(soc, t_row)) / np.asarray(tm.r0_ohm.at(soc, t_true)) - 1.0
+        tau = np.asarray(model.rc[0].tau_s.at(soc, t_row)) / np.asarray(tm.rc[0].tau_s.at(soc, t_true)) - 1.0
+        figs[f"demo_r0_max_err_pct_{t_true:g}c"] = 100.0 * float(np.max(np.abs(r0)))
+        figs[f"demo_tau1_max_err_pct_{t_true:g}c"] = 100.0 * float(np.max(np.abs(tau)))
     text = _script("identify_speed.py")
-    m = re.findall(r"([\d.]+) s", text)
+    pats = {"demo_pulse_s": r"pulse test 25 degC \(detect, R0, RC fits\)\s+([\d.]+) s",
+            "demo_identify_s": r"identify\(\): C/20 \+ pulse tests at 25 and 5 degC\s+([\d.]+) s",
+            "real_pulse_s": r"pulse test \(\d+ pulses: detect, R0, RC fits\)\s+([\d.]+) s",
+            "real_identify_s": r"identify\(\): C/20 \+ HPPC\s+([\d.]+) s"}
+    for k, pat in pats.items():
+        m = re.search(pat, text)
+        if m:
+            figs[k] = float(m.group(1))
+    m = re.search(r"capacity ([\d.]+) Ah; R0\(50 %\) ([\d.]+) mOhm; \d RC pair\(s\): R1 ([\d.]+) mOhm / tau1 "
+                  r"([\d.]+) s, R2 ([\d.]+) mOhm / tau2 ([\d.]+) s", text)
     if m:
-        figs["speed_lines"] = float(len(m))
-    demo_t = re.search(r"demo[^\n]*?pulse[^\n]*?([\d.]+) s", text)
-    if demo_t:
-        figs["demo_pulse_s"] = float(demo_t.group(1))
-    return figs, "socfuse.identify on datasets/ against the truth simulator; python benchmarks/identify_speed.py"
+        for k, v in zip(("capacity_ah", "r0_50_mohm", "r1_50_mohm", "tau1_50_s", "r2_50_mohm", "tau2_50_s"),
+                        m.groups()):
+            figs[f"real_{k}"] = float(v)
+    m = re.search(r"average ([\d.]+) mV, discharge ([\d.]+) mV, rest ([\d.]+) mV, anchored ([\d.]+) mV", text)
+    if m:
+        for k, v in zip(("average", "discharge", "rest", "anchored"), m.groups()):
+            figs[f"real_ocv_{k}_rms_mv"] = float(v)
+    m = re.search(r"refinement on Cycle_2: ([\d.]+) -> ([\d.]+) mV; validation on Cycle_1: ([\d.]+) mV RMS, "
+                  r"max (\d+) mV", text)
+    if m:
+        for k, v in zip(("refine_before", "refine_after", "validate_cycle1", "validate_cycle1_max"), m.groups()):
+            figs[f"real_{k}_mv"] = float(v)
+    return figs, ("socfuse.identify on datasets/ (validated on the lunch day) against the truth simulator; "
+                  "python benchmarks/identify_speed.py")
 
 
 def part_generalisation(work: Path) -> tuple[dict, str]:
@@ -319,6 +361,27 @@ RUNNERS = {"demo": part_demo, "energy": part_energy, "montecarlo": part_montecar
            "identify": part_identify, "generalisation": part_generalisation}
 
 
+def update_readme(text: str, data: dict) -> str:
+    """The README text with every marked number rewritten from the figures file.
+
+    Each ``N<!--fig:KEY-->`` keeps its printed precision (decimals, thousands separator); nothing
+    else changes.  Words around a number (\"wins\", \"below\") are not rewritten: read the diff.
+    """
+    figs = flat_figures(data)
+
+    def sub(m):
+        printed, key = m.group(1), m.group(2)
+        if key not in figs:
+            return m.group(0)
+        plain = printed.replace(",", "")
+        decimals = len(plain.split(".")[1]) if "." in plain else 0
+        sign = "+" if printed.startswith("+") else ""
+        new = f"{float(figs[key]):{sign}{',' if ',' in printed else ''}.{decimals}f}"
+        return f"{new}<!--fig:{key}-->"
+
+    return MARKER.sub(sub, text)
+
+
 def load_figures(path: Path = FIGURES) -> dict:
     """The stored figures file (an empty skeleton when there is none)."""
     if path.is_file():
@@ -333,6 +396,8 @@ def main(argv=None) -> int:
     ap.add_argument("--work", default=str(Path.home() / ".cache" / "socfuse" / "readme_figures"),
                     help="folder for intermediate files")
     ap.add_argument("--check", action="store_true", help="only compare the README with the figures file")
+    ap.add_argument("--update-readme", action="store_true",
+                    help="rewrite the README's marked numbers from the figures file (then read the diff)")
     a = ap.parse_args(argv)
     path = Path(a.out)
     data = load_figures(path)
@@ -354,6 +419,13 @@ def main(argv=None) -> int:
             tmp = path.with_suffix(".json.tmp")
             tmp.write_text(json.dumps(data, indent=1, sort_keys=True) + "\n", encoding="utf-8")
             tmp.replace(path)
+    if a.update_readme:
+        text = README.read_text(encoding="utf-8")
+        new = update_readme(text, data)
+        if new != text:
+            tmp = README.with_suffix(".md.tmp")
+            tmp.write_text(new, encoding="utf-8")
+            tmp.replace(README)
     problems = check_readme(README.read_text(encoding="utf-8"), data)
     n = len(readme_marks(README.read_text(encoding="utf-8")))
     for p in problems:
