@@ -345,18 +345,57 @@ def part_generalisation(work: Path) -> tuple[dict, str]:
     m = re.search(r"ekf_beats_baseline=(\d+)/(\d+)", last)
     if m:
         figs["ekf_beats"], figs["pairs"] = float(m.group(1)), float(m.group(2))
+    notes = []
     for r in json.loads(out.read_text()):
+        if r.get("note") and f"{r['case']}: {r['note']}" not in notes:
+            notes.append(f"{r['case']}: {r['note']}")
         if r.get("method") not in ("ekf", "coulomb"):
             continue
-        key = "_".join(str(r.get(k, "")) for k in ("case", "recording", "rate", "method"))
-        key = re.sub(r"[^A-Za-z0-9_.\-]", "_", key)
         for col in ("rmse_pct", "max_pct", "coverage_pct", "wrong_start_rmse_pct", "offset_rmse_pct"):
             v = r.get(col)
             if isinstance(v, (int, float)) and math.isfinite(v):
-                figs[f"{key}.{col}"] = float(v)
+                figs[f"{gen_key(r)}.{col}"] = float(v)
+    NOTES["generalisation"] = notes
     return figs, "python benchmarks/generalisation.py --json FILE"
 
 
+def gen_key(row: dict) -> str:
+    """Figure key of one generalisation row: ``case.recording.rate.method`` (``pan25.Cycle_2.10hz.ekf``)."""
+    rec = str(row.get("recording", "")).split(" (")[0]
+    rate = str(row.get("rate", "")).replace(" ", "").lower()
+    return re.sub(r"[^A-Za-z0-9_.\-]", "_", f"{row['case']}.{rec}.{rate}.{row['method']}")
+
+
+CASE_LABELS = {"pan25": "Panasonic 25 degC", "pan10": "Panasonic 10 degC", "pan0": "Panasonic 0 degC",
+               "nmc": "PyBaMM Chen2020 NMC", "lfp": "PyBaMM Prada2013 LFP", "demo": "demo C48"}
+
+
+def generalisation_table(data: dict, cases=("pan25", "pan10", "pan0", "nmc", "lfp"), rate: str = "10hz") -> str:
+    """Markdown table (with figure marks) of the unseen recordings of the generalisation part."""
+    figs = data["parts"]["generalisation"]["figures"]
+    rows = sorted({k.rsplit(".", 1)[0] for k in figs if k.count(".") == 4}, key=lambda k: (
+        cases.index(k.split(".")[0]) if k.split(".")[0] in cases else 99, k))
+    out = ["| case | recording | EKF RMSE | EKF max | EKF inside +-3 sigma | baseline RMSE | with +0.025 C offset: "
+           "EKF / baseline RMSE | EKF RMSE from 600 s after a 30-point wrong start |",
+           "|---|---|---|---|---|---|---|---|"]
+    done = set()
+    for r in rows:
+        case, rec, rt, _m = r.split(".")
+        if case not in cases or rt != rate or (case, rec) in done:
+            continue
+        done.add((case, rec))
+        e, c = f"generalisation.{case}.{rec}.{rt}.ekf", f"generalisation.{case}.{rec}.{rt}.coulomb"
+
+        def mk(key, d=2):
+            v = figs.get(key.split(".", 1)[1])
+            return "" if v is None else f"{v:.{d}f}<!--fig:{key}-->"
+        out.append(f"| {CASE_LABELS.get(case, case)} | {rec} | {mk(e + '.rmse_pct')} | {mk(e + '.max_pct')} | "
+                   f"{mk(e + '.coverage_pct', 1)} % | {mk(c + '.rmse_pct')} | {mk(e + '.offset_rmse_pct')} / "
+                   f"{mk(c + '.offset_rmse_pct')} | {mk(e + '.wrong_start_rmse_pct')} |")
+    return "\n".join(out)
+
+
+NOTES: dict = {}
 RUNNERS = {"demo": part_demo, "energy": part_energy, "montecarlo": part_montecarlo, "speed": part_speed,
            "identify": part_identify, "generalisation": part_generalisation}
 
@@ -396,6 +435,8 @@ def main(argv=None) -> int:
     ap.add_argument("--work", default=str(Path.home() / ".cache" / "socfuse" / "readme_figures"),
                     help="folder for intermediate files")
     ap.add_argument("--check", action="store_true", help="only compare the README with the figures file")
+    ap.add_argument("--print-table", action="store_true",
+                    help="print the README's reference-case table (with marks) from the generalisation part")
     ap.add_argument("--update-readme", action="store_true",
                     help="rewrite the README's marked numbers from the figures file (then read the diff)")
     a = ap.parse_args(argv)
@@ -413,12 +454,15 @@ def main(argv=None) -> int:
                                    "generated_utc": datetime.now(timezone.utc).strftime("%Y-%m-%dT%H:%M:%SZ"),
                                    "seconds": round(time.perf_counter() - t0, 1),
                                    "figures": {k: (round(v, 6) if isinstance(v, float) else v)
-                                               for k, v in sorted(figs.items())}}
+                                               for k, v in sorted(figs.items())},
+                                   "notes": NOTES.get(name, [])}
             print(f"[{name}] {len(figs)} figures in {time.perf_counter() - t0:.0f} s", file=sys.stderr, flush=True)
             path.parent.mkdir(parents=True, exist_ok=True)
             tmp = path.with_suffix(".json.tmp")
             tmp.write_text(json.dumps(data, indent=1, sort_keys=True) + "\n", encoding="utf-8")
             tmp.replace(path)
+    if a.print_table:
+        print(generalisation_table(data))
     if a.update_readme:
         text = README.read_text(encoding="utf-8")
         new = update_readme(text, data)
