@@ -24,7 +24,8 @@ def _filterpy_run(m, su, rec, x0, p0):
     and b = R (1 - a) exactly); Hx and HJacobian are the model's measurement through
     ``EkfSetup.measure`` (the same tabulated OCV curve).  The model-error state, when on, is a
     first-order Gauss-Markov process (F = exp(-dt/tau), Q = sigma^2 (1 - F^2)); the capacity
-    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R i_k)^2``.
+    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R i_k)^2``; both white
+    sensor variances are multiplied by ``max(1, noise_corr_s / dt)``.
     """
     s = su.settings
     nx = su.n_x
@@ -53,7 +54,8 @@ def _filterpy_run(m, su, rec, x0, p0):
                 f[:, su.i_b] -= g
                 f[su.i_b, su.i_b] = 1.0
                 qd[su.i_b] = s.q_bias_a2_per_s
-            qm = np.outer(g, g) * s.current_noise_a ** 2 + np.diag(qd) * dt
+            wf = max(1.0, s.noise_corr_s / dt)  # band-limited sensor noise (kernels docstring)
+            qm = np.outer(g, g) * s.current_noise_a ** 2 * wf + np.diag(qd) * dt
             qm[0, 0] += s.capacity_error_frac ** 2 * abs(g[0] * (u - b))
             if su.i_e >= 0:
                 ae = np.exp(-dt / s.model_error_tau_s)
@@ -67,13 +69,15 @@ def _filterpy_run(m, su, rec, x0, p0):
             ik, tk = i[k], np.nan
             kf.update(np.array([[v[k]]]), HJacobian=lambda x: su.measure(x[:, 0], ik, tk)[1].reshape(1, -1),
                       Hx=lambda x: np.array([[su.measure(x[:, 0], ik, tk)[0]]]),
-                      R=np.array([[s.voltage_noise_v ** 2 + (s.resistance_error_ohm * ik) ** 2]]))
+                      R=np.array([[(s.voltage_noise_v ** 2 + (s.resistance_error_ohm * ik) ** 2)
+                                   * (max(1.0, s.noise_corr_s / (t[k] - t[k - 1])) if k > 0 else 1.0)]]))
         xs.append(kf.x[:, 0].copy())
         ps.append(kf.P.copy())
     return np.array(xs), np.array(ps)
 
 
-WHITE = dict(model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, voltage_noise_v=0.01)
+WHITE = dict(model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, voltage_noise_v=0.01,
+             noise_corr_s=0.0)
 
 
 @pytest.mark.parametrize("n_rc,bias,uneven,new", [(2, False, False, False), (1, True, True, False),
@@ -127,7 +131,7 @@ def test_nis_inside_chi2_band():
     s = default_settings(m).with_(voltage_noise_v=sigma_v, current_noise_a=1e-6, q_soc_per_s=1e-14,
                                   q_rc_v2_per_s=1e-14, p0_soc=0.02, p0_rc_v=1e-4, gate_sigma=0.0,
                                   estimate_bias=False, model_error_v=0.0, resistance_error_ohm=0.0,
-                                  capacity_error_frac=0.0)
+                                  capacity_error_frac=0.0, noise_corr_s=0.0)
     n = 3000
     t, i = drive_profile(n, seed=7, uneven=True)
     sim = simulate(m, t, i, soc0=0.7)

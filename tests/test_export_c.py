@@ -269,7 +269,8 @@ def test_input_checks_health_fallback_and_recovery(tmp_path):
 @needs_cc
 def test_real_data_model_matches_python_reference(tmp_path, realdata):
     # Panasonic 18650PF (Kollmeyer 2018): model identified from the C/20 and HPPC tests, golden
-    # vectors = drive cycle Cycle_2 at 1 Hz (every tenth row, current averaged over the ten rows)
+    # vectors = the whole drive cycle Cycle_2 at its native 10 Hz (about 111,000 rows), and at 1 Hz
+    # (every tenth row, current averaged over the ten rows)
     from socfuse.models.identify import identify
 
     preset = "panasonic-18650pf"
@@ -286,3 +287,6 @@ def test_real_data_model_matches_python_reference(tmp_path, realdata):
     assert res.golden_rows == idx.size
     assert res.harness_exit == 0
     assert res.max_soc_diff < 1e-4
+    res10 = export_c(model, None, tmp_path / "c10", cyc)
+    assert res10.golden_rows == cyc.n > 100_000
+    assert res10.harness_exit == 0 and res10.max_soc_diff < 1e-4, res10.max_soc_diff

@@ -105,6 +105,7 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_TAUE] = s.model_error_tau_s
     prm[K.P_CAPERR] = s.capacity_error_frac
     prm[K.P_RERR] = s.resistance_error_ohm
+    prm[K.P_VCORR] = s.noise_corr_s
     prm.setflags(write=False)
     out = EkfSetup(tab, prm, n_rc, i_b, i_h, bool(s.estimate_hysteresis) and tab.has_hysteresis, nx,
                    state_names(n_rc, i_b >= 0, i_h >= 0, i_e >= 0), s, i_e)

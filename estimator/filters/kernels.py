@@ -35,7 +35,14 @@ Resistance uncertainty: the white measurement variance of sample ``k`` is ``R_k 
 (sigma_R i_k)^2`` (``sigma_R`` = ``prm[P_RERR]``, ohm): an error in R0 (and in the fast part of
 the RC response) shows at once when the current steps, in proportion to the current, so a
 voltage under heavy load says less about the OCV than one near rest (heteroscedastic noise,
-common practice, no source).  The gate uses the same ``S``.
+common practice, no source).  The gate uses the same ``S``.  That white part is band-limited:
+samples closer than ``tau_v = prm[P_VCORR]`` (s) are not independent, so ``R_k`` is multiplied by
+``max(1, tau_v / dt_k)`` (:func:`white_factor`; "noise scaled by the correlation time", the
+equivalent-bandwidth argument of Gelb 1974, sec. 3.8, cited from memory): a recording sampled
+faster than ``1 / tau_v`` (or interpolated to a higher rate) carries no more white-noise
+information per second than one sampled at ``1 / tau_v``.  The first sample uses factor 1.  The
+white current noise of an interval is scaled by the same factor (its charge error over a time
+``T`` is then ``sigma_i^2 tau_v T`` at any rate above ``1 / tau_v``), in the EKF and the baseline.
 
 Capacity uncertainty: the SOC variance grows by ``capacity_error^2 |dz|`` per interval
 (``|dz| = |eta u dt / Q|`` the SOC moved), so a 1-sigma capacity error ``c`` reaches a SOC sigma of
@@ -70,14 +77,15 @@ import numpy as np
 from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
-           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "N_PRM",
+           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "N_PRM",
+           "white_factor",
            "error_index", "cache_size", "NIS_ALPHA", "NIS_CAP", "NIS_HIGH", "NIS_LOW", "table_value", "ocv_lookup",
            "ocv_inverse", "measure", "transition", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
 
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
 P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
-P_SE, P_TAUE, P_CAPERR, P_RERR = 16, 17, 18, 19
-N_PRM = 20
+P_SE, P_TAUE, P_CAPERR, P_RERR, P_VCORR = 16, 17, 18, 19, 20
+N_PRM = 21
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -88,6 +96,15 @@ NIS_ALPHA = 1.0 / 64.0   # weight of the newest NIS (running mean over about 64 
 NIS_CAP = 25.0           # one sample adds at most a 5-sigma innovation
 NIS_HIGH = 9.0           # mean NIS 9 = innovations of 3 sigma on average: the filter is inconsistent
 NIS_LOW = 4.0            # ... healthy again below this (hysteresis of the C health flag)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def white_factor(prm, dt):
+    """Factor on the white measurement variance for a sample ``dt`` s after the previous one."""
+    c = prm[P_VCORR]
+    if dt > 0.0 and c > dt:
+        return c / dt
+    return 1.0
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -377,7 +394,7 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
     gq = g.copy()
     if i_h >= 0 and not est_h:
         gq[i_h] = 0.0
-    s2 = prm[P_IN] * prm[P_IN]
+    s2 = prm[P_IN] * prm[P_IN] * white_factor(prm, dt)
     qm = np.zeros((nx, nx))
     for i in range(nx):
         for j in range(nx):
@@ -440,7 +457,9 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     i_e = error_index(nx, prm)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
-    s2 = prm[P_IN] * prm[P_IN]
+    s2i = prm[P_IN] * prm[P_IN]
+    s2 = s2i
+    wf = 1.0
     vn2 = prm[P_VN] * prm[P_VN]
     re2 = prm[P_RERR] * prm[P_RERR]
     gate = prm[P_GATE]
@@ -480,6 +499,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 gh = g[i_h]
                 g[i_h] = 0.0
             # P- = F P F^T + G G^T s2 + diag(q) dt, with F = diag(d) + c e_b^T, c = -g (c_b = 0)
+            wf = white_factor(prm, dt)
+            s2 = s2i * wf
             if i_b < 0:  # F diagonal: in place, no branches in the inner loop
                 for i in range(nx):
                     di = d[i]
@@ -529,6 +550,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         t_last = tk
         ik = current_a[k]
         r_meas = vn2 + re2 * ik * ik
+        if k > lo:
+            r_meas *= wf
         sv = r_meas
         for i in range(nx):
             acc = 0.0
@@ -675,7 +698,7 @@ def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest
             eta = 1.0 if u >= 0.0 else eta_c
             z = z - eta * u * dt / cap
             c = eta * dt / cap
-            var += c * c * s2 + qs * dt
+            var += c * c * s2 * white_factor(prm, dt) + qs * dt
             if z < smin:
                 z = smin
             elif z > smax:

@@ -47,6 +47,12 @@ class FilterSettings:
         makes the filter's confidence independent of the sample rate.  0 = off (white noise only).
     model_error_tau_s : float
         Correlation time of that error, s (``a = exp(-dt/tau)``, ``q = sigma^2 (1 - a^2)``).
+    noise_corr_s : float
+        Correlation time of the white sensor noise (voltage and current), s: samples closer
+        than this are not independent, so the white voltage variance of a sample ``dt`` after
+        the previous one, and the current-noise variance of that interval, are multiplied by
+        ``max(1, noise_corr_s / dt)``.  With the model-error state this makes the answer the
+        same at 1, 10 or 100 Hz.  0 = every sample independent (rate dependent).
     resistance_error_ohm : float
         One-sigma error of the series resistance the model predicts with, ohm: adds
         ``(resistance_error_ohm * current)^2`` to the white voltage variance of each sample (a
@@ -131,6 +137,7 @@ class FilterSettings:
     model_error_tau_s: float = 60.0
     capacity_error_frac: float = 0.0
     resistance_error_ohm: float = 0.0
+    noise_corr_s: float = 0.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -199,7 +206,7 @@ def default_settings(model) -> FilterSettings:
         gate_sigma=5.0, soc_min=0.0, soc_max=1.0, rest_current_a=c / 50.0, rest_min_s=3600.0,
         reseed=True, early_reseed_s=0.0, n_soc_grid=401,
         model_error_v=_model_error_v(model), model_error_tau_s=60.0, capacity_error_frac=0.02,
-        resistance_error_ohm=0.2 * r0_mid)
+        resistance_error_ohm=0.2 * r0_mid, noise_corr_s=1.0)
 
 
 def _model_error_v(model) -> float:

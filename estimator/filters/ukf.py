@@ -4,8 +4,8 @@ filterpy's ``UnscentedKalmanFilter`` with ``MerweScaledSigmaPoints`` (van der Me
 Julier and Uhlmann 1997) runs the process model :func:`estimator.kernels.transition` and
 the measurement :func:`estimator.kernels.measure` (the sampling rule, per-step ``dt``), so
 it shares the EKF's model code (including the model-error state).  ``Q_k`` is the EKF's
-(:func:`estimator.kernels.linearise`) at the current mean, ``R_k = sigma_v^2 + (sigma_R i_k)^2``
-as in the EKF.  NaN voltage = predict only; the same innovation gate, gate release and SOC
+(:func:`estimator.kernels.linearise`) at the current mean, ``R_k = (sigma_v^2 + (sigma_R
+i_k)^2) max(1, tau_v / dt)`` as in the EKF.  NaN voltage = predict only; the same innovation gate, gate release and SOC
 projection as the EKF; the initial state comes from :func:`estimator.ekf.initial_soc`.  Zero initial
 variances (``p0_soc = p0_rc_v = 0``, allowed by the schema) are raised to a tiny floor, since
 the sigma points need a positive-definite ``P``.
@@ -15,6 +15,7 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
+from socfuse.estimator.filters.kernels import white_factor
 from socfuse.estimator.filters.ekf import _prior, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -65,7 +66,8 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
             ukf.predict(dt=dt, u=u, t_c=tc[k - 1])
         else:
             ukf.sigmas_f = pts.sigma_points(ukf.x, ukf.P)
-        r = np.array([[s.voltage_noise_v ** 2 + (s.resistance_error_ohm * i[k]) ** 2]])
+        wf = white_factor(su.prm, float(t[k] - t[k - 1])) if k > 0 else 1.0
+        r = np.array([[(s.voltage_noise_v ** 2 + (s.resistance_error_ohm * i[k]) ** 2) * wf]])
         ukf.R = r
         zs = np.array([hx(sp, i[k], tc[k]) for sp in ukf.sigmas_f])
         zp, smat = unscented_transform(zs, pts.Wm, pts.Wc, r)
