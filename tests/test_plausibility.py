@@ -151,3 +151,18 @@ def test_real_recordings_are_plausible_and_their_mistakes_are_found(realdata, re
     assert "--discharge-negative" in next(f.fix for f in check_against_model(raw, m) if f.severity == "error")
     assert _errors(rec.with_(current_a=rec.current_a * 1000), m)[:1] == ["current-ma"]
     assert _errors(rec.with_(voltage_v=rec.voltage_v * 1000), m)[:1] == ["voltage-mv"]
+
+
+def test_current_scale_without_a_model_from_the_apparent_resistance():
+    """Identification inputs have no model yet: mA read as A shows as a resistance 1000 times too small
+    (|dV/dI| = R0 at a current step, Hu et al. 2012; 1 mA = 1e-3 A)."""
+    m = tiny_model(n_rc=1)  # R0 15..20 mOhm
+    t = np.arange(0.0, 3000.0)
+    i = np.where((t % 300) < 60, 4.8, 0.0)
+    sim = simulate(m, t, i, 25.0, soc0=0.8)
+    rec = Recording(t, i, sim.voltage_v)
+    assert _errors(rec, None) == []
+    (f,) = [f for f in check_against_model(rec.with_(current_a=i * 1000), None) if f.severity == "error"]
+    assert f.code == "current-scale" and "far too large" in f.seen and "--current-unit mA" in f.fix
+    (f,) = [f for f in check_against_model(rec.with_(current_a=i / 1000), None) if f.severity == "error"]
+    assert f.code == "current-scale" and "far too small" in f.seen
