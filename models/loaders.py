@@ -28,9 +28,10 @@ Rules (the same for every format):
 - Damaged CSV files: a data row with fewer fields than the header is refused, except the last
   line of the file, which a logger killed while writing leaves short: it is dropped and
   reported in ``metadata["truncated_last_row"]``; so is a last line without a line end whose
-  last field is blank or shorter than every value of that column in the 50 rows before it (a
-  number cut in the middle).  A cut that leaves a field as long as earlier ones (columns
-  written with varying widths) cannot be told from a complete line.  A field over the CSV module's limit (128 KiB) is refused.
+  last field is blank or shorter than the median length of that column in the 50 rows before
+  it (a number cut in the middle; a complete but short last value is then dropped too, and
+  reported).  A cut that leaves a field at least as long as the median cannot be told from a
+  complete line.  A field over the CSV module's limit (128 KiB) is refused.
 - Packs: ``series_cells`` divides the voltage and ``parallel_cells`` the current, so a pack log
   can be estimated with a cell model (the cells are assumed balanced).
 - Rows whose time repeats the previous row's time exactly are dropped (the first is kept)
@@ -387,7 +388,7 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
         last, c = rows[-1], named - 1  # a cut inside the last line shortens (or empties) its last field
         prev = [r[c].strip() for r in rows[-51:-1]]
         field = last[c].strip()
-        if all(prev) and (not field or len(field) < min(len(x) for x in prev)):
+        if all(prev) and (not field or len(field) < float(np.median([len(x) for x in prev]))):
             info["truncated_last_row"] = (f"file line {line_no[-1]} ends without a line end after a short "
                                           f"field {field!r}")
             rows.pop()

@@ -136,3 +136,16 @@ def test_load_from_args_matches_load_recording(tmp_path):
     # preset values stay unless overridden
     m2 = mapping_from_args(parser.parse_args(["--preset", "panasonic-18650pf", "--discharge-positive"]))
     assert (m2.current, m2.discharge_negative) == ("Current", False)
+
+
+def test_check_against_a_model_names_the_unit_option(tmp_path, capsys):
+    from ekf_cases import tiny_model
+    from socfuse.models import save_model
+
+    t, i, v = _profile()
+    save_model(tiny_model(n_rc=1), tmp_path / "m.json")  # a 4.8 Ah cell
+    p = _write(tmp_path / "ma.csv", t, i * 1000, v)  # 1 mA = 1e-3 A (common practice, no source)
+    assert main(["check", str(p), "--model", str(tmp_path / "m.json")]) == 2
+    cap = capsys.readouterr()
+    assert "IMPLAUSIBLE: current_a" in cap.out and "--current-unit mA" in cap.err.strip().splitlines()[-1]
+    assert main(["check", str(p), "--model", str(tmp_path / "m.json"), "--current-unit", "mA"]) == 0
