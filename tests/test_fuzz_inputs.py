@@ -290,7 +290,7 @@ def test_truncations_of_variable_width_rows_never_load_a_changed_value(tmp_path)
     rec = load_recording(Path(__file__).resolve().parents[1] / "datasets" / "c48_day_lunch.csv")
     p = tmp_path / "cut.csv"
     tried = changed = 0
-    for end in range(300, 26000, 2500):
+    for end in range(300, 26000, 3500):
         rec.slice(end - 100, end).to_csv(p)
         text = p.read_text().rstrip("\n")
         lines = text.split("\n")
@@ -305,4 +305,4 @@ def test_truncations_of_variable_width_rows_never_load_a_changed_value(tmp_path)
                 continue
             got = np.column_stack([r.time_s, r.current_a, r.voltage_v, r.temperature_c, r.soc_ref])
             changed += not np.array_equal(got, full[:r.n])
-    assert tried > 200 and changed == 0
+    assert tried > 150 and changed == 0
