@@ -272,9 +272,13 @@ class RawTable:
         return f"row {k + 1}"
 
 
-def _decode(raw: bytes) -> str:
+def _decode(raw: bytes, path=None) -> str:
     if raw[:2] in (b"\xff\xfe", b"\xfe\xff"):
-        return raw.decode("utf-16")
+        try:
+            return raw.decode("utf-16")
+        except UnicodeDecodeError as e:
+            raise RecordingError(f"{path}: starts with a UTF-16 byte-order mark but is not UTF-16 text "
+                                 f"(byte {e.start}: {e.reason})") from None
     raw = raw.replace(b"\x00", b"")
     for enc in ("utf-8-sig", "cp1252", "latin-1"):
         try:
@@ -341,7 +345,7 @@ def _read_csv(path: Path, cmap: ColumnMap) -> RawTable:
 def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
     raw = path.read_bytes()
     nul = raw.count(b"\x00")
-    text = _decode(raw)
+    text = _decode(raw, path)
     lines = text.splitlines()
     if not text.strip():
         raise RecordingError(f"{path}: the file is empty")

@@ -177,7 +177,7 @@ def csv_bytes(draw):
         data = data[:cut]
     if draw(st.booleans()):
         data += draw(st.binary(max_size=8))
-    return data
+    return draw(st.sampled_from([b"", b"", b"\xff\xfe", b"\xfe\xff", b"\xef\xbb\xbf"])) + data  # byte-order marks
 
 
 @FUZZ

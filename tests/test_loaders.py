@@ -188,6 +188,9 @@ CASES = [
      dict(time="Time Stamp", time_unit="iso", time_format="%m/%d/%Y %I:%M:%S %p", voltage="Voltage",
           current="Current"), dict(time_s=[0.0, 1.0, 10.0], current_a=OK_I)),
     ("unknown-suffix", _text("a.xlsx", "x"), {}, ("error", ["a.xlsx", "unknown file type"])),
+    # a UTF-16 byte-order mark (FF FE, Unicode Standard ch. 23.8) on bytes that are not UTF-16: the file is named
+    ("bad-utf16", _text("a.csv", b"\xff\xfetime_s,current_a,voltage_v\n0,1,3.7\n", mode="wb"), {},
+     ("error", ["a.csv", "UTF-16"])),
 ]
 
 
