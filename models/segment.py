@@ -163,7 +163,7 @@ def noise_floor(x, window: int = 16, quantile: float = 0.2) -> float:
     noise): their RMS after leaving out steps (differences beyond 6 MADs, or 3 logging quanta), and
     the ``quantile`` of their standard deviation over non-overlapping windows of ``window``
     samples (so neither steps nor the dynamics of a drive dominate); floored at the logging quantum over ``sqrt(12)`` and at
-    ``1e-9`` times the largest magnitude.
+    ``2e-5`` times the largest magnitude (a 16-bit converter's step over its range).
 
     Parameters
     ----------
@@ -179,7 +179,7 @@ def noise_floor(x, window: int = 16, quantile: float = 0.2) -> float:
     """
     x = np.asarray(x, dtype=float)
     x = x[np.isfinite(x)]
-    floor = max(_quantum(x) / np.sqrt(12.0), 1e-9 * float(np.max(np.abs(x))) if x.size else 0.0, 1e-12)
+    floor = max(_quantum(x) / np.sqrt(12.0), 2e-5 * float(np.max(np.abs(x))) if x.size else 0.0, 1e-12)
     if x.size < 3:
         return floor
     d = np.diff(x)
@@ -242,8 +242,9 @@ def _rest_level(t, i, v, noise, gap, window: int):
     modes = centres[peak][np.argsort(np.abs(centres[peak]))]
     big = float(np.quantile(np.abs(i), 0.99))
     lvl = None
+    tol = max(3 * bw, step)  # a mode is known to a histogram bin
     for m in modes:
-        member = quiet & (np.abs(means - m) <= 3 * bw)
+        member = quiet & (np.abs(means - m) <= tol)
         rs, re_ = _runs(member)
         longest = max((float(tb[e - 1, -1] - tb[s_, 0]) for s_, e in zip(rs, re_)), default=0.0)
         if longest >= min(60.0, 0.2 * float(t[-1] - t[0])):
@@ -252,14 +253,13 @@ def _rest_level(t, i, v, noise, gap, window: int):
     if lvl is None:
         return None, 0, 0.0, None, "no quiet current level held for 60 s: no rest found, offset 0 assumed"
     lvl_abs = abs(lvl)
-    others = [abs(float(m)) for m in modes if abs(float(m)) > lvl_abs + 6 * bw]
+    others = [abs(float(m)) for m in modes if abs(float(m)) > lvl_abs + 2 * tol]
     # the rest level lies well below the test currents: under 30 % of the next level and of the 99th
     # percentile of |i| (an offset larger than that cannot be told from a small load)
     ref = min(others) if others else big
     if not (lvl_abs <= 0.3 * max(ref, 1e-12) and lvl_abs <= 0.3 * max(big, 1e-12)) and lvl_abs > 6 * noise:
         return None, 0, 0.0, None, (f"the quietest current level {lvl:.4g} A is not well below the test "
                                     f"currents (next {ref:.4g} A): no rest found, offset 0 assumed")
-    tol = 3 * bw
     in_lvl = quiet & (np.abs(means - lvl) <= tol)
     mask = np.zeros(n, dtype=bool)
     mask[: nw * w] = np.repeat(in_lvl, w)
@@ -354,7 +354,6 @@ def segment_recording(time_s, current_a, voltage_v=None, offset_a: float | None 
             offset_sigma = noise / np.sqrt(max(n_rest, 1))
     else:
         offset, offset_sigma, rest_time = float(offset_a), 0.0, 0.0
-        notes.append("offset given")
     i = i_raw - offset
     if threshold_a is not None:
         on = off = float(threshold_a)
@@ -369,10 +368,15 @@ def segment_recording(time_s, current_a, voltage_v=None, offset_a: float | None 
         use = np.zeros(n, dtype=bool)
         for a, b in zip(rs, re_):
             if b - a >= 4 and t[b - 1] - t[a] >= 60.0 and not np.any(gap[a:b - 1]):
-                use[a + 1:b - 1] = True  # edge samples may hold a step's tail
+                # only rests at the first pass's level: a small steady load below the switching
+                # threshold (a BMS's own supply) is not a rest
+                run = i_raw[a + 1:b - 1]  # edge samples may hold a step's tail
+                if abs(float(np.mean(run)) - offset) <= max(4.0 * noise / np.sqrt(run.size), 2.0 * noise / 4.0):
+                    use[a + 1:b - 1] = True
         if np.count_nonzero(use) >= 10:
             offset = float(np.mean(i_raw[use]))
-            offset_sigma = noise / np.sqrt(np.count_nonzero(use))
+            # standard error from the rest samples' own spread (the noise floor is a low quantile)
+            offset_sigma = float(np.std(i_raw[use])) / np.sqrt(np.count_nonzero(use))
             rest_time = float(np.sum(dt[use[:-1] & use[1:]]))
             i = i_raw - offset
             state = _schmitt(i, on, off, gap)

@@ -18,7 +18,7 @@ from scipy.interpolate import PchipInterpolator
 
 from socfuse.models.ocv import OcvCurve
 
-__all__ = ["isotonic_increasing", "greedy_breakpoints", "curve_from_dense", "MIN_STEP_V"]
+__all__ = ["isotonic_increasing", "greedy_breakpoints", "curve_from_dense", "whittaker_gcv", "MIN_STEP_V"]
 
 #: smallest voltage step between neighbouring breakpoints after the monotone projection (V)
 MIN_STEP_V = 1e-5
@@ -115,3 +115,74 @@ def curve_from_dense(grid, values, n_breakpoints: int, source: str, tol_v: float
     curve = OcvCurve(grid[idx], mono[idx], source=source)
     err = float(np.max(np.abs(curve.voltage(grid) - mono)))
     return curve, err
+
+
+def whittaker_gcv(x, y, weights=None, lambdas=None):
+    """Whittaker-Henderson smoother with its penalty chosen by generalised cross-validation.
+
+    Minimises ``sum w_k (y_k - z_k)^2 + lambda sum (D2 z)_k^2`` where ``D2`` is the second
+    divided difference over the (uneven) abscissae ``x`` (Whittaker, Proc. Edinburgh Math. Soc.
+    41, 1923; Eilers, Anal. Chem. 75, 3631, 2003, "A perfect smoother"), and picks ``lambda``
+    from a logarithmic grid by the GCV score ``m RSS / (m - tr H)^2`` (Craven and Wahba, Numer.
+    Math. 31, 1979).  ``lambda -> 0`` returns the data, ``lambda -> inf`` their weighted
+    straight line, so a table that is only noise becomes a line and a real trend is kept.
+
+    Parameters
+    ----------
+    x : array_like (m,)
+        Strictly increasing abscissae (e.g. SOC).
+    y : array_like (m,)
+        Values; NaN entries get weight 0 (filled by the smoother).
+    weights : array_like (m,), optional
+    lambdas : array_like, optional
+        Candidate penalties (default ``10**linspace(-8, 2, 41)``, scaled by the x-range^4).
+
+    Returns
+    -------
+    z : ndarray (m,)
+    lam : float
+        The chosen penalty (``nan`` when fewer than 4 finite values: ``y`` returned, NaNs
+        filled linearly).
+    """
+    x = np.asarray(x, dtype=float)
+    y = np.asarray(y, dtype=float)
+    m = x.size
+    w = np.ones(m) if weights is None else np.asarray(weights, dtype=float).copy()
+    good = np.isfinite(y)
+    w[~good] = 0.0
+    if np.count_nonzero(good) < 4 or m < 4:
+        out = y.copy()
+        if np.any(good) and not np.all(good):
+            out = np.interp(x, x[good], y[good])
+        return out, float("nan")
+    yy = np.where(good, y, 0.0)
+    # second divided differences on an uneven grid
+    d = np.zeros((m - 2, m))
+    for k in range(m - 2):
+        h1, h2 = x[k + 1] - x[k], x[k + 2] - x[k + 1]
+        d[k, k] = 2.0 / (h1 * (h1 + h2))
+        d[k, k + 1] = -2.0 / (h1 * h2)
+        d[k, k + 2] = 2.0 / (h2 * (h1 + h2))
+    pen = d.T @ d
+    span = float(x[-1] - x[0]) or 1.0
+    lams = (10.0 ** np.linspace(-8, 2, 41)) * span ** 4 if lambdas is None else np.asarray(lambdas, dtype=float)
+    wm = np.diag(w)
+    n_eff = float(np.count_nonzero(good))
+    best = None
+    for lam in lams:
+        a = wm + lam * pen
+        try:
+            hmat = np.linalg.solve(a, wm)
+        except np.linalg.LinAlgError:
+            continue
+        z = hmat @ yy
+        rss = float(np.sum(w * (yy - z) ** 2))
+        tr = float(np.trace(hmat))
+        if n_eff - tr <= 1e-9:
+            continue
+        score = n_eff * rss / (n_eff - tr) ** 2
+        if best is None or score < best[0]:
+            best = (score, z, float(lam))
+    if best is None:
+        return np.interp(x, x[good], y[good]), float("nan")
+    return best[1], best[2]

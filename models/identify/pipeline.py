@@ -9,19 +9,21 @@ Python entry point used by the ``identify`` and ``demo`` commands::
 """
 from __future__ import annotations
 
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 
 import numpy as np
 
 from socfuse.models.recording import Recording
 from socfuse.models.thevenin import CellModel
+from socfuse.models.identify.hysteresis import fit_low_rate_hysteresis, judge_hysteresis
 from socfuse.models.identify.ocvsource import OCV_SOURCES, ocv_candidates
+from socfuse.models.identify.plausible import check_model
 from socfuse.models.identify.ocvtest import OcvTestResult, identify_ocv_test
 from socfuse.models.identify.pulse import choose_rc_pairs, identify_pulse_test, pulse_power_table, pulse_tables
 from socfuse.models.identify.refine import RefineResult, refine_model
 from socfuse.models.identify.validate import validate
 
-__all__ = ["IdentifyResult", "identify", "IdentifyError"]
+__all__ = ["IdentifyResult", "identify", "IdentifyError", "sensor_offsets"]
 
 
 class IdentifyError(ValueError):
@@ -114,9 +116,67 @@ class IdentifyResult:
                              for r in self.power_table])
 
 
-def _build(capacity, eta, ocv, r0, rc, v_min, v_max, name, provenance) -> CellModel:
+def sensor_offsets(recordings, offset_a: float | None = None) -> dict:
+    """Current-sensor zero offset of each lab test, pooled over the tests that agree.
+
+    Each recording's offset is estimated from its rests (:func:`models.segment.segment_recording`).
+    Tests whose estimates agree with the first (the low-rate test) within three combined standard
+    errors are taken to share one sensor channel and get the inverse-variance weighted mean (a
+    C/20 test has few rest samples; a pulse test many), the others keep their own.
+
+    Parameters
+    ----------
+    recordings : list of Recording
+        The low-rate test first, then the pulse tests.
+    offset_a : float, optional
+        A known offset (A) used for every test instead.
+
+    Returns
+    -------
+    dict
+        ``estimates_a``, ``sigmas_a`` (per test, None without rests), ``used_a`` (per test),
+        ``pooled_a``, ``pooled_sigma_a``, ``pooled_files``, ``notes``.
+    """
+    from socfuse.models.segment import segment_recording
+
+    n = len(recordings)
+    if offset_a is not None:
+        return {"estimates_a": [None] * n, "sigmas_a": [None] * n, "used_a": [float(offset_a)] * n,
+                "pooled_a": float(offset_a), "pooled_sigma_a": 0.0, "pooled_files": [], "given": True,
+                "notes": [f"current-sensor offset {offset_a * 1000:.2f} mA given"]}
+    est, sig = [], []
+    for rec in recordings:
+        sg = segment_recording(rec.time_s, rec.current_a, rec.voltage_v)
+        est.append(sg.offset_a if sg.offset_sigma_a is not None else None)
+        sig.append(sg.offset_sigma_a)
+    used = [e if e is not None else 0.0 for e in est]
+    notes = []
+    members = [k for k in range(n) if est[k] is not None]
+    pooled = pooled_sigma = None
+    if members:
+        ref = members[0]
+        group = [k for k in members if abs(est[k] - est[ref]) <= 3.0 * np.hypot(max(sig[k], 1e-12),
+                                                                                  max(sig[ref], 1e-12))]
+        w = np.array([1.0 / max(sig[k], 1e-12) ** 2 for k in group])
+        pooled = float(np.sum(w * np.array([est[k] for k in group])) / np.sum(w))
+        pooled_sigma = float(1.0 / np.sqrt(np.sum(w)))
+        for k in group:
+            used[k] = pooled
+        apart = [k for k in members if k not in group]
+        if apart:
+            notes.append("current-sensor offsets differ between tests (" + ", ".join(
+                f"{_file(recordings[k])}: {est[k] * 1000:.2f} mA" for k in members) + "): each test keeps its own")
+        members = group
+    for k in range(n):
+        if est[k] is None:
+            notes.append(f"{_file(recordings[k])}: no rest to estimate the current-sensor offset; 0 assumed")
+    return {"estimates_a": est, "sigmas_a": sig, "used_a": used, "pooled_a": pooled, "pooled_sigma_a": pooled_sigma,
+            "pooled_files": [_file(recordings[k]) for k in members], "given": False, "notes": notes}
+
+
+def _build(capacity, eta, ocv, r0, rc, v_min, v_max, name, provenance, hysteresis=None) -> CellModel:
     return CellModel(capacity_ah=capacity, ocv=ocv, r0_ohm=r0, rc=rc, coulombic_efficiency=eta,
-                     v_min_v=v_min, v_max_v=v_max, name=name, provenance=provenance)
+                     v_min_v=v_min, v_max_v=v_max, name=name, provenance=provenance, hysteresis=hysteresis)
 
 
 def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_source: str = "auto",
@@ -124,7 +184,8 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
              pulse_temperatures_c=None, soc_mode: str = "auto", pulse_soc0: float = 1.0,
              v_min_v: float | None = None, v_max_v: float | None = None, name: str = "",
              refine_soc0: float | None = None, validate_soc0: float | None = None,
-             refine_options: dict | None = None, pulse_options: dict | None = None) -> IdentifyResult:
+             refine_options: dict | None = None, pulse_options: dict | None = None,
+             allow_implausible: bool = False) -> IdentifyResult:
     """Identify a Thevenin cell model from lab tests.
 
     Parameters
@@ -154,7 +215,17 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         first sample).
     refine_options, pulse_options : dict, optional
         Extra keyword arguments for :func:`refine.refine_model` and
-        :func:`pulse.identify_pulse_test`.
+        :func:`pulse.identify_pulse_test` (``pulse_options["offset_a"]``: a known current-sensor
+        zero offset, A, used for every test).
+    allow_implausible : bool
+        Return a model that fails the plausibility checks of :mod:`models.identify.plausible`
+        (the problems go into the notes and the provenance) instead of raising.
+
+    Raises
+    ------
+    IdentifyError
+        Bad arguments, or the model fails the plausibility checks (the message names the table,
+        SOC and value) and ``allow_implausible`` is false.
 
     Returns
     -------
@@ -170,15 +241,20 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
     elif isinstance(validate, Recording):
         validate = [validate]
     notes = []
-    o = identify_ocv_test(ocv_test, n_breakpoints=n_ocv_breakpoints, v_min_v=v_min_v, v_max_v=v_max_v)
+    # ---- current-sensor zero offset: from each lab test's rests, pooled when they agree
+    offsets = sensor_offsets([ocv_test] + pulse_tests, (pulse_options or {}).get("offset_a"))
+    notes.extend(offsets["notes"])
+    o = identify_ocv_test(ocv_test, n_breakpoints=n_ocv_breakpoints, v_min_v=v_min_v, v_max_v=v_max_v,
+                          offset_a=offsets["used_a"][0])
     notes.extend(f"low-rate test: {n}" for n in o.notes)
     temps = list(pulse_temperatures_c) if pulse_temperatures_c is not None else [None] * len(pulse_tests)
     if len(temps) != len(pulse_tests):
         raise IdentifyError(f"{len(temps)} pulse temperatures given for {len(pulse_tests)} pulse tests")
     results = []
-    for rec, tc in zip(pulse_tests, temps):
+    popts = {k: v for k, v in (pulse_options or {}).items() if k != "offset_a"}
+    for k, (rec, tc) in enumerate(zip(pulse_tests, temps)):
         res = identify_pulse_test(rec, o.capacity_ah, ocv=o.ocv, rc_pairs=rc_pairs, temperature_c=tc,
-                                  soc_mode=soc_mode, soc0=pulse_soc0, **(pulse_options or {}))
+                                  soc_mode=soc_mode, soc0=pulse_soc0, offset_a=offsets["used_a"][k + 1], **popts)
         results.append(res)
         notes.extend(f"pulse test {res.source}: {n}" for n in res.notes)
     n_rc, n_rc_reason = choose_rc_pairs(results, rc_pairs)
@@ -196,17 +272,43 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
     v_min = o.v_min_v
     v_max = o.v_max_v
 
-    def model_with(ocv_curve, r0_, rc_, prov):
-        return _build(o.capacity_ah, eta, ocv_curve, r0_, rc_, v_min, v_max, name, prov)
+    # ---- hysteresis (Plett 2004) from the low-rate branches, confirmed by the pulse-test rests
+    hyst_fit = None
+    if o.hysteresis_v is not None:
+        t_lr = ref_res.temperature_c
+        r_ss = np.asarray(r0.at(o.soc_grid, t_lr), dtype=float)
+        for pair in rc:
+            r_ss = r_ss + np.asarray(pair.r_ohm.at(o.soc_grid, t_lr), dtype=float)
+        hyst_fit = judge_hysteresis(fit_low_rate_hysteresis(o.soc_grid, o.half_gap_v, o.test_current_a * r_ss),
+                                    ref_res.rest_soc, ref_res.rest_v, ref_res.rest_after_discharge, o.ocv,
+                                    (o.segmentation or {}).get("voltage_noise_v") or 0.0015)
+    hyst = hyst_fit.hysteresis() if hyst_fit is not None else None
+
+    def model_with(ocv_curve, r0_, rc_, prov, hy=None):
+        return _build(o.capacity_ah, eta, ocv_curve, r0_, rc_, v_min, v_max, name, prov, hy)
 
     # ---- choose the OCV source
     scores = {}
     chooser = refine if refine is not None else (validate[0] if validate else None)
     chooser_soc0 = refine_soc0 if refine is not None else validate_soc0
+    if hyst is not None and ocv_source == "auto" and "average" in cands:
+        if chooser is not None:
+            # a dynamic recording decides: the hysteresis model (on the branch average, its centre
+            # line) against every OCV source without hysteresis
+            with_h = validate_fn(model_with(cands["average"], r0, rc, {}, hyst), chooser, chooser_soc0).rms_v
+            without = {k: validate_fn(model_with(c, r0, rc, {}), chooser, chooser_soc0).rms_v for k, c in cands.items()}
+            if with_h > min(without.values()):
+                hyst_fit = replace(hyst_fit, used=False, reason=hyst_fit.reason.replace(": modelled", "") + (
+                    f"; but {_file(chooser)} fits better without it ({min(without.values()) * 1000:.1f} against "
+                    f"{with_h * 1000:.1f} mV open loop): not modelled"))
+                hyst = None
+        if hyst is not None:
+            # the branch average is the centre line of the hysteresis model; rest points sit on a branch
+            cands = {"average": cands["average"]}
     if ocv_source == "auto":
         if chooser is not None:
             for k, c in cands.items():
-                scores[k] = validate_fn(model_with(c, r0, rc, {}), chooser, chooser_soc0).rms_v
+                scores[k] = validate_fn(model_with(c, r0, rc, {}, hyst), chooser, chooser_soc0).rms_v
             chosen = min(scores, key=scores.get)
             reason = f"lowest open-loop voltage RMS on {_file(chooser)}"
             if refine is None:
@@ -237,7 +339,7 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         chosen, reason = ocv_source, "requested"
         if chooser is not None:
             for k, c in cands.items():
-                scores[k] = validate_fn(model_with(c, r0, rc, {}), chooser, chooser_soc0).rms_v
+                scores[k] = validate_fn(model_with(c, r0, rc, {}, hyst), chooser, chooser_soc0).rms_v
     ocv_curve = cands[chosen]
     ocv_curve = type(ocv_curve)(ocv_curve.soc, ocv_curve.ocv_v, ocv_curve.temperature_c,
                                 f"{chosen}: {ocv_curve.source}")
@@ -262,8 +364,19 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
                 "candidates": {k: {"rest_point_rms_v": info[k].get("rest_point_rms_v"),
                                    "open_loop_rms_v": scores.get(k)} for k in cands}},
         "hysteresis_estimate": {"file": _file(ocv_test), "half_gap_v": o.hysteresis_v,
-                                "note": "median half-gap of the low-rate branches (includes the resistive drop); "
-                                        "not put in the model"},
+                                "note": "median half-gap of the low-rate branches (includes the resistive drop)"},
+        "hysteresis": {"file": [_file(ocv_test), pulse_files[ref]],
+                       "test": "Plett (2004) one-state hysteresis fitted to the low-rate half-gap less "
+                               "I_test (R0 + sum R_j); confirmed by the pulse-test rests after discharges",
+                       **(hyst_fit.as_dict() if hyst_fit is not None else {"used": False,
+                                                                            "reason": "no charge and discharge branch"})},
+        "current_offset": {"test": "mean current over the rests of each lab test (voltage relaxation confirms "
+                                   "them); pooled over the tests that agree within 3 standard errors",
+                           "files": [_file(ocv_test)] + pulse_files, "estimates_a": offsets["estimates_a"],
+                           "sigmas_a": offsets["sigmas_a"], "used_a": offsets["used_a"],
+                           "pooled_a": offsets["pooled_a"], "pooled_sigma_a": offsets["pooled_sigma_a"],
+                           "pooled_files": offsets["pooled_files"], "given": offsets["given"],
+                           "note": "subtracted from the measured current before counting charge"},
         "r0_ohm": {"file": pulse_files, "test": "pulse test, edge step (last sample before / first after each "
                                                 "edge), corrected for the RC charge in that interval",
                    "temperatures_c": [r.temperature_c for r in results],
@@ -278,7 +391,7 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
                      "pulses_fitted": len(relax_rms)},
         "notes": list(notes),
     }
-    model = model_with(ocv_curve, r0, rc, prov)
+    model = model_with(ocv_curve, r0, rc, prov, hyst)
 
     # ---- refinement
     ref_result = None
@@ -289,6 +402,18 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         prov["r0_ohm"] = dict(prov["r0_ohm"], refined_on=_file(refine))
         prov["rc_pairs"] = dict(prov["rc_pairs"], refined_on=_file(refine))
         model = ref_result.model.with_(provenance=prov)
+
+    # ---- plausibility (before validation: a refused model is not simulated)
+    problems = check_model(model, o, results)
+    if problems and not allow_implausible:
+        more = f" (and {len(problems) - 3} more)" if len(problems) > 3 else ""
+        raise IdentifyError("identified model refused as implausible: " + "; ".join(problems[:3]) + more
+                            + "; check the units and the tests, or accept it explicitly (--accept-implausible)")
+    prov = dict(prov)
+    prov["plausibility"] = {"checks": "models.identify.plausible.check_model", "problems": problems,
+                            "accepted_by_user": bool(problems)}
+    notes.extend(f"implausible (accepted): {p}" for p in problems)
+    model = model.with_(provenance=prov)
 
     # ---- validation
     vals = tuple(validate_fn(model, rec, validate_soc0) for rec in validate)

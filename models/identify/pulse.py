@@ -58,6 +58,7 @@ from socfuse.models.recording import Recording, RecordingError, charge_throughpu
 from socfuse.models.segment import segment_recording
 from socfuse.models.tables import ParamTable
 from socfuse.models.thevenin import RcPair
+from socfuse.models.identify.curves import whittaker_gcv
 from socfuse.models.identify.fastsim import unit_rc_response
 
 __all__ = [
@@ -426,6 +427,7 @@ class PulseTestResult:
     offset_a: float = 0.0
     offset_sigma_a: float | None = None
     segmentation: dict = field(default_factory=dict, repr=False)
+    rest_after_discharge: np.ndarray = field(default=None, repr=False)
 
     @property
     def n_levels(self) -> int:
@@ -636,8 +638,11 @@ def identify_pulse_test(rec: Recording, capacity_ah: float, ocv: OcvCurve | None
             if vals:
                 pf.r0_ohm[n_rc] = float(np.mean(vals))
     rs, rv, _ = rest_points(rec, soc, threshold_a, rest_min_s, gap_s, segmentation=seg)
+    before = {sg.stop: sg.kind for sg in seg.segments}
+    after_dis = np.array([before.get(r.start) == "discharge" for r in seg.rests(rest_min_s) if np.isfinite(v[r.stop - 1])],
+                         dtype=bool)
     return PulseTestResult(tuple(fits_out), float(temperature_c), soc_label, rs, rv, where, tuple(notes), soc, rec,
-                           seg.offset_a, seg.offset_sigma_a, seg.as_dict())
+                           seg.offset_a, seg.offset_sigma_a, seg.as_dict(), after_dis)
 
 
 # ============================================================================ model order and tables
@@ -680,7 +685,7 @@ def _level_rc(fits, n_rc: int, keep_fraction: float = 0.5):
     return [g[1] for g in good if g[0] >= keep_fraction * longest]
 
 
-def _level_table(res: PulseTestResult, n_rc: int):
+def _level_table(res: PulseTestResult, n_rc: int, smooth: bool = True):
     """Per-level medians: soc, r0, [r_j], [tau_j] (NaN where no valid value)."""
     levels = sorted({p.level for p in res.pulses})
     rows = []
@@ -712,6 +717,17 @@ def _level_table(res: PulseTestResult, n_rc: int):
                 if np.all(np.isfinite(win)):
                     rc[k, c] = float(np.median(win))
         arr[:, 2:] = rc
+    # every column (R0, R_j, tau_j) regularised over SOC: a Whittaker-Henderson smoother on the
+    # logarithm (values stay positive; resistances vary by ratios), penalty chosen by generalised
+    # cross-validation.  The EKF linearises through dR0/dSOC, so a table that is noise on a trend
+    # must not hand it a slope of noise; a trend the levels agree on is kept.
+    if smooth and arr.shape[0] >= 4:
+        for c in range(1, arr.shape[1]):
+            col = arr[:, c]
+            ok = np.isfinite(col) & (col > 0)
+            if np.count_nonzero(ok) >= 4:
+                z, _ = whittaker_gcv(arr[:, 0], np.where(ok, np.log(np.where(ok, col, 1.0)), np.nan))
+                arr[:, c] = np.where(ok, np.exp(z), col)
     return arr
 
 
