@@ -63,3 +63,33 @@ def test_tune_help_and_bad_options(files, capsys):
     assert main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o",
                  str(files / "x.json"), "--soc0", "1.7"]) == 2
     assert not (files / "x.json").exists()
+
+
+def test_tune_refuses_settings_worse_on_unseen_data(files, capsys):
+    # start at 50 mV voltage noise; the tuning day has 4 mV (ekf_cases.simulated_recording), the unseen
+    # day 40 mV more: by the Gaussian likelihood of the unseen day the tuned ~4 mV is worse than the
+    # start, so nothing is written and the exit code is 2 with the reason (DESIGN.md section 4)
+    import numpy as np
+    import pandas as pd
+
+    from socfuse.estimator.filters.settings import default_settings, save_settings
+    from socfuse.models.modelfile import load_model
+
+    day = pd.read_csv(files / "day.csv")
+    day["voltage_v"] += np.random.default_rng(2).normal(0.0, 0.04, len(day))
+    day.to_csv(files / "noisy.csv", index=False, float_format="%.9g")
+    save_settings(default_settings(load_model(files / "model.json")).with_(voltage_noise_v=0.05),
+                  files / "start.json")
+    out = files / "refused.json"
+    argv = ["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "--filter", str(files / "start.json"),
+            "--holdout", str(files / "noisy.csv"), "--holdout-fraction", "0", "--params", "voltage_noise_v",
+            "--max-evaluations", "30", "--quiet", "-o", str(out)]
+    assert main(argv) == 2
+    cap = capsys.readouterr()
+    assert not out.exists()
+    assert "refused" in cap.err and "hold-out objective rose" in cap.err
+    assert "REFUSED" in cap.out and "unseen" in cap.out
+    assert main(argv + ["--accept-worse"]) == 0
+    cap = capsys.readouterr()
+    assert out.exists() and "WARNING" in cap.err
+    assert load_settings(out).voltage_noise_v < 0.01
