@@ -124,7 +124,9 @@ def main(argv=None) -> int:
         if not getattr(args, "func", None):
             parser.print_help()
             return 2
-        return int(args.func(args) or 0)
+        code = int(args.func(args) or 0)
+        sys.stdout.flush()  # a closed pipe shows here, inside the handler, not at interpreter exit
+        return code
     except UsageError as e:
         print(f"{prefix}: error: {e}", file=sys.stderr)
         print(e.usage, file=sys.stderr)
