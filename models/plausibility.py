@@ -279,6 +279,15 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
     -------
     list of Finding
         Errors first, then warnings; empty when nothing looks wrong.
+
+    References
+    ----------
+    .. [1] X. Hu, S. Li, H. Peng, "A comparative study of equivalent circuit models for Li-ion
+       batteries", J. Power Sources 198 (2012) 359-367, doi:10.1016/j.jpowsour.2011.10.013
+       (the ohmic step ``dV = -R0 dI`` used for the sign and current-scale checks).
+    .. [2] G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based
+       HEV battery packs, part 2", J. Power Sources 134 (2004) 262-276,
+       doi:10.1016/j.jpowsour.2004.02.032 (coulomb counting: charge drawn over capacity).
     """
     findings: list[Finding] = []
     meta = rec.metadata or {}
