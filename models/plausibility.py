@@ -287,7 +287,8 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
        (the ohmic step ``dV = -R0 dI`` used for the sign and current-scale checks).
     .. [2] G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based
        HEV battery packs, part 2", J. Power Sources 134 (2004) 262-276,
-       doi:10.1016/j.jpowsour.2004.02.032 (coulomb counting: charge drawn over capacity).
+       doi:10.1016/j.jpowsour.2004.02.032 (coulomb counting: charge drawn over capacity).  (Page
+       numbers and DOIs quoted from memory.)
     """
     findings: list[Finding] = []
     meta = rec.metadata or {}
