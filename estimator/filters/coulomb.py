@@ -25,7 +25,8 @@ from socfuse.estimator.filters.trace import Trace, make_trace
 __all__ = ["run_coulomb"]
 
 
-def run_coulomb(model, rec, settings: FilterSettings | None = None, soc0: float | None = None) -> Trace:
+def run_coulomb(model, rec, settings: FilterSettings | None = None, soc0: float | None = None,
+                start: tuple[float, float] | None = None) -> Trace:
     """Run the coulomb-counting baseline over one recording.
 
     Parameters
@@ -34,6 +35,8 @@ def run_coulomb(model, rec, settings: FilterSettings | None = None, soc0: float 
     rec : models.Recording
     settings : FilterSettings, optional (default from the model)
     soc0 : float, optional  initial SOC (fraction); else from the OCV at the first sample
+    start : (soc, sigma), optional  start here instead (the monitored EKF's fallback baseline
+        starts where the filter starts, after its hand-over check)
 
     Returns
     -------
@@ -42,7 +45,7 @@ def run_coulomb(model, rec, settings: FilterSettings | None = None, soc0: float 
     """
     su = setup(model, settings)
     s = su.settings
-    z0, sig0 = initial_soc(su, rec, soc0, check=False)
+    z0, sig0 = initial_soc(su, rec, soc0, check=False) if start is None else (float(start[0]), float(start[1]))
     n = rec.n
     soc, sig = np.empty(n), np.empty(n)
     m = n // 2 + 1

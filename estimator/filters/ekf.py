@@ -106,6 +106,13 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_CAPERR] = s.capacity_error_frac
     prm[K.P_RERR] = s.resistance_error_ohm
     prm[K.P_VCORR] = s.noise_corr_s
+    # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
+    v_span = float(model.v_max_v - model.v_min_v)
+    prm[K.P_IMAX] = K.I_MAX_C * float(model.capacity_ah)
+    prm[K.P_VLO] = max(0.0, float(model.v_min_v) - K.V_MARGIN * v_span)
+    prm[K.P_VHI] = float(model.v_max_v) + K.V_MARGIN * v_span
+    prm[K.P_VRCMAX] = v_span
+    prm[K.P_P0SOC] = s.p0_soc
     prm.setflags(write=False)
     out = EkfSetup(tab, prm, n_rc, i_b, i_h, bool(s.estimate_hysteresis) and tab.has_hysteresis, nx,
                    state_names(n_rc, i_b >= 0, i_h >= 0, i_e >= 0), s, i_e)
@@ -218,9 +225,29 @@ def _arrays(rec):
             np.ascontiguousarray(rec.voltage_v, dtype=float), temperature_array(rec))
 
 
-def _run(model, rec, settings, soc0, store):
+def checked_inputs(su: EkfSetup, rec):
+    """The recording after the filter step's input checks (:func:`estimator.filters.kernels.check_inputs`).
+
+    Returns ``(recording, status)``: held currents, missing voltages and default temperatures in
+    place of implausible samples, and the per-sample status bits (``ST_REJ_*``).
+    """
+    t, i, v, tc = _arrays(rec)
+    n = rec.n
+    ci, cv, ct, st = np.empty(n), np.empty(n), np.empty(n), np.zeros(n, dtype=np.int64)
+    K.check_inputs(i, v, tc, su.prm, ci, cv, ct, st)
+    return rec.with_(current_a=ci, voltage_v=cv, temperature_c=ct), st
+
+
+def _run(model, rec, settings, soc0, store, monitor=False):
     su = setup(model, settings)
+    status = healthy = base = None
+    if monitor:
+        rec_in = rec
+        rec, status = checked_inputs(su, rec)
     z0, sig0 = initial_soc(su, rec, soc0)
+    if monitor:  # the fallback baseline starts where the filter starts (after the hand-over check)
+        from socfuse.estimator.filters.coulomb import run_coulomb
+        base = run_coulomb(model, rec, su.settings, start=(z0, sig0))
     x0, p0 = _prior(su, z0, sig0)
     n, nx = rec.n, su.n_x
     x_out = np.empty((n, nx))
@@ -228,6 +255,22 @@ def _run(model, rec, settings, soc0, store):
     shape = (n, nx, nx) if store else (1, nx, nx)
     p_out, pp_out, f_out = np.empty(shape), np.empty(shape), np.empty(shape)
     t, i, v, tc = _arrays(rec)
+    if monitor:
+        healthy = np.zeros(n, dtype=np.int64)
+        gated = K.ekf_run_monitored(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, x0,
+                                    p0, np.ascontiguousarray(base.soc), np.ascontiguousarray(base.soc_sigma), x_out,
+                                    sig, vp, inn, sv, status, healthy)
+        for t_rs, _, _ in base.reseeds:
+            status[np.searchsorted(rec.time_s, t_rs)] |= K.ST_RESEED
+        ok = healthy.astype(bool)
+        soc = np.where(ok, x_out[:, 0], base.soc)
+        soc_sigma = np.where(ok, sig, base.soc_sigma)
+        meta = {"filter_soc_sigma": sig, "n_fallback": int(np.count_nonzero(~ok)),
+                "n_reset": int(np.count_nonzero(status & K.ST_RESET)),
+                "n_rejected": int(np.count_nonzero(status & (K.ST_REJ_CURRENT | K.ST_REJ_VOLTAGE | K.ST_REJ_TEMP)))}
+        tr = make_trace(model, rec_in, "ekf", soc, soc_sigma, vp, inn, sv, x_out, gated, (), su.names, None, meta,
+                        status=status)
+        return tr, None
     gated = K.ekf_run(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, x0, p0,
                       x_out, sig, vp, inn, sv, store, p_out, pp_out, f_out)
     tr = make_trace(model, rec, "ekf", x_out[:, 0], sig, vp, inn, sv, x_out, gated, (), su.names,
@@ -236,8 +279,15 @@ def _run(model, rec, settings, soc0, store):
 
 
 def run_ekf(model, rec, settings: FilterSettings | None = None, soc0: float | None = None,
-            store_covariance: bool = False) -> Trace:
+            store_covariance: bool = False, monitor: bool = False) -> Trace:
     """Run the EKF over one recording.
+
+    With ``monitor`` the run is the exported C code's filter step: input checks, covariance floor,
+    reset from the baseline on non-finite or unphysical states, NIS health flag, and the output
+    (``soc``, ``soc_sigma``) falls back to the coulomb-counting baseline while unhealthy; the
+    filter's own SOC stays in ``states[:, 0]``, its sigma in ``metadata["filter_soc_sigma"]``, the
+    per-sample status bits (``estimator.filters.kernels.ST_*``) in ``Trace.status``.
+    ``store_covariance`` is not available with ``monitor``.
 
     Parameters
     ----------
@@ -247,7 +297,9 @@ def run_ekf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     soc0 : float, optional  initial SOC (fraction); else from the OCV at the first sample
     store_covariance : bool  keep the posterior covariance (N, n_x, n_x) in ``Trace.covariance``
     """
-    return _run(model, rec, settings, soc0, store_covariance)[0]
+    if monitor and store_covariance:
+        raise ValueError("store_covariance is not available for a monitored run")
+    return _run(model, rec, settings, soc0, store_covariance, monitor)[0]
 
 
 def run_ekf_store(model, rec, settings=None, soc0=None):

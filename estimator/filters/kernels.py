@@ -77,7 +77,10 @@ import numpy as np
 from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
-           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "N_PRM",
+           "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
+           "P_VRCMAX", "P_P0SOC", "N_PRM", "check_inputs", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
+           "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor",
            "error_index", "cache_size", "NIS_ALPHA", "NIS_CAP", "NIS_HIGH", "NIS_LOW", "table_value", "ocv_lookup",
            "ocv_inverse", "measure", "transition", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
@@ -85,7 +88,8 @@ __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN"
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
 P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
 P_SE, P_TAUE, P_CAPERR, P_RERR, P_VCORR = 16, 17, 18, 19, 20
-N_PRM = 21
+P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC = 21, 22, 23, 24, 25
+N_PRM = 26
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -95,7 +99,29 @@ DEFAULT_TEMP_C = 25.0
 NIS_ALPHA = 1.0 / 64.0   # weight of the newest NIS (running mean over about 64 updates)
 NIS_CAP = 25.0           # one sample adds at most a 5-sigma innovation
 NIS_HIGH = 9.0           # mean NIS 9 = innovations of 3 sigma on average: the filter is inconsistent
-NIS_LOW = 4.0            # ... healthy again below this (hysteresis of the C health flag)
+NIS_LOW = 4.0            # ... healthy again below this (hysteresis of the health flag)
+P_FLOOR = 1e-12          # diagonal floor of P for estimated states (monitored runs)
+H_MAX = 1.5              # |hysteresis state| above this is not physical (it lives in -1..1)
+BIG = 1e30               # |value| at or above this counts as not finite (the C code's float range check)
+# input plausibility (common practice, no source): current within 100 C, voltage within half the
+# model's voltage window beyond either limit, temperature within -60..150 degC
+I_MAX_C = 100.0
+V_MARGIN = 0.5
+T_LIMITS_C = (-60.0, 150.0)
+
+# Status bits of one step, shared with the exported C code (socfuse_ekf.h is generated from these)
+ST_REJ_DT = 0x01        # dt not finite or <= 0: whole sample ignored (C API only; recordings cannot have it)
+ST_REJ_CURRENT = 0x02   # current NaN or implausible: last valid current held
+ST_REJ_VOLTAGE = 0x04   # voltage NaN or implausible: predict only
+ST_REJ_TEMP = 0x08      # temperature implausible: default temperature used
+ST_GATED = 0x10         # innovation outside the gate: update skipped
+ST_FALLBACK = 0x20      # output is the coulomb-counting baseline
+ST_RESET = 0x40         # filter re-initialised from the baseline (non-finite or unphysical values)
+ST_WAITING = 0x80       # not started: no valid voltage yet and no initial SOC given (C API)
+ST_RESEED = 0x100       # baseline reseeded from the OCV after a rest
+STATUS_BITS = {"rej_dt": ST_REJ_DT, "rej_current": ST_REJ_CURRENT, "rej_voltage": ST_REJ_VOLTAGE,
+               "rej_temp": ST_REJ_TEMP, "gated": ST_GATED, "fallback": ST_FALLBACK, "reset": ST_RESET,
+               "waiting": ST_WAITING, "reseed": ST_RESEED}
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -431,13 +457,79 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
         When True also write ``p_out`` (posterior P), ``ppred_out`` (prior P) and ``f_out``
         (the F that led to sample k; identity at k = 0), each (N, n_x, n_x).
     """
+    dummy = np.zeros(1)
+    idummy = np.zeros(1, dtype=np.int64)
     return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
-                     x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out)
+                     x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
+                     False, dummy, dummy, idummy, idummy)
+
+
+@njit(cache=True, error_model="numpy")
+def _finite(v):
+    return v == v and -BIG < v < BIG
+
+
+@njit(cache=True, error_model="numpy")
+def check_inputs(current_a, voltage_v, temp_c, prm, cur_out, volt_out, temp_out, status_out):
+    """The input checks of one filter step, over a recording (the C code's ``sfx_step`` checks).
+
+    A current that is not finite or above ``prm[P_IMAX]`` in magnitude is replaced by the last
+    valid one (0 before any) and flagged ``ST_REJ_CURRENT``; a voltage that is not finite or
+    outside ``[prm[P_VLO], prm[P_VHI]]`` becomes missing (predict only) and is flagged
+    ``ST_REJ_VOLTAGE`` (a missing voltage too); a temperature outside :data:`T_LIMITS_C` is
+    flagged ``ST_REJ_TEMP`` and, like a missing one (NaN, not flagged), replaced by 25 degC.
+    Writes the cleaned arrays and the status bits (N,); returns nothing.
+    """
+    n = current_a.size
+    i_last = 0.0
+    for k in range(n):
+        st = 0
+        ik = current_a[k]
+        if not (_finite(ik) and abs(ik) <= prm[P_IMAX]):
+            st |= ST_REJ_CURRENT
+            ik = i_last
+        i_last = ik
+        cur_out[k] = ik
+        vk = voltage_v[k]
+        if not (_finite(vk) and prm[P_VLO] <= vk <= prm[P_VHI]):
+            st |= ST_REJ_VOLTAGE
+            vk = np.nan
+        volt_out[k] = vk
+        tk = temp_c[k]
+        if not (_finite(tk) and T_LIMITS_C[0] <= tk <= T_LIMITS_C[1]):
+            if tk == tk:
+                st |= ST_REJ_TEMP
+            tk = DEFAULT_TEMP_C
+        temp_out[k] = tk
+        status_out[k] = st
+
+
+@njit(cache=True, error_model="numpy")
+def ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
+                      base_soc, base_sig, x_out, sig_out, vpred_out, innov_out, s_out, status_out, healthy_out):
+    """The EKF with the health monitor of the exported C code (inputs already through :func:`check_inputs`).
+
+    On top of :func:`ekf_run`: after every step the covariance diagonal is floored at
+    :data:`P_FLOOR`; a state or covariance entry that is not finite, an RC voltage above
+    ``prm[P_VRCMAX]``, a bias above ``prm[P_IMAX]`` or a hysteresis state above :data:`H_MAX`
+    re-initialises the filter from the baseline (``base_soc[k]``, sigma ``max(base_sig[k],
+    p0_soc)``, the other states as at the start; ``ST_RESET``, unhealthy); a running mean of the
+    NIS (:data:`NIS_ALPHA`, one sample capped at :data:`NIS_CAP`) above :data:`NIS_HIGH` marks the
+    filter unhealthy until it falls below :data:`NIS_LOW`.  ``healthy_out[k]`` = 0 means the
+    output at ``k`` is the baseline (``ST_FALLBACK``).  ``status_out`` carries the input-check
+    bits on entry; ``ST_GATED``, ``ST_RESET`` and ``ST_FALLBACK`` are added.  Returns the number of
+    gated samples.
+    """
+    dummy = np.zeros((1, x0.size, x0.size))
+    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
+                     x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, False, dummy, dummy, dummy,
+                     True, base_soc, base_sig, status_out, healthy_out)
 
 
 @njit(cache=True, error_model="numpy")
 def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
-              x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
+              x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
+              mon, base_soc, base_sig, status_out, healthy_out):
     """The EKF loop over rows ``lo..hi-1`` of the (possibly concatenated) arrays; see :func:`ekf_run`."""
     nx = x0.size
     x = x0.copy()
@@ -465,6 +557,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     gate = prm[P_GATE]
     gate2 = gate * gate
     grel = prm[P_GREL]
+    nis_avg = 1.0   # health monitor (mon): running mean NIS and the healthy flag
+    healthy = True
     run_on = False  # inside a run of consecutive gated samples
     run_s = 0.0     # time since that run began, s
     smin = prm[P_SMIN]
@@ -562,11 +656,14 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         vpred_out[k] = y
         s_out[k] = sv
         vk = voltage_v[k]
+        innov = np.nan
+        gk = False
         if vk == vk:
             innov = vk - y
             innov_out[k] = innov
             if gate > 0.0 and innov * innov > gate2 * sv and not (run_on and grel > 0.0 and run_s >= grel):
                 gated += 1
+                gk = True
                 if not run_on:
                     run_on = True
                     run_s = 0.0
@@ -595,6 +692,53 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 for i in range(1, nx):
                     x[i] -= p[i, 0] / p[0, 0] * ex
             x[0] = lim
+        if mon:
+            st = ST_GATED if gk else 0
+            ok = _finite(y) and _finite(sv) and sv > 0.0
+            for j in range(n_rc):
+                if not (abs(x[1 + j]) <= prm[P_VRCMAX]):
+                    ok = False
+            if i_b >= 0 and not (abs(x[i_b]) <= prm[P_IMAX]):
+                ok = False
+            if i_h >= 0 and not (abs(x[i_h]) <= H_MAX):
+                ok = False
+            for i in range(nx):
+                if not _finite(x[i]):
+                    ok = False
+                for j in range(nx):
+                    if not _finite(p[i, j]):
+                        ok = False
+                fl = 0.0 if (i == i_h and not est_h) else P_FLOOR
+                if p[i, i] < fl:
+                    p[i, i] = fl
+            if not ok:
+                sg = base_sig[k]
+                if not (sg >= prm[P_P0SOC]):
+                    sg = prm[P_P0SOC]
+                for i in range(nx):
+                    x[i] = 0.0
+                    for j in range(nx):
+                        p[i, j] = p0[i, j] if i == j else 0.0
+                x[0] = base_soc[k]
+                p[0, 0] = sg * sg
+                nis_avg = NIS_HIGH
+                healthy = False
+                st |= ST_RESET
+                vpred_out[k] = np.nan
+                innov_out[k] = np.nan
+            elif vk == vk:
+                nis = innov * innov / sv
+                if nis > NIS_CAP:
+                    nis = NIS_CAP
+                nis_avg += NIS_ALPHA * (nis - nis_avg)
+                if healthy and nis_avg > NIS_HIGH:
+                    healthy = False
+                elif not healthy and nis_avg < NIS_LOW:
+                    healthy = True
+            if not healthy:
+                st |= ST_FALLBACK
+            status_out[k] |= st
+            healthy_out[k] = 1 if healthy else 0
         for i in range(nx):
             x_out[k, i] = x[i]
         sig_out[k] = math.sqrt(p[0, 0]) if p[0, 0] > 0.0 else 0.0
@@ -616,6 +760,8 @@ def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b,
     nrec = offsets.size - 1
     nx = x0s.shape[1]
     dummy = np.zeros((1, nx, nx))
+    dummy1 = np.zeros(1)
+    idummy = np.zeros(1, dtype=np.int64)
     for r in prange(nrec):
         a = offsets[r]
         b = offsets[r + 1]
@@ -623,7 +769,7 @@ def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b,
         pr[P_CAP] = prm[P_CAP] * cap_scale[r]
         gated_out[r] = _ekf_core(a, b, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr,
                                  x0s[r], p0s[r], x_out, sig_out, vpred_out, innov_out, s_out, False, dummy,
-                                 dummy, dummy)
+                                 dummy, dummy, False, dummy1, dummy1, idummy, idummy)
 
 
 # ----------------------------------------------------------------------------- baseline

@@ -20,10 +20,17 @@ def estimate(model, rec, method: str = "ekf", settings: FilterSettings | None = 
     method : str
     settings : FilterSettings, optional  (default :func:`estimator.settings.default_settings`)
     soc0 : float, optional  initial SOC (fraction); else from the OCV at the first sample
+
+    Returns
+    -------
+    Trace
+        For ``"ekf"`` a monitored run (:func:`estimator.filters.ekf.run_ekf` with ``monitor=True``):
+        the same input checks, health monitor and fallback to the baseline as the exported C code,
+        with the per-sample status bits in ``Trace.status`` (trace column ``status``).
     """
-    if method == "ekf":
+    if method == "ekf":  # the exported C code's filter step: input checks, health monitor, fallback
         from socfuse.estimator.filters.ekf import run_ekf
-        return run_ekf(model, rec, settings, soc0)
+        return run_ekf(model, rec, settings, soc0, monitor=True)
     if method == "coulomb":
         from socfuse.estimator.filters.coulomb import run_coulomb
         return run_coulomb(model, rec, settings, soc0)

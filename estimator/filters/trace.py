@@ -32,6 +32,8 @@ class Trace:
     name : str  recording name
     state_names : tuple of str
     covariance : (N, n_x, n_x) or None  posterior covariance when stored
+    status : (N,) int or None  status bits of a monitored run (``estimator.filters.kernels.ST_*``:
+        rejected inputs, gated, fallback to the baseline, reset, baseline reseed)
     """
 
     time_s: np.ndarray
@@ -52,6 +54,7 @@ class Trace:
     state_names: tuple = ("soc",)
     covariance: np.ndarray | None = None
     metadata: dict = field(default_factory=dict)
+    status: np.ndarray | None = None
 
     @property
     def n(self) -> int:
@@ -75,6 +78,8 @@ class Trace:
         if self.soc_ref is not None:
             cols["soc_ref"] = self.soc_ref
             cols["soc_error"] = self.soc_error
+        if self.status is not None:
+            cols["status"] = self.status
         if states:
             for j, nm in enumerate(self.state_names[1:], start=1):
                 cols[nm] = self.states[:, j]
@@ -87,7 +92,7 @@ def state_names(n_rc: int, bias: bool, hyst: bool, model_error: bool = False) ->
 
 
 def make_trace(model, rec, method, soc, soc_sigma, vpred, innov, s, states, n_gated=0, reseeds=(),
-               names=("soc",), covariance=None, metadata=None) -> Trace:
+               names=("soc",), covariance=None, metadata=None, status=None) -> Trace:
     """Assemble a :class:`Trace`, adding energy SOC and the reference error."""
     soc = np.asarray(soc, dtype=float)
     soc_e = energy = None
@@ -106,4 +111,4 @@ def make_trace(model, rec, method, soc, soc_sigma, vpred, innov, s, states, n_ga
     return Trace(np.asarray(rec.time_s), soc, np.asarray(soc_sigma, dtype=float), np.asarray(vpred, dtype=float),
                  np.asarray(innov, dtype=float), np.asarray(s, dtype=float), np.asarray(states, dtype=float),
                  soc_e, energy, ref, err, int(n_gated), tuple(reseeds), method, rec.name, tuple(names),
-                 covariance, dict(metadata or {}))
+                 covariance, dict(metadata or {}), None if status is None else np.asarray(status))

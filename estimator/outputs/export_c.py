@@ -57,9 +57,9 @@ SOURCE_FILES = ("socfuse_ekf.h", "socfuse_ekf.c", "harness.c")
 DEMO_DAY = "c48_day_lunch.csv"
 
 # health monitor and plausibility limits (common practice, no source; see README of the export)
-from socfuse.estimator.filters.kernels import NIS_ALPHA, NIS_CAP, NIS_HIGH, NIS_LOW  # noqa: E402  (defined once)
-P_FLOOR = 1e-12
-T_LIMITS_C = (-60.0, 150.0)
+from socfuse.estimator.filters import kernels as _K  # noqa: E402  (the filter step's definitions, once)
+from socfuse.estimator.filters.kernels import (NIS_ALPHA, NIS_CAP, NIS_HIGH, NIS_LOW, P_FLOOR,  # noqa: E402
+                                               T_LIMITS_C)
 
 
 class ExportError(ValueError):
@@ -182,7 +182,6 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
     tab = su.tables
     packed = tab.packed
     n_s = int(packed.shape[2])
-    v_span = float(model.v_max_v - model.v_min_v)
     subs = dict(
         generator=GENERATOR, model_comment=safe_text(model.name or "unnamed cell model"),
         safety_note=_safety_note(),
@@ -202,11 +201,12 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         gate_release_s=c_float(s.gate_release_s), soc_min=c_float(s.soc_min),
         soc_max=c_float(s.soc_max), rest_current_a=c_float(s.rest_current_a), rest_min_s=c_float(s.rest_min_s),
         reseed=int(bool(s.reseed)),
-        i_abs_max=c_float(100.0 * model.capacity_ah),
-        v_lo=c_float(max(0.0, model.v_min_v - 0.5 * v_span)), v_hi=c_float(model.v_max_v + 0.5 * v_span),
+        i_abs_max=c_float(su.prm[_K.P_IMAX]), v_lo=c_float(su.prm[_K.P_VLO]), v_hi=c_float(su.prm[_K.P_VHI]),
         t_lo=c_float(T_LIMITS_C[0]), t_hi=c_float(T_LIMITS_C[1]),
         nis_alpha=c_float(NIS_ALPHA), nis_cap=c_float(NIS_CAP), nis_high=c_float(NIS_HIGH),
-        nis_low=c_float(NIS_LOW), p_floor=c_float(P_FLOOR), vrc_max=c_float(v_span),
+        nis_low=c_float(NIS_LOW), p_floor=c_float(P_FLOOR), vrc_max=c_float(su.prm[_K.P_VRCMAX]),
+        h_max=c_float(_K.H_MAX), big=c_float(_K.BIG),
+        **{f"st_{k}": f"0x{v:02x}" for k, v in _K.STATUS_BITS.items()},
         tables=_table_text(packed),
     )
     return {name: _template(name + ".in").substitute(subs) for name in SOURCE_FILES}
@@ -291,7 +291,8 @@ def _rounded(rec):
 def golden_frame(model, settings: FilterSettings | None, rec):
     """Golden vectors for ``rec``: inputs plus the float64 reference outputs (a DataFrame).
 
-    The EKF reference is :func:`estimator.ekf.run_ekf` and the baseline reference
+    The EKF reference is :func:`estimator.ekf.run_ekf` with ``monitor=True`` (the filter's own SOC
+    and sigma, which the harness compares with ``ekf_soc``) and the baseline reference
     :func:`estimator.coulomb.run_coulomb` (with ``early_reseed_s = 0``, the only rest rule a
     stream can follow in bounded memory), both started from the first voltage sample, on the
     inputs rounded exactly as written to the CSV.
@@ -303,14 +304,15 @@ def golden_frame(model, settings: FilterSettings | None, rec):
 
     s = default_settings(model) if settings is None else settings
     r = _rounded(rec)
-    tr = run_ekf(model, r, s)
-    base = run_coulomb(model, r, s.with_(early_reseed_s=0.0))
+    s = s.with_(early_reseed_s=0.0)
+    tr = run_ekf(model, r, s, monitor=True)  # the C code's step: input checks and health monitor
+    base = run_coulomb(model, r, s)
     flag = np.zeros(r.n, dtype=int)
     for t_rs, _, _ in base.reseeds:
         flag[np.searchsorted(r.time_s, t_rs)] = 1
     temp = np.full(r.n, np.nan) if r.temperature_c is None else r.temperature_c
     return pd.DataFrame({"time_s": r.time_s, "current_a": r.current_a, "voltage_v": r.voltage_v,
-                         "temperature_c": temp, "soc": tr.soc, "soc_sigma": tr.soc_sigma,
+                         "temperature_c": temp, "soc": tr.states[:, 0], "soc_sigma": tr.metadata["filter_soc_sigma"],
                          "voltage_pred_v": tr.voltage_pred_v, "base_soc": base.soc, "base_reseed": flag})
 
 
