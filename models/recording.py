@@ -140,8 +140,22 @@ def charge_throughput_ah(time_s, current_a) -> np.ndarray:
     return out
 
 
-def find_rests(time_s, current_a, current_threshold_a: float = 0.05, min_duration_s: float = 600.0):
-    """Find rests: runs where ``|current| <= current_threshold_a`` lasting ``min_duration_s``.
+def find_rests(time_s, current_a, current_threshold_a: float | None = None, min_duration_s: float = 600.0,
+               voltage_v=None):
+    """Find rests lasting at least ``min_duration_s``.
+
+    Parameters
+    ----------
+    time_s, current_a : array_like (N,)
+        Sample times (s) and measured current (A, positive on discharge).
+    current_threshold_a : float, optional
+        Fixed threshold: a rest is ``|current| <= current_threshold_a``.  Default (None): the
+        robust segmentation of :func:`models.segment.segment_recording` (the sensor's zero offset
+        estimated and subtracted, two noise-based thresholds, so sensor noise never splits a rest).
+    min_duration_s : float
+        Shortest rest reported, s.
+    voltage_v : array_like (N,), optional
+        Terminal voltage; lets the segmentation confirm rests by their relaxation.
 
     Returns
     -------
@@ -149,10 +163,17 @@ def find_rests(time_s, current_a, current_threshold_a: float = 0.05, min_duratio
         Inclusive sample indices of each rest (the end index is the last rested sample).
     """
     t = np.asarray(time_s, dtype=float)
-    quiet = np.abs(np.asarray(current_a, dtype=float)) <= current_threshold_a
     out = []
     if t.size == 0:
         return out
+    if current_threshold_a is None:
+        if t.size < 2:
+            return out
+        from socfuse.models.segment import segment_recording
+
+        seg = segment_recording(t, current_a, voltage_v)
+        return [(int(r.start), int(r.stop - 1)) for r in seg.rests(min_duration_s)]
+    quiet = np.abs(np.asarray(current_a, dtype=float)) <= current_threshold_a
     edges = np.diff(np.concatenate([[0], quiet.astype(np.int8), [0]]))
     starts = np.flatnonzero(edges == 1)
     ends = np.flatnonzero(edges == -1) - 1

@@ -342,7 +342,7 @@ def segment_recording(time_s, current_a, voltage_v=None, offset_a: float | None 
     gap_lim = max(60.0, 20.0 * med_dt) if gap_s is None else float(gap_s)
     gap = dt > gap_lim
     notes = []
-    noise = noise_floor(i_raw)
+    noise = noise_floor(i_raw, quantile=0.5)
     if offset_a is None:
         lvl, n_rest, rest_time, _, note = _rest_level(t, i_raw, v, noise, gap, 16)
         if note:
@@ -406,10 +406,11 @@ def segment_recording(time_s, current_a, voltage_v=None, offset_a: float | None 
     brk[1:] |= jump
     starts = np.flatnonzero(brk)
     stops = np.concatenate([starts[1:], [n]])
-    # a piece of a step left entirely inside the hysteresis band (the tail after a jump) is rest
+    # a piece of a step left entirely inside the hysteresis band (the tail after a jump) is rest, and
+    # so is a lone sample that is not clearly above the noise (2 x on: a 4.8-sigma spike is 1 in 10^6)
     changed = False
     for a, b in zip(starts, stops):
-        if state[a] != 0 and np.max(np.abs(i[a:b])) < on:
+        if state[a] != 0 and (np.max(np.abs(i[a:b])) < on or (b - a == 1 and abs(i[a]) < 2.0 * on)):
             state[a:b] = 0
             changed = True
     if changed:

@@ -55,6 +55,13 @@ def register(sub) -> None:
     p.add_argument("--model-name", dest="model_name", default="", help="model name stored in the file")
     p.add_argument("-o", "--output", required=True, metavar="MODEL_JSON", help="cell-model file to write")
     p.add_argument("--force", action="store_true", help="overwrite existing output files")
+    p.add_argument("--accept-implausible", action="store_true",
+                   help="write the model even when it fails the plausibility checks (R0 not positive, time "
+                        "constants outside the tests' time scales, capacity far from the charge moved, OCV not "
+                        "spanning the voltage window, unit errors); the problems are kept in its provenance")
+    p.add_argument("--current-offset-a", type=float, default=None, metavar="A",
+                   help="known current-sensor zero offset in A (what the sensor reads at zero current); "
+                        "default: estimated from the rests of the lab tests and subtracted")
     add_mapping_options(p)
     p.set_defaults(func=run)
 
@@ -92,7 +99,8 @@ def run(args) -> int:
                    validate=vals, n_ocv_breakpoints=args.ocv_breakpoints,
                    pulse_temperatures_c=args.pulse_temperature_c, soc_mode=args.pulse_soc,
                    name=args.model_name, refine_soc0=args.soc0, validate_soc0=args.soc0,
-                   refine_options={"stride": args.refine_stride})
+                   refine_options={"stride": args.refine_stride}, allow_implausible=args.accept_implausible,
+                   pulse_options=None if args.current_offset_a is None else {"offset_a": args.current_offset_a})
     save_model(res.model, args.output)
     print(f"socfuse identify: wrote {args.output}")
     print(res.summary())

@@ -95,6 +95,35 @@ class IdentifyResult:
         for j, p in enumerate(m.rc):
             txt += f", R{j + 1} {p.r_ohm.at(0.5, t_ref) * 1000:.2f} mOhm, tau{j + 1} {p.tau_s.at(0.5, t_ref):.1f} s"
         lines.append(txt)
+        prov = m.provenance or {}
+        lines.append("tables (inputs and fit residual):")
+        r0p = prov.get("r0_ohm") or {}
+        if r0p:
+            res_txt = "n/a" if r0p.get("residual_ohm") is None else f"{r0p['residual_ohm'] * 1000:.2f} mOhm RMS"
+            lines.append(f"  r0_ohm: {r0p.get('pulses', 0)} pulses; single pulses about the table {res_txt}")
+        rcp = prov.get("rc_pairs") or {}
+        if rcp:
+            res_txt = "n/a" if rcp.get("residual_v") is None else f"{rcp['residual_v'] * 1000:.2f} mV"
+            names = ", ".join(f"r{j + 1}_ohm, tau{j + 1}_s" for j in range(m.n_rc))
+            lines.append(f"  {names}: {rcp.get('pulses_fitted', 0)} relaxation fits; median fit RMS {res_txt}")
+        ocvp = prov.get("ocv") or {}
+        if ocvp:
+            rr = ocvp.get("residual_v")
+            rp = ocvp.get("rest_point_rms_v")
+            lines.append(f"  ocv ({ocvp.get('test')}): breakpoint fit {'n/a' if rr is None else f'{rr * 1000:.2f} mV'}"
+                         f", rest points {'n/a' if rp is None else f'{rp * 1000:.1f} mV RMS'}")
+        off = prov.get("current_offset") or {}
+        if off:
+            used = off.get("used_a") or []
+            if off.get("given"):
+                lines.append(f"current-sensor offset {used[0] * 1000:.2f} mA (given), subtracted")
+            elif off.get("pooled_a") is not None:
+                lines.append(f"current-sensor offset {off['pooled_a'] * 1000:.2f} mA +- "
+                             f"{(off.get('pooled_sigma_a') or 0.0) * 1000:.2f} mA from the rests of "
+                             f"{len(off.get('pooled_files') or [])} test(s), subtracted before counting charge")
+        hp = prov.get("hysteresis") or {}
+        if hp:
+            lines.append(f"hysteresis: {hp.get('reason', '')}")
         if self.refinement is not None:
             r = self.refinement
             lines.append(f"refinement on {r.source}: voltage RMS {r.rms_before_v * 1000:.2f} -> "
