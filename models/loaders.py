@@ -128,6 +128,8 @@ class ColumnMap:
         An interval longer than this many median intervals is reported as a gap.
     soc_ref_unit : {"fraction", "percent"}
         Unit of the ``soc_ref`` column (percent is divided by 100).
+    temperature_unit : {"degC", "K"}
+        Unit of the temperature column (kelvin: T - 273.15).
     series_cells, parallel_cells : int
         Cells in series and in parallel of the pack the file logs (default 1 and 1: a cell);
         the voltage is divided by ``series_cells`` and the current by ``parallel_cells``.
@@ -154,6 +156,7 @@ class ColumnMap:
     mat_struct: str | None = None
     gap_factor: float = 5.0
     soc_ref_unit: str = "fraction"
+    temperature_unit: str = "degC"
     series_cells: int = 1
     parallel_cells: int = 1
 
@@ -187,6 +190,8 @@ class ColumnMap:
             raise RecordingError("time_format applies to time_unit 'iso' only")
         if not (self.gap_factor > 1.0):
             raise RecordingError(f"gap_factor must be > 1, not {self.gap_factor!r}")
+        if str(self.temperature_unit).lower() not in ("degc", "k"):
+            raise RecordingError(f"temperature_unit {self.temperature_unit!r} is not one of degC, K")
         if str(self.soc_ref_unit).lower() not in ("fraction", "percent"):
             raise RecordingError(f"soc_ref_unit {self.soc_ref_unit!r} is not one of fraction, percent")
         for attr in ("series_cells", "parallel_cells"):
@@ -700,6 +705,8 @@ def recording_from_table(table: RawTable, cmap: ColumnMap) -> Recording:
                  * _VOLTAGE_UNITS[cmap.voltage_unit.lower()] / cmap.series_cells)
     temp_name = cmap.temperature or ("temperature_c" if "temperature_c" in table.columns else None)
     temperature_c = None if temp_name is None else _numeric(table, temp_name, cmap.decimal)
+    if temperature_c is not None and cmap.temperature_unit.lower() == "k":
+        temperature_c = temperature_c - 273.15
     soc_name = cmap.soc_ref or ("soc_ref" if "soc_ref" in table.columns and cmap.ref_capacity_ah is None
                                 else None)
     soc_ref = None if soc_name is None else _numeric(table, soc_name, cmap.decimal)

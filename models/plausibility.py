@@ -39,6 +39,9 @@ Checks (each finding names the option that fixes it):
 - spikes: isolated samples far from their neighbours (a 5-sample running median) in current or
   voltage are outliers, not a sign or unit error; they are refused (they would be integrated as
   charge) unless ``--trust-input``.
+- ``temperature_c``: a median of 200..400 with every value above 150 is kelvin read as degC
+  (``--temperature-unit K``); other values outside -60..150 degC are not a cell temperature
+  (lithium-ion cells operate well inside it; common practice, no source).
 - missing voltage samples and a dropped truncated last line are reported as warnings.
 
 Every ``"error"`` finding can be overridden with ``--trust-input`` (``trust=True``).
@@ -78,8 +81,8 @@ class Finding:
     code : str
         Short identifier (``"voltage-mv"``, ``"voltage-pack"``, ``"current-ma"``,
         ``"charge-throughput"``, ``"sign-inverted"``, ``"soc-ref-percent"``, ``"soc-ref-range"``,
-        ``"spikes"``, ``"voltage-range"``, ``"current-range"``, ``"voltage-missing"``,
-        ``"truncated-row"``).
+        ``"spikes"``, ``"voltage-range"``, ``"current-range"``, ``"current-scale"``,
+        ``"temperature-kelvin"``, ``"temperature-range"``, ``"voltage-missing"``, ``"truncated-row"``).
     column : str
         Canonical column concerned (``current_a``, ``voltage_v``, ``soc_ref``).
     severity : {"error", "warning"}
@@ -382,6 +385,18 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
                                         f"values {smin:.4g}..{smax:.4g} outside 0..1",
                                         "check --soc-ref-col (soc_ref is a fraction 0..1)"))
 
+    if rec.temperature_c is not None and rec.temperature_c.size:
+        tc = rec.temperature_c[np.isfinite(rec.temperature_c)]
+        if tc.size:
+            t50, tmin, tmax = float(np.median(tc)), float(tc.min()), float(tc.max())
+            if 200.0 <= t50 <= 400.0 and tmin > 150.0:
+                findings.append(Finding("temperature-kelvin", "temperature_c", "error",
+                                        f"looks like kelvin: median {t50:.5g} (range {tmin:.5g}..{tmax:.5g}) "
+                                        "read as degC", "load it with --temperature-unit K"))
+            elif tmin < -60.0 or tmax > 150.0:
+                findings.append(Finding("temperature-range", "temperature_c", "error",
+                                        f"values {tmin:.5g}..{tmax:.5g} degC are not a cell temperature "
+                                        "(-60..150 degC)", "check --temperature-col and --temperature-unit"))
     n_missing = int(np.count_nonzero(~fin_v))
     if n_missing:
         findings.append(Finding("voltage-missing", "voltage_v", "warning",

@@ -93,6 +93,9 @@ CASES = [
     # 97 % is 0.97 (common practice, no source); a 4s2p pack: cell voltage = pack / 4, current = pack / 2
     ("soc-ref-percent", _text("a.csv", "time_s,current_a,voltage_v,soc_ref\n0,1,3.7,99\n1,1,3.7,98\n"), 
      dict(soc_ref_unit="percent"), dict(soc_ref=[0.99, 0.98])),
+    # 0 degC = 273.15 K (SI definition of the Celsius scale)
+    ("temperature-kelvin", _text("a.csv", "time_s,current_a,voltage_v,temperature_c\n0,1,3.7,298.15\n1,1,3.7,273.15\n"),
+     dict(temperature_unit="K"), dict(temperature_c=[25.0, 0.0])),
     ("pack-4s2p", _text("a.csv", "time_s,current_a,voltage_v\n0,2,14.8\n1,3,14.6\n2,-1,15.2\n"),
      dict(series_cells=4, parallel_cells=2), dict(current_a=[1.0, 1.5, -0.5], voltage_v=[3.7, 3.65, 3.8])),
     ("nan-text", _text("a.csv", "time_s,current_a,voltage_v\n0,1,3.7\n1,NaN,3.6\n"), {},

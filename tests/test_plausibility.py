@@ -166,3 +166,14 @@ def test_current_scale_without_a_model_from_the_apparent_resistance():
     assert f.code == "current-scale" and "far too large" in f.seen and "--current-unit mA" in f.fix
     (f,) = [f for f in check_against_model(rec.with_(current_a=i / 1000), None) if f.severity == "error"]
     assert f.code == "current-scale" and "far too small" in f.seen
+
+
+def test_temperature_in_kelvin_or_out_of_range(day):
+    # 25 degC = 298.15 K (SI definition of the Celsius scale)
+    m, rec = day
+    (f,) = [f for f in check_against_model(rec.with_(temperature_c=rec.temperature_c + 273.15), m)
+            if f.severity == "error"]
+    assert f.code == "temperature-kelvin" and "--temperature-unit K" in f.fix
+    hot = rec.temperature_c.copy()
+    hot[100] = 900.0
+    assert _errors(rec.with_(temperature_c=hot), m) == ["temperature-range"]

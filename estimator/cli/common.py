@@ -82,6 +82,8 @@ def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
                    help=".mat variable holding the struct of columns (default: the only struct)")
     g.add_argument("--soc-ref-unit", dest="map_soc_ref_unit", choices=["fraction", "percent"], default=None,
                    help="unit of the soc_ref column (default fraction 0..1)")
+    g.add_argument("--temperature-unit", dest="map_temperature_unit", choices=["degC", "K"], default=None,
+                   help="unit of the temperature column (default degC)")
     g.add_argument("--series-cells", dest="map_series_cells", type=int, default=None, metavar="N",
                    help="the file logs a pack of N cells in series: the voltage is divided by N (balanced cells)")
     g.add_argument("--parallel-cells", dest="map_parallel_cells", type=int, default=None, metavar="M",
