@@ -1,0 +1,89 @@
+"""Plausibility checks of identified models (models/identify/plausible.py) and their CLI refusal.
+
+Bounds are facts of the trade for lithium-ion cells (common practice, no source; from memory): a
+C/20 test lasts about 20 h, capacities lie between coin cells (mAh) and storage prismatics (hundreds
+of Ah), R0 is positive.  Data: the bundled demo tests of our invented cell C48.
+"""
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from socfuse.estimator.cli.main import main
+from socfuse.models import ParamTable, RcPair
+from socfuse.models.identify.pipeline import identify
+from socfuse.models.identify.plausible import check_model
+from socfuse.models.loaders import load_recording
+
+
+@pytest.fixture(scope="module")
+def demo_result(repo):
+    d = repo / "datasets"
+    return identify(load_recording(d / "c48_c20_25degC.csv"), [load_recording(d / "c48_pulse_25degC.csv")])
+
+
+def test_demo_model_is_plausible(demo_result):
+    assert check_model(demo_result.model, demo_result.ocv_test, demo_result.pulse_tests) == []
+    assert demo_result.model.provenance["plausibility"]["problems"] == []
+
+
+def test_bad_tables_are_named_with_table_and_soc(demo_result):
+    m = demo_result.model
+    # a negative R0 cannot even be built (the table refuses it, naming the breakpoint)
+    vals = np.array(m.r0_ohm.values, dtype=float)
+    vals.flat[3] = -0.001
+    with pytest.raises(ValueError, match="r0_ohm: must be positive.*SOC breakpoint 3"):
+        ParamTable(m.r0_ohm.soc, vals.reshape(np.shape(m.r0_ohm.values)), m.r0_ohm.temperature_c, name="r0_ohm")
+    # a time constant far beyond the pulse test's relaxation windows (a time-unit slip in a fit)
+    pair = m.rc[0]
+    tv = np.array(pair.tau_s.values, dtype=float)
+    tv.flat[2] = 1e6
+    bad = m.with_(rc=(RcPair(pair.r_ohm, ParamTable(pair.tau_s.soc, tv.reshape(np.shape(pair.tau_s.values)),
+                                                   pair.tau_s.temperature_c, name="tau1_s")),) + tuple(m.rc[1:]))
+    probs = check_model(bad, demo_result.ocv_test, demo_result.pulse_tests)
+    soc = 100 * float(np.asarray(pair.tau_s.soc)[2])
+    assert any(p.startswith(f"table tau1_s at SOC {soc:.0f} %") and "time scales" in p for p in probs), probs
+
+
+def test_time_unit_error_is_refused_with_exit_2_and_accepted_on_request(repo, tmp_path, capsys):
+    # the low-rate test's time column in minutes read as seconds x 60: a "C/20" test of 50 days
+    d = repo / "datasets"
+    c20 = pd.read_csv(d / "c48_c20_25degC.csv")
+    c20["time_s"] *= 60.0
+    c20.to_csv(tmp_path / "c20_slow.csv", index=False)
+    out = tmp_path / "m.json"
+    args = ["identify", "--ocv-test", str(tmp_path / "c20_slow.csv"), "--pulse-test", str(d / "c48_pulse_25degC.csv"),
+            "-o", str(out)]
+    assert main(args) == 2
+    err = capsys.readouterr().err
+    assert "refused as implausible" in err and "low-rate test at" in err and "Traceback" not in err
+    assert len(err.strip().splitlines()) == 1
+    assert not out.exists()
+    assert main(args + ["--accept-implausible"]) == 0
+    prov = json.loads(out.read_text())["provenance"]["plausibility"]
+    assert prov["accepted_by_user"] is True and any("low-rate test at" in p for p in prov["problems"])
+
+
+def test_identify_prints_tables_offset_and_hysteresis(repo, tmp_path, capsys):
+    d = repo / "datasets"
+    assert main(["identify", "--ocv-test", str(d / "c48_c20_25degC.csv"), "--pulse-test",
+                 str(d / "c48_pulse_25degC.csv"), "-o", str(tmp_path / "m.json")]) == 0
+    text = capsys.readouterr().out
+    assert "r0_ohm: 25 pulses" in text
+    assert "relaxation fits; median fit RMS" in text
+    assert "current-sensor offset" in text and "hysteresis:" in text
+    prov = json.loads((tmp_path / "m.json").read_text())["provenance"]
+    assert prov["current_offset"]["used_a"][0] == pytest.approx(prov["current_offset"]["pooled_a"])
+
+
+def test_demo_hysteresis_matches_the_truth(demo_result):
+    # demo truth (datasets/manifest.json, invented): Plett hysteresis M = 8 mV, gamma = 30
+    h = demo_result.model.hysteresis
+    assert h is not None
+    assert h.max_v == pytest.approx(0.008, abs=0.001)
+    assert h.gamma == pytest.approx(30.0, rel=0.5)
+    # its centre line is the branch average
+    assert demo_result.ocv_source == "average"
