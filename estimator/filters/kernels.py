@@ -78,7 +78,7 @@ from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "N_PRM", "check_inputs", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "N_PRM", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor",
@@ -358,6 +358,33 @@ def _qdiag(n_rc, i_b, i_h, est_h, prm, q):
         q[i_e] = 0.0  # its noise sigma_m^2 (1 - a_m^2) is not a density: added per interval
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def gate_rejects(innov, sv, gate, run_on, run_s, grel):
+    """The innovation gate with its release: True when the sample is refused.
+
+    Refused when ``innov^2 > gate^2 S`` (``gate`` > 0), unless a run of consecutive refused
+    samples has lasted ``grel`` s (``grel`` > 0): then this one is used and the run ends.
+    """
+    return gate > 0.0 and innov * innov > gate * gate * sv and not (run_on and grel > 0.0 and run_s >= grel)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def project_soc(x, p, smin, smax):
+    """SOC limit by estimate projection (Simon, IET Control Theory Appl. 4, 2010; from memory).
+
+    When ``x[0]`` is outside ``[smin, smax]`` the correlated states move with the clipped SOC,
+    ``x_i -= P_i0 / P_00 * excess``, and ``P`` is left as it is.  A bare clip would let the RC (and
+    bias) states absorb every later update and run away.
+    """
+    if x[0] < smin or x[0] > smax:
+        lim = smin if x[0] < smin else smax
+        ex = x[0] - lim
+        if p[0, 0] > 0.0:
+            for i in range(1, x.size):
+                x[i] -= p[i, 0] / p[0, 0] * ex
+        x[0] = lim
+
+
 @njit(cache=True, error_model="numpy")
 def measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c):
     """Python-callable measurement model: ``(y_pred_v, H)`` at state ``x`` (n_x,)."""
@@ -555,7 +582,6 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     vn2 = prm[P_VN] * prm[P_VN]
     re2 = prm[P_RERR] * prm[P_RERR]
     gate = prm[P_GATE]
-    gate2 = gate * gate
     grel = prm[P_GREL]
     nis_avg = 1.0   # health monitor (mon): running mean NIS and the healthy flag
     healthy = True
@@ -661,7 +687,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         if vk == vk:
             innov = vk - y
             innov_out[k] = innov
-            if gate > 0.0 and innov * innov > gate2 * sv and not (run_on and grel > 0.0 and run_s >= grel):
+            if gate_rejects(innov, sv, gate, run_on, run_s, grel):
                 gated += 1
                 gk = True
                 if not run_on:
@@ -682,16 +708,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                         p[j, i] = v
         else:
             innov_out[k] = np.nan
-        if x[0] < smin or x[0] > smax:
-            # SOC limit by estimate projection (Simon, IET Control Theory Appl. 4, 2010): move the
-            # correlated states with the clipped SOC, x_i -= P_i0 / P_00 * excess, P unchanged.  A bare
-            # clip would let the RC (and bias) states absorb every later update and run away.
-            lim = smin if x[0] < smin else smax
-            ex = x[0] - lim
-            if p[0, 0] > 0.0:
-                for i in range(1, nx):
-                    x[i] -= p[i, 0] / p[0, 0] * ex
-            x[0] = lim
+        project_soc(x, p, smin, smax)
         if mon:
             st = ST_GATED if gk else 0
             ok = _finite(y) and _finite(sv) and sv > 0.0

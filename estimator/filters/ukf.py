@@ -5,8 +5,11 @@ Julier and Uhlmann 1997) runs the process model :func:`estimator.kernels.transit
 the measurement :func:`estimator.kernels.measure` (the sampling rule, per-step ``dt``), so
 it shares the EKF's model code (including the model-error state).  ``Q_k`` is the EKF's
 (:func:`estimator.kernels.linearise`) at the current mean, ``R_k = (sigma_v^2 + (sigma_R
-i_k)^2) max(1, tau_v / dt)`` as in the EKF.  NaN voltage = predict only; the same innovation gate, gate release and SOC
-projection as the EKF; the initial state comes from :func:`estimator.ekf.initial_soc`.  Zero initial
+i_k)^2) max(1, tau_v / dt)`` as in the EKF.  NaN voltage = predict only; the same input checks
+(:func:`estimator.filters.kernels.check_inputs`), innovation gate with release
+(:func:`~estimator.filters.kernels.gate_rejects`) and SOC projection
+(:func:`~estimator.filters.kernels.project_soc`) as the EKF kernel (the same functions; the health
+monitor and fallback are the EKF's only); the initial state comes from :func:`estimator.ekf.initial_soc`.  Zero initial
 variances (``p0_soc = p0_rc_v = 0``, allowed by the schema) are raised to a tiny floor, since
 the sigma points need a positive-definite ``P``.
 """
@@ -15,8 +18,8 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
-from socfuse.estimator.filters.kernels import white_factor
-from socfuse.estimator.filters.ekf import _prior, initial_soc, setup, temperature_array
+from socfuse.estimator.filters.kernels import gate_rejects, project_soc, white_factor
+from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
 
@@ -28,6 +31,7 @@ UKF_ALPHA, UKF_BETA, UKF_KAPPA = 1.0, 2.0, 0.0  # spread, Gaussian prior (beta =
 def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | None = None) -> Trace:
     """Run the unscented filter over one recording; returns a Trace with ``method="ukf"``."""
     su = setup(model, settings)
+    rec, _ = checked_inputs(su, rec)  # the filter step's input checks (implausible samples held / missing)
     s = su.settings
     nx = su.n_x
     z0, sig0 = initial_soc(su, rec, soc0)
@@ -75,8 +79,7 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         sv[k] = smat[0, 0]
         if np.isfinite(v[k]):
             inn[k] = v[k] - zp[0]
-            released = run_on and s.gate_release_s > 0 and run_s >= s.gate_release_s
-            if s.gate_sigma > 0 and abs(inn[k]) > s.gate_sigma * np.sqrt(sv[k]) and not released:
+            if gate_rejects(inn[k], sv[k], s.gate_sigma, run_on, run_s, s.gate_release_s):
                 gated += 1
                 if not run_on:
                     run_on, run_s = True, 0.0
@@ -86,11 +89,7 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
                 ukf.P = 0.5 * (ukf.P + ukf.P.T)
         else:
             inn[k] = np.nan
-        if not (s.soc_min <= ukf.x[0] <= s.soc_max):  # estimate projection, as in the EKF kernel
-            lim = min(max(ukf.x[0], s.soc_min), s.soc_max)
-            if ukf.P[0, 0] > 0:
-                ukf.x[1:] -= ukf.P[1:, 0] / ukf.P[0, 0] * (ukf.x[0] - lim)
-            ukf.x[0] = lim
+        project_soc(ukf.x, ukf.P, s.soc_min, s.soc_max)  # the EKF kernel's estimate projection
         states[k] = ukf.x
         sig[k] = np.sqrt(max(ukf.P[0, 0], 0.0))
     return make_trace(model, rec, "ukf", states[:, 0], sig, vp, inn, sv, states, gated, (), su.names)
