@@ -129,10 +129,8 @@ def _crude_panasonic():
 
 
 REAL = ["drive_cycles/03-20-17_01.43 25degC_US06_Pan18650PF.mat",
-        "drive_cycles/03-18-17_02.17 25degC_Cycle_1_Pan18650PF.mat",
         "cold/10degC/drive_cycles/03-27-17_09.06 10degC_HWFET_Pan18650PF.mat",
         "cold/0degC/drive_cycles/06-02-17_04.58 0degC_US06_Pan18650PF.mat",
-        "hppc/03-11-17_10.10 3390_dis5_10p.mat",
         "cold/0degC/hppc/05-20-17_12.07 3619_dis5_10p.mat",
         "c20_ocv_and_1c_start_of_tests/03-09-17_21.03 3349_Dis1C_Rp.mat"]
 
