@@ -188,45 +188,13 @@ def simulate(model: CellModel, time_s, current_a, temperature_c=None, soc0: floa
     Returns
     -------
     Simulation
+
+    Notes
+    -----
+    The one simulator of socfuse (:func:`models.simulation.simulate_model`, also reached as
+    :func:`models.identify.fastsim.simulate_fast`): the sampling rule of the module docstring,
+    vectorised, with the RC and hysteresis recursions in compiled scalar loops.
     """
-    t = np.asarray(time_s, dtype=float)
-    i = np.asarray(current_a, dtype=float)
-    n = t.size
-    if i.shape != t.shape:
-        raise ValueError(f"time_s has {t.size} samples but current_a has {i.size}")
-    if n == 0:
-        raise ValueError("empty profile")
-    if np.any(np.diff(t) <= 0):
-        raise ValueError("time_s must be strictly increasing")
-    temp = np.broadcast_to(np.asarray(25.0 if temperature_c is None else temperature_c, dtype=float), t.shape)
-    q_as = model.capacity_ah * SECONDS_PER_HOUR
-    n_rc = model.n_rc
-    soc = np.empty(n)
-    v_rc = np.zeros((n, n_rc))
-    h = np.zeros(n)
-    soc[0] = soc0
-    if v_rc0 is not None:
-        v_rc[0] = np.asarray(v_rc0, dtype=float)
-    h[0] = h0
-    dt = np.diff(t)
-    u = interval_current(i)
-    eta_c = model.coulombic_efficiency
-    hy = model.hysteresis
-    for k in range(n - 1):
-        z = soc[k]
-        tk = temp[k]
-        eta = 1.0 if u[k] >= 0 else eta_c
-        soc[k + 1] = z - eta * u[k] * dt[k] / q_as
-        for j, pair in enumerate(model.rc):
-            a, b = discretise_rc(pair.tau_s.at(z, tk), pair.r_ohm.at(z, tk), dt[k])
-            v_rc[k + 1, j] = a * v_rc[k, j] + b * u[k]
-        if hy is not None:
-            e = np.exp(-abs(eta * u[k] * hy.gamma * dt[k] / q_as))
-            h[k + 1] = e * h[k] - (1.0 - e) * np.sign(u[k])
-        else:
-            h[k + 1] = h[k]
-    ocv = model.ocv.voltage(soc, temp)
-    v = ocv - model.r0_ohm.at(soc, temp) * i - v_rc.sum(axis=1)
-    if hy is not None:
-        v = v + hy.max_v * h
-    return Simulation(t, v, ocv, soc, v_rc, h)
+    from socfuse.models.simulation import simulate_model  # numba only when a simulation runs
+
+    return simulate_model(model, time_s, current_a, temperature_c, soc0, v_rc0, h0)

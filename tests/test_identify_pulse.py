@@ -5,6 +5,7 @@ import numpy as np
 import pytest
 
 from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
+from socfuse.models import simulation as models_simulation
 from socfuse.models.identify.fastsim import simulate_fast, unit_rc_response
 from socfuse.models.identify.pulse import (
     choose_rc_pairs, detect_pulses, discharge_power_w, fit_relaxation, identify_pulse_test, pulse_power_table,
@@ -53,16 +54,36 @@ def test_unit_rc_response_is_the_analytic_step_response():
     np.testing.assert_allclose(g, 2.0 * (1 - np.exp(-t / 17.0)), rtol=1e-12, atol=1e-15)
 
 
-def test_fast_simulation_equals_reference_simulate():
-    # Reference: models.simulate (the plain-loop statement of the sampling rule).
+def _plain_loop(model, t, i, soc0):
+    """The sampling rule of models/thevenin.py written out sample by sample (the specification)."""
+    n = t.size
+    soc = np.empty(n)
+    v_rc = np.zeros((n, model.n_rc))
+    soc[0] = soc0
+    for k in range(n - 1):
+        dt = t[k + 1] - t[k]
+        u = 0.5 * (i[k] + i[k + 1])
+        eta = 1.0 if u >= 0 else model.coulombic_efficiency
+        soc[k + 1] = soc[k] - eta * u * dt / (model.capacity_ah * 3600.0)
+        for j, pair in enumerate(model.rc):
+            a = np.exp(-dt / float(pair.tau_s.at(soc[k], 25.0)))
+            v_rc[k + 1, j] = a * v_rc[k, j] + float(pair.r_ohm.at(soc[k], 25.0)) * (1 - a) * u
+    v = model.ocv.voltage(soc, 25.0) - model.r0_ohm.at(soc, 25.0) * i - v_rc.sum(axis=1)
+    return soc, v
+
+
+def test_one_simulator_equals_the_plain_loop_of_the_sampling_rule():
+    # one implementation (issue 10): simulate and simulate_fast are the same code ...
+    assert simulate_fast is models_simulation.simulate_model
+    # ... and it equals the rule written out as a plain loop, to rounding
     m = _model(2)
     rng = np.random.default_rng(0)
     t = np.cumsum(np.r_[0.0, rng.uniform(0.2, 3.0, 3000)])
     i = rng.normal(1.0, 5.0, t.size)
+    soc, v = _plain_loop(m, t, i, 0.9)
     a = simulate(m, t, i, soc0=0.9)
-    b = simulate_fast(m, t, i, soc0=0.9)
-    np.testing.assert_allclose(b.voltage_v, a.voltage_v, atol=1e-12)
-    np.testing.assert_allclose(b.soc, a.soc, atol=1e-12)
+    np.testing.assert_allclose(a.voltage_v, v, atol=1e-12)
+    np.testing.assert_allclose(a.soc, soc, atol=1e-12)
 
 
 # ------------------------------------------------------------------ round trips on simulated tests

@@ -1,139 +1,14 @@
-"""Fast open-loop simulation of a :class:`~models.CellModel`, following the sampling rule exactly.
+"""Fast open-loop simulation: the names identification has always used.
 
-:func:`models.simulate` is the reference: a plain Python loop.  Identification evaluates the
-model many times on long recordings, so this module splits the same computation into
-vectorised parts and one compiled scalar loop:
-
-- the SOC trajectory does not depend on the RC states, so it is a cumulative sum
-  ``z_{k+1} = z_k - eta(u_k) u_k dt_k / (3600 Q)`` with ``u_k = (i_k + i_{k+1}) / 2``;
-- the parameters are then evaluated at the start of every interval with the tables' own
-  vectorised interpolation (identical values to :func:`models.simulate`);
-- the RC states follow the exact zero-order-hold recursion ``v' = a v + R (1 - a) u``,
-  ``a = exp(-dt / tau)``, in :func:`rc_filter` (numba, scalar, also runs under
-  ``NUMBA_DISABLE_JIT=1``);
-- the Plett (2004) hysteresis state likewise in :func:`hysteresis_filter`.
-
-The result equals :func:`models.simulate` to rounding (checked in tests/test_identify_pulse.py).
+There is one simulator, :mod:`models.simulation`; :func:`models.thevenin.simulate` and
+:func:`simulate_fast` here are the same computation (``simulate_fast`` is kept as a name for
+existing callers).
 """
 from __future__ import annotations
 
-import numpy as np
+from socfuse.models.simulation import hysteresis_filter, njit, rc_filter, simulate_model, soc_trajectory, unit_rc_response
 
-try:
-    from numba import njit
-except ImportError:  # pragma: no cover
-    def njit(*args, **kwargs):
-        if args and callable(args[0]):
-            return args[0]
-        return lambda f: f
+__all__ = ["rc_filter", "hysteresis_filter", "soc_trajectory", "simulate_fast", "unit_rc_response", "njit"]
 
-from socfuse.models.thevenin import SECONDS_PER_HOUR, CellModel, Simulation, interval_current
-
-__all__ = ["rc_filter", "hysteresis_filter", "soc_trajectory", "simulate_fast", "unit_rc_response"]
-
-
-@njit(cache=True)
-def rc_filter(a, bu, v0):
-    """Linear recursion ``v[k+1] = a[k] v[k] + bu[k]``, ``v[0] = v0``; returns ``v`` (len(a) + 1)."""
-    n = a.shape[0]
-    out = np.empty(n + 1)
-    out[0] = v0
-    v = v0
-    for k in range(n):
-        v = a[k] * v + bu[k]
-        out[k + 1] = v
-    return out
-
-
-@njit(cache=True)
-def hysteresis_filter(rate, u, h0):
-    """Plett (2004) one-state hysteresis: ``h' = e h - (1 - e) sgn(u)``, ``e = exp(-|rate|)``."""
-    n = u.shape[0]
-    out = np.empty(n + 1)
-    out[0] = h0
-    h = h0
-    for k in range(n):
-        e = np.exp(-abs(rate[k]))
-        s = 0.0
-        if u[k] > 0:
-            s = 1.0
-        elif u[k] < 0:
-            s = -1.0
-        h = e * h - (1.0 - e) * s
-        out[k + 1] = h
-    return out
-
-
-@njit(cache=True)
-def unit_rc_response(time_s, current_a, tau_s, start, stop):
-    """RC voltage of a unit-resistance pair (R = 1 ohm) at samples ``start..stop`` (inclusive).
-
-    The pair starts relaxed (0 V) at ``start`` and follows the sampling rule: interval-mean
-    current, exact ZOH ``a = exp(-dt/tau)``.  Returns an array of length ``stop - start + 1``.
-    """
-    out = np.zeros(stop - start + 1)
-    v = 0.0
-    for k in range(start, stop):
-        dt = time_s[k + 1] - time_s[k]
-        a = np.exp(-dt / tau_s)
-        v = a * v + (1.0 - a) * 0.5 * (current_a[k] + current_a[k + 1])
-        out[k + 1 - start] = v
-    return out
-
-
-def soc_trajectory(model: CellModel, time_s, current_a, soc0: float = 1.0) -> np.ndarray:
-    """SOC at every sample by the sampling rule (trapezoid charge, efficiency on charge)."""
-    t = np.asarray(time_s, dtype=float)
-    u = interval_current(current_a)
-    eta = np.where(u >= 0, 1.0, model.coulombic_efficiency)
-    dz = eta * u * np.diff(t) / (model.capacity_ah * SECONDS_PER_HOUR)
-    return soc0 - np.concatenate([[0.0], np.cumsum(dz)])
-
-
-def simulate_fast(model: CellModel, time_s, current_a, temperature_c=None, soc0: float = 1.0,
-                  v_rc0=None, h0: float = 0.0) -> Simulation:
-    """Same result as :func:`models.simulate` (same arguments), computed fast.
-
-    Parameters
-    ----------
-    model : CellModel
-    time_s, current_a : array_like (N,)
-        Sample times (s, strictly increasing) and current (A, positive on discharge).
-    temperature_c : float or array_like (N,), optional
-        degC, default 25.
-    soc0 : float
-    v_rc0 : array_like (n_rc,), optional
-    h0 : float
-
-    Returns
-    -------
-    Simulation
-    """
-    t = np.asarray(time_s, dtype=float)
-    i = np.asarray(current_a, dtype=float)
-    if t.shape != i.shape or t.ndim != 1 or t.size == 0:
-        raise ValueError(f"time_s ({t.shape}) and current_a ({i.shape}) must be 1-D of the same length")
-    if np.any(np.diff(t) <= 0):
-        raise ValueError("time_s must be strictly increasing")
-    temp = np.broadcast_to(np.asarray(25.0 if temperature_c is None else temperature_c, dtype=float), t.shape)
-    soc = soc_trajectory(model, t, i, soc0)
-    dt = np.diff(t)
-    u = interval_current(i)
-    z0, t0 = soc[:-1], temp[:-1]
-    v_rc = np.zeros((t.size, model.n_rc))
-    for j, pair in enumerate(model.rc):
-        a = np.exp(-dt / np.asarray(pair.tau_s.at(z0, t0), dtype=float))
-        bu = np.asarray(pair.r_ohm.at(z0, t0), dtype=float) * (1.0 - a) * u
-        v_rc[:, j] = rc_filter(a, bu, 0.0 if v_rc0 is None else float(np.asarray(v_rc0, dtype=float)[j]))
-    hy = model.hysteresis
-    if hy is not None:
-        eta = np.where(u >= 0, 1.0, model.coulombic_efficiency)
-        rate = eta * u * hy.gamma * dt / (model.capacity_ah * SECONDS_PER_HOUR)
-        h = hysteresis_filter(rate, u, float(h0))
-    else:
-        h = np.full(t.size, float(h0))
-    ocv = np.asarray(model.ocv.voltage(soc, temp), dtype=float)
-    v = ocv - np.asarray(model.r0_ohm.at(soc, temp), dtype=float) * i - v_rc.sum(axis=1)
-    if hy is not None:
-        v = v + hy.max_v * h
-    return Simulation(t, v, ocv, soc, v_rc, h)
+#: the one simulator (:func:`models.simulation.simulate_model`, also behind :func:`models.simulate`)
+simulate_fast = simulate_model
