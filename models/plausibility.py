@@ -38,7 +38,7 @@ Checks (each finding names the option that fixes it):
   other values outside -0.05..1.05 are refused.
 - spikes: isolated samples far from their neighbours (a 5-sample running median) in current or
   voltage are outliers, not a sign or unit error; they are refused (they would be integrated as
-  charge) unless ``--trust-input``.
+  charge) unless ``--trust-input``, or dropped with ``--drop-spikes`` (:func:`drop_spikes`).
 - ``temperature_c``: a median of 200..400 with every value above 150 is kelvin read as degC
   (``--temperature-unit K``); other values outside -60..150 degC are not a cell temperature
   (lithium-ion cells operate well inside it; common practice, no source).
@@ -55,6 +55,7 @@ import numpy as np
 from socfuse.models.recording import Recording, RecordingError
 
 __all__ = ["Finding", "ImplausibleInputError", "check_against_model", "require_plausible", "spike_samples",
+           "drop_spikes",
            "GENERIC_CELL_WINDOW_V", "TRUST_OPTION"]
 
 #: Voltage window assumed for a lithium-ion cell when no model exists yet (identification):
@@ -139,6 +140,39 @@ def spike_samples(rec: Recording, model=None) -> np.ndarray:
     """
     i_spk, v_spk = _spike_masks(rec, model)
     return i_spk | v_spk
+
+
+def drop_spikes(rec: Recording, model=None) -> tuple[Recording, int]:
+    """``rec`` without its spike samples (:func:`spike_samples`), and how many were dropped.
+
+    The rows are removed (the interval around each becomes one longer interval, bridged by the
+    neighbouring samples as any sampling interval is); ``metadata["spikes_dropped"]`` lists
+    their times, s.
+
+    Parameters
+    ----------
+    rec : Recording
+    model : CellModel, optional
+
+    Returns
+    -------
+    (Recording, int)
+    """
+    mask = spike_samples(rec, model)
+    n = int(mask.sum())
+    if n == 0:
+        return rec, 0
+    keep = ~mask
+    if keep.sum() < 2:
+        raise RecordingError(f"recording {rec.name!r}: fewer than 2 samples left without the spikes")
+    meta = dict(rec.metadata or {})
+    meta["spikes_dropped"] = [float(x) for x in rec.time_s[mask]]
+    extras = meta.get("extras")
+    if isinstance(extras, dict):
+        meta["extras"] = {k: (np.asarray(v)[keep] if np.shape(v) == rec.time_s.shape else v) for k, v in extras.items()}
+    opt = lambda a: None if a is None else a[keep]  # noqa: E731
+    return Recording(rec.time_s[keep], rec.current_a[keep], rec.voltage_v[keep], opt(rec.temperature_c),
+                     opt(rec.soc_ref), rec.name, meta), n
 
 
 def _spike_masks(rec: Recording, model=None):
@@ -330,7 +364,8 @@ def check_against_model(rec: Recording, model=None) -> list[Finding]:
         col = "current_a" if i_spk.any() else "voltage_v"
         spike_finding = (Finding("spikes", col, "error",
                                 "isolated outliers, not a unit or sign error: " + "; ".join(parts),
-                                "remove them from the file (they would be counted as charge)"))
+                                "remove them from the file or load with --drop-spikes (they would be counted "
+                                "as charge)"))
 
     v = v_all[fin_v & keep]
     unit_v = _voltage_findings(v, lo, hi, what)

@@ -88,6 +88,13 @@ def test_corpus_fix_options_make_the_estimate_right(corpus, capsys):
     assert "note: trusted as given" in capsys.readouterr().err
 
 
+def test_drop_spikes_option(corpus, capsys):
+    assert main(["estimate", "--model", str(corpus / "model.json"), str(corpus / "three_spikes_1e6_a.csv"),
+                 "--drop-spikes"]) == 0
+    cap = capsys.readouterr()
+    assert "dropped 3 spike sample(s) at t = 100, 250, 400 s" in cap.err and "RMSE vs ref" in cap.out
+
+
 def test_spikes_are_outliers_not_a_sign_error(corpus, capsys):
     # three 1e6 A spikes: the sign check leaves them out and still finds the file's sign right
     assert main(["check", str(corpus / "three_spikes_1e6_a.csv"), "--trust-input"]) == 0

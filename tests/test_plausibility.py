@@ -56,7 +56,7 @@ def test_clean_recording_has_no_finding(day):
     ("pack 3p", "charge-throughput", "--parallel-cells"),            # parallel currents add (KCL)
     ("flipped sign", "sign-inverted", "--discharge-negative"),       # dV = -R0 dI (Hu et al. 2012)
     ("soc_ref percent", "soc-ref-percent", "--soc-ref-unit percent"),
-    ("three 1e6 A spikes", "spikes", "remove them"),
+    ("three 1e6 A spikes", "spikes", "--drop-spikes"),
 ])
 def test_mistake_is_found_with_the_option_that_fixes_it(day, mistake, code, fix):
     m, rec = day
@@ -175,3 +175,15 @@ def test_temperature_in_kelvin_or_out_of_range(day):
     hot = rec.temperature_c.copy()
     hot[100] = 900.0
     assert _errors(rec.with_(temperature_c=hot), m) == ["temperature-range"]
+
+
+def test_drop_spikes_gives_back_the_clean_recording(day):
+    from socfuse.models.plausibility import drop_spikes
+
+    m, rec = day
+    spiky = rec.current_a.copy()
+    spiky[[500, 2500, 6000]] = 1e6
+    cleaned, n = drop_spikes(rec.with_(current_a=spiky), m)
+    assert n == 3 and cleaned.n == rec.n - 3 and cleaned.metadata["spikes_dropped"] == [500.0, 2500.0, 6000.0]
+    assert check_against_model(cleaned, m) == []
+    np.testing.assert_array_equal(np.delete(rec.current_a, [500, 2500, 6000]), cleaned.current_a)

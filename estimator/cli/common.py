@@ -90,6 +90,9 @@ def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
                    help="the file logs a pack of M cells in parallel: the current is divided by M")
     g.add_argument("--recording-name", dest="map_name", default=None, metavar="NAME",
                    help="recording name used in reports (default: the file name)")
+    g.add_argument("--drop-spikes", action="store_true",
+                   help="drop isolated current or voltage spikes (single samples far from their neighbours) "
+                        "instead of refusing the recording; the number dropped is reported")
     g.add_argument("--trust-input", action="store_true",
                    help="use the recording even when it looks implausible for the model (a likely unit, sign or "
                         "pack mistake, or spikes); without it such a recording stops the command with exit 2")
@@ -137,9 +140,15 @@ def load_checked(args: argparse.Namespace, path, model=None) -> Recording:
     RecordingError
         The file cannot be loaded, or it looks implausible and ``--trust-input`` was not given.
     """
-    from socfuse.models.plausibility import require_plausible
+    from socfuse.models.plausibility import drop_spikes, require_plausible
 
     rec = load_from_args(args, path)
+    if getattr(args, "drop_spikes", False):
+        rec, n = drop_spikes(rec, model)
+        if n:
+            note(f"note: {path}: dropped {n} spike sample(s) at t = "
+                 + ", ".join(f"{x:.6g}" for x in rec.metadata["spikes_dropped"][:5])
+                 + (" ..." if n > 5 else "") + " s")
     for f in require_plausible(rec, model, trust=bool(getattr(args, "trust_input", False)), source=str(path)):
         note(f"note: {f.message(str(path))}" if f.severity == "warning" else
              f"note: trusted as given: {f.message(str(path))}")
