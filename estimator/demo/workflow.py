@@ -53,7 +53,7 @@ DEMO_P0_SOC = 0.30
 
 
 class DemoError(ValueError):
-    """The demo cannot run (output folder in use, no demo data)."""
+    """The demo cannot run (no demo data)."""
 
 
 def _has_all(folder: Path) -> bool:
@@ -157,51 +157,14 @@ class DemoStep:
     run: Callable[[dict], tuple[dict, str]]
 
 
-def _check_out(out: Path) -> None:
-    """Refuse, before any work, an output path the demo may not use."""
-    if out.exists() and not out.is_dir():
-        raise DemoError(f"{out} exists and is not a folder")
-    if out.is_dir() and any(out.iterdir()) and not (out / DEMO_MARKER).exists():
-        raise DemoError(f"{out} is not empty and was not written by socfuse demo; choose a new folder "
-                        "(the demo never overwrites files it did not write)")
-    parent = out.parent if str(out.parent) else Path(".")
-    if not parent.is_dir():
-        raise DemoError(f"folder {parent} does not exist (the demo creates only the last folder of --out)")
-
-
-def _staging(out: Path) -> Path:
-    """A fresh sibling folder the demo writes into; moved to ``out`` only when every step is done."""
-    import tempfile
-
-    try:
-        return Path(tempfile.mkdtemp(prefix=f".{out.name}.partial-", dir=out.parent if str(out.parent) else "."))
-    except OSError as e:
-        raise DemoError(f"cannot write into {out.parent}: {e.strerror or e}") from None
-
-
-def _publish(stage: Path, out: Path) -> None:
-    """Move the finished staging folder to ``out`` (replacing an earlier demo run's folder)."""
-    import os
-    import shutil
-
-    mask = os.umask(0o022)
-    os.umask(mask)
-    os.chmod(stage, 0o777 & ~mask)  # mkdtemp made it 0700
-    old = None
-    if out.exists():
-        old = out.parent / f".{out.name}.old-{os.getpid()}"
-        out.rename(old)
-    stage.rename(out)
-    if old is not None:
-        shutil.rmtree(old, ignore_errors=True)
-
-
 def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int | None = None,
              log: Callable[[str], None] | None = None) -> DemoResult:
     """Run the demo (module docstring) and write everything into ``out_dir``.
 
-    The steps write into a staging folder beside ``out_dir``, which replaces ``out_dir`` only when
-    every step has finished: a failed or killed run leaves no folder that looks complete.  A step
+    The steps write into a staging folder inside ``out_dir`` (:func:`socfuse.models.fileio.output_folder`:
+    locked while the run writes, foreign files refused, a marker that says incomplete until the end);
+    the outputs move into place only when every step has finished, so a failed or killed run leaves
+    no folder that looks complete.  A step
     that fails on its input stops the demo with :class:`DemoStepError` (one line naming the step);
     nothing is skipped or replaced by a stand-in.
 
@@ -224,18 +187,19 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
     DemoResult
         The summary, model, settings, steps and files (paths inside ``out_dir``).
     """
-    import shutil
     import sys
+
+    from socfuse.models.fileio import output_folder
 
     say = log or (lambda line: print(line, file=sys.stderr))
     t_all = time.perf_counter()
     out = Path(out_dir)
-    _check_out(out)
-    stage = _staging(out)
     steps: list = []
-    state: dict = {"quick": quick, "quiet": quiet, "workers": workers, "stage": stage, "files": {},
-                   "extras": {}, "sections": [], "steps": steps}
-    try:
+    state: dict = {"quick": quick, "quiet": quiet, "workers": workers, "files": {}, "extras": {},
+                   "sections": [], "steps": steps}
+    # the one output-folder helper: lock, refusal of foreign files, staging, completion marker
+    with output_folder(out, "demo", rerun=True, legacy_marker=DEMO_MARKER) as stage:
+        state["stage"] = stage
         for st in _steps(quick):
             t0 = time.perf_counter()
             try:
@@ -248,10 +212,6 @@ def run_demo(out_dir, *, quick: bool = False, quiet: bool = False, workers: int 
             steps.append((st.name, dt, "done" + (f" {detail}" if detail else "")))
             say(f"[{dt:6.1f} s] {st.name}: done{(' ' + detail) if detail else ''}")
         (stage / DEMO_MARKER).write_text("written by socfuse demo; files here are replaced by the next run\n")
-        _publish(stage, out)
-    except BaseException:
-        shutil.rmtree(stage, ignore_errors=True)
-        raise
     files = {k: out / Path(v).relative_to(stage) for k, v in state["files"].items()}
     return DemoResult(out, state["bench"].summary, state["model"], state["settings"], tuple(steps), files,
                       time.perf_counter() - t_all, state["extras"])
