@@ -39,6 +39,7 @@ if not (_here / "models").is_dir() and (_here.parent / "models" / "__init__.py")
 _PUBLIC = {
     "load_recording": ("socfuse.models.loaders", "load_recording"),
     "Recording": ("socfuse.models.recording", "Recording"),
+    "check_against_model": ("socfuse.models.plausibility", "check_against_model"),
     "CellModel": ("socfuse.models.thevenin", "CellModel"),
     "load_model": ("socfuse.models.modelfile", "load_model"),
     "save_model": ("socfuse.models.modelfile", "save_model"),
