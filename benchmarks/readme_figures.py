@@ -54,6 +54,8 @@ if str(REPO) not in sys.path:
     sys.path.insert(0, str(REPO))
 
 FIGURES = REPO / "docs" / "readme_figures.json"
+#: folder of the README's PNG figures (the folder of --out)
+DOCS = FIGURES.parent
 README = REPO / "README.md"
 SCHEMA = "socfuse.readme-figures/1"
 PARTS = ("demo", "energy", "montecarlo", "speed", "identify", "generalisation")
@@ -166,9 +168,22 @@ def _demo_dir(work: Path, refresh: bool) -> Path:
 def part_demo(work: Path) -> tuple[dict, str]:
     import pandas as pd
 
+    t0 = time.perf_counter()
     out = _demo_dir(work, refresh=True)
     s = pd.read_csv(out / "summary.csv")
-    figs: dict = {}
+    figs: dict = {"seconds": time.perf_counter() - t0}
+    # the README's demo figure: the lunch-break day under a current-sensor offset, as the report draws it
+    shutil.copyfile(out / "soc_c48_day_lunch_offset.png", DOCS / "soc_offset.png")
+    for m in ("ekf", "ukf", "coulomb"):
+        sub = s[(s["recording"] == "c48_day_lunch") & (s["scenario"] == "offset") & (s["method"] == m)]
+        if len(sub):
+            figs[f"lunch.offset.{m}.max"] = float(sub["max_abs_pct"].iloc[0])
+            figs[f"lunch.offset.{m}.rmse"] = float(sub["rmse_pct"].iloc[0])
+            figs[f"lunch.offset.{m}.final_abs"] = float(sub["final_abs_pct"].iloc[0])
+            cov = float(sub["inside_3sigma"].iloc[0])
+            if math.isfinite(cov):
+                figs[f"lunch.offset.{m}.coverage_pct"] = 100.0 * cov
+    figs.update(_footprint(out / "c" / "README.md"))
     for sc in DEMO_SCENARIOS:
         for m in ("ekf", "coulomb", "ukf"):
             sub = s[(s["scenario"] == sc) & (s["method"] == m)]
@@ -197,6 +212,15 @@ def part_demo(work: Path) -> tuple[dict, str]:
         figs[f"tolerance.{meth}.p50"] = float(p50)
         figs[f"tolerance.{meth}.p95"] = float(p95)
     return figs, f"socfuse demo --out {out}"
+
+
+def _footprint(path: Path) -> dict:
+    """State RAM, const tables, flops and stack of the demo's C export (its README's footprint table)."""
+    text = path.read_text(encoding="utf-8")
+    return {"c_state_bytes": _num(r"state RAM[^|]*\| (\d+) bytes", text, "C footprint"),
+            "c_tables_bytes": _num(r"const tables \| (\d+) bytes", text, "C footprint"),
+            "c_flops": _num(r"operations per step \| about (\d+)", text, "C footprint"),
+            "c_stack_bytes": _num(r"worst-case stack \| (\d+) bytes", text, "C footprint")}
 
 
 def _bound_final(out: Path) -> dict:
@@ -308,6 +332,15 @@ def part_identify(work: Path) -> tuple[dict, str]:
         tau = np.asarray(model.rc[0].tau_s.at(soc, t_row)) / np.asarray(tm.rc[0].tau_s.at(soc, t_true)) - 1.0
         figs[f"demo_r0_max_err_pct_{t_true:g}c"] = 100.0 * float(np.max(np.abs(r0)))
         figs[f"demo_tau1_max_err_pct_{t_true:g}c"] = 100.0 * float(np.max(np.abs(tau)))
+    # the README's identification figure: `socfuse identify ... --plots DIR`, the command the README shows
+    plots = work / "identify_plots"
+    shutil.rmtree(plots, ignore_errors=True)
+    model_out = work / "c48_identified.json"
+    model_out.unlink(missing_ok=True)
+    _cli(["identify", "--ocv-test", data / "c48_c20_25degC.csv", "--pulse-test", data / "c48_pulse_25degC.csv",
+          "--pulse-test", data / "c48_pulse_05degC.csv", "--validate", data / "c48_day_lunch.csv",
+          "--plots", plots, "-o", model_out])
+    shutil.copyfile(plots / "parameters.png", DOCS / "identify_parameters.png")
     text = _script("identify_speed.py")
     pats = {"demo_pulse_s": r"pulse test 25 degC \(detect, R0, RC fits\)\s+([\d.]+) s",
             "demo_identify_s": r"identify\(\): C/20 \+ pulse tests at 25 and 5 degC\s+([\d.]+) s",
@@ -345,12 +378,17 @@ def part_generalisation(work: Path) -> tuple[dict, str]:
     m = re.search(r"ekf_beats_baseline=(\d+)/(\d+)", last)
     if m:
         figs["ekf_beats"], figs["pairs"] = float(m.group(1)), float(m.group(2))
+    m = re.search(r"under faults [^\n]*?ekf_beats_baseline=(\d+)/(\d+)", text)
+    if m:
+        figs["faults_ekf_beats"], figs["faults_pairs"] = float(m.group(1)), float(m.group(2))
     notes = []
     for r in json.loads(out.read_text()):
         if r.get("note") and f"{r['case']}: {r['note']}" not in notes:
             notes.append(f"{r['case']}: {r['note']}")
         if r.get("method") not in ("ekf", "coulomb"):
             continue
+        if r.get("tuned_on"):
+            figs[f"{gen_key(r)}.tuned_on"] = 1.0
         for col in ("rmse_pct", "max_pct", "coverage_pct", "wrong_start_rmse_pct", "offset_rmse_pct"):
             v = r.get(col)
             if isinstance(v, (int, float)) and math.isfinite(v):
@@ -381,8 +419,8 @@ def generalisation_table(data: dict, cases=("pan25", "pan10", "pan0", "nmc", "lf
     done = set()
     for r in rows:
         case, rec, rt, _m = r.split(".")
-        if case not in cases or rt != rate or (case, rec) in done:
-            continue
+        if case not in cases or rt != rate or (case, rec) in done or figs.get(f"{r}.tuned_on"):
+            continue  # recordings the case tuned on are not in this table
         done.add((case, rec))
         e, c = f"generalisation.{case}.{rec}.{rt}.ekf", f"generalisation.{case}.{rec}.{rt}.coulomb"
 
@@ -430,7 +468,9 @@ def load_figures(path: Path = FIGURES) -> dict:
 
 def main(argv=None) -> int:
     ap = argparse.ArgumentParser(description=__doc__.splitlines()[0])
-    ap.add_argument("--parts", nargs="+", choices=PARTS, default=list(PARTS), help="parts to regenerate")
+    ap.add_argument("--parts", nargs="+", choices=PARTS, default=None,
+                    help="parts to regenerate (default: all, unless --check, --print-table or --update-readme "
+                         "is given alone, which only read the figures file)")
     ap.add_argument("--out", default=str(FIGURES), help="figures file (default docs/readme_figures.json)")
     ap.add_argument("--work", default=str(Path.home() / ".cache" / "socfuse" / "readme_figures"),
                     help="folder for intermediate files")
@@ -440,9 +480,13 @@ def main(argv=None) -> int:
     ap.add_argument("--update-readme", action="store_true",
                     help="rewrite the README's marked numbers from the figures file (then read the diff)")
     a = ap.parse_args(argv)
+    global DOCS
     path = Path(a.out)
+    DOCS = path.resolve().parent
     data = load_figures(path)
-    if not a.check:
+    if a.parts is None and not (a.check or a.print_table or a.update_readme):
+        a.parts = list(PARTS)
+    if a.parts and not a.check:
         work = Path(a.work)
         work.mkdir(parents=True, exist_ok=True)
         # demo first: energy and montecarlo use its model
