@@ -37,6 +37,7 @@ References
 from __future__ import annotations
 
 from dataclasses import dataclass
+from functools import lru_cache
 
 import numpy as np
 
@@ -191,8 +192,19 @@ def noise_floor(x, window: int = 16, quantile: float = 0.2) -> float:
     nw = d.size // window
     if nw >= 5:
         s = np.std(d[: nw * window].reshape(nw, window), axis=1) / np.sqrt(2.0)
-        sig = min(sig, float(np.quantile(s, quantile)))
+        # a low quantile keeps steps and dynamics out; divided by that quantile's value for white
+        # noise, it estimates the noise sigma without bias
+        sig = min(sig, float(np.quantile(s, quantile)) / _white_quantile(window, quantile))
     return max(sig, floor)
+
+
+@lru_cache(maxsize=8)
+def _white_quantile(window: int, quantile: float) -> float:
+    """The ``quantile`` of the window estimate above for unit white noise (fixed-seed simulation)."""
+    x = np.random.default_rng(12345).normal(0.0, 1.0, window * 20000 + 1)
+    d = np.diff(x)
+    s = np.std(d.reshape(20000, window), axis=1) / np.sqrt(2.0)
+    return float(np.quantile(s, quantile))
 
 
 def _runs(mask: np.ndarray):
@@ -342,7 +354,7 @@ def segment_recording(time_s, current_a, voltage_v=None, offset_a: float | None 
     gap_lim = max(60.0, 20.0 * med_dt) if gap_s is None else float(gap_s)
     gap = dt > gap_lim
     notes = []
-    noise = noise_floor(i_raw, quantile=0.5)
+    noise = noise_floor(i_raw)
     if offset_a is None:
         lvl, n_rest, rest_time, _, note = _rest_level(t, i_raw, v, noise, gap, 16)
         if note:

@@ -23,8 +23,8 @@ A slow overpotential that the RC pairs do not hold (solid diffusion at C/20) loo
 low-rate test, so the fit is only believed when the pulse test's long rests agree: after a
 discharge the rested voltage must sit below the branch average by about ``M`` (hysteresis stays,
 overpotential relaxes), but not by much more than ``M`` (else the low-rate test describes another
-state of the cell), and when the gap does not appear within 0.2 % SOC of each reversal (gamma <
-500: that is an overpotential).  Otherwise no hysteresis is put in the model and the reason is
+state of the cell), and when the gap does not appear within 0.5 % SOC of each reversal (gamma <
+200: at C/20 that is 6 minutes, the time scale of a diffusion overpotential).  Otherwise no hysteresis is put in the model and the reason is
 given.
 """
 from __future__ import annotations
@@ -40,9 +40,10 @@ __all__ = ["HysteresisFit", "fit_low_rate_hysteresis", "judge_hysteresis", "MIN_
 #: below this magnitude (V) a hysteresis is not worth a filter state (twice a BMS cell-voltage
 #: quantum of 1 mV plus its noise; common practice, no source)
 MIN_HYSTERESIS_V = 0.004
-#: a fitted rate at least this large means the gap appears within 0.2 % SOC of a reversal: an
-#: overpotential (concentration, charge transfer), not hysteresis
-GAMMA_MAX = 500.0
+#: a fitted rate at least this large means the gap appears within 0.5 % SOC of a reversal, i.e.
+#: within 6 minutes at C/20: the time scale of solid-diffusion overpotential, which the low-rate
+#: test cannot tell from hysteresis; such a gap is not modelled as hysteresis
+GAMMA_MAX = 200.0
 
 
 @dataclass(frozen=True)

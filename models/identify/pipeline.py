@@ -15,6 +15,8 @@ import numpy as np
 
 from socfuse.models.recording import Recording
 from socfuse.models.thevenin import CellModel
+from socfuse.models.ocv import OcvCurve
+from socfuse.models.identify.curves import MIN_STEP_V, isotonic_increasing
 from socfuse.models.identify.hysteresis import fit_low_rate_hysteresis, judge_hysteresis
 from socfuse.models.identify.ocvsource import OCV_SOURCES, ocv_candidates
 from socfuse.models.identify.plausible import check_model
@@ -23,7 +25,7 @@ from socfuse.models.identify.pulse import choose_rc_pairs, identify_pulse_test, 
 from socfuse.models.identify.refine import RefineResult, refine_model
 from socfuse.models.identify.validate import validate
 
-__all__ = ["IdentifyResult", "identify", "IdentifyError", "sensor_offsets"]
+__all__ = ["IdentifyResult", "identify", "IdentifyError", "sensor_offsets", "ocv_temperature_rows"]
 
 
 class IdentifyError(ValueError):
@@ -203,6 +205,82 @@ def sensor_offsets(recordings, offset_a: float | None = None) -> dict:
             "pooled_files": [_file(recordings[k]) for k in members], "given": False, "notes": notes}
 
 
+def ocv_temperature_rows(curve, results, ref: int, min_points: int = 3):
+    """OCV over SOC x temperature: the low-rate shape plus each temperature's rest-point offset.
+
+    The low-rate test sets the shape (at its own temperature).  At every pulse-test temperature the
+    rest-end voltages, less the curve, are grouped into SOC clusters (median offset per cluster,
+    linear in SOC between clusters, constant beyond the ends; :func:`ocvsource.rest_clusters`).
+    Row ``T`` is the curve plus ``corr_T - corr_ref``, the difference to the same kind of rests at
+    the reference temperature (the test nearest 25 degC), so what the rests share (incomplete
+    relaxation, the hysteresis branch they sit on) cancels and the entropic offset remains.  Rows
+    are made increasing over SOC.
+
+    Parameters
+    ----------
+    curve : OcvCurve
+        The chosen OCV (one temperature).
+    results : list of PulseTestResult
+    ref : int
+        Index of the reference pulse test.
+    min_points : int
+        Rest points needed at a temperature.
+
+    Returns
+    -------
+    (OcvCurve, dict or None)
+        The curve with temperature rows and a provenance dict, or the input and None when fewer
+        than two temperatures have rest points.
+    """
+    from socfuse.models.identify.ocvsource import rest_clusters
+
+    groups: dict = {}
+    for k, r in enumerate(results):
+        if np.asarray(r.rest_soc).size:
+            groups.setdefault(round(r.temperature_c), []).append(k)
+    ref_key = round(results[ref].temperature_c)
+    if ref_key not in groups or len(groups) < 2 or curve.temperature_c is not None:
+        return curve, None
+    soc = np.asarray(curve.soc, dtype=float)
+
+    def clusters(members):
+        rs = np.concatenate([np.asarray(results[k].rest_soc, dtype=float) for k in members])
+        rv = np.concatenate([np.asarray(results[k].rest_v, dtype=float) for k in members])
+        if rs.size < min_points:
+            return None
+        return rest_clusters(rs, rv - curve.voltage(rs))
+
+    base = clusters(groups[ref_key])
+    if base is None:
+        return curve, None
+    temps, rows, files, offs = [], [], [], []
+    for key in sorted(groups):
+        if key == ref_key:
+            delta = np.zeros(soc.size)
+        else:
+            cl = clusters(groups[key])
+            if cl is None:
+                continue
+            cs, co = cl
+            # the difference where this temperature has rests (reference correction interpolated
+            # there), held constant beyond its first and last cluster
+            delta = np.interp(soc, cs, co - np.interp(cs, base[0], base[1]))
+        row = isotonic_increasing(np.asarray(curve.ocv_v, dtype=float) + delta, min_step=MIN_STEP_V)
+        temps.append(float(np.mean([results[k].temperature_c for k in groups[key]])))
+        rows.append(row)
+        files.append([results[k].source for k in groups[key]])
+        offs.append([float(np.min(delta)), float(np.max(delta))])
+    if len(rows) < 2:
+        return curve, None
+    out = OcvCurve(soc, np.array(rows), np.array(temps),
+                   f"{curve.source}; rows over temperature from the pulse-test rests")
+    summary = ", ".join(f"{t:.1f} degC {o[0] * 1000:+.1f}..{o[1] * 1000:+.1f} mV" for t, o in zip(temps, offs))
+    return out, {"rows": len(rows), "temperatures_c": temps, "files": files, "offset_range_v": offs,
+                 "reference_c": float(results[ref].temperature_c),
+                 "test": "low-rate shape + (rest-point offset at T - rest-point offset at the reference)",
+                 "summary": summary}
+
+
 def _build(capacity, eta, ocv, r0, rc, v_min, v_max, name, provenance, hysteresis=None) -> CellModel:
     return CellModel(capacity_ah=capacity, ocv=ocv, r0_ohm=r0, rc=rc, coulombic_efficiency=eta,
                      v_min_v=v_min, v_max_v=v_max, name=name, provenance=provenance, hysteresis=hysteresis)
@@ -214,7 +292,7 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
              v_min_v: float | None = None, v_max_v: float | None = None, name: str = "",
              refine_soc0: float | None = None, validate_soc0: float | None = None,
              refine_options: dict | None = None, pulse_options: dict | None = None,
-             allow_implausible: bool = False) -> IdentifyResult:
+             allow_implausible: bool = False, ocv_over_temperature: bool = True) -> IdentifyResult:
     """Identify a Thevenin cell model from lab tests.
 
     Parameters
@@ -246,6 +324,9 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         Extra keyword arguments for :func:`refine.refine_model` and
         :func:`pulse.identify_pulse_test` (``pulse_options["offset_a"]``: a known current-sensor
         zero offset, A, used for every test).
+    ocv_over_temperature : bool
+        With pulse tests at two or more temperatures, give the OCV a temperature axis from their
+        rest points (:func:`ocv_temperature_rows`).
     allow_implausible : bool
         Return a model that fails the plausibility checks of :mod:`models.identify.plausible`
         (the problems go into the notes and the provenance) instead of raising.
@@ -290,7 +371,7 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
     r0, rc, per = pulse_tables(results, n_rc)
     ref = int(np.argmin(np.abs(np.array([r.temperature_c for r in results]) - 25.0)))
     ref_res = results[ref]
-    if len({round(r.temperature_c) for r in results}) > 1:
+    if len({round(r.temperature_c) for r in results}) > 1 and not ocv_over_temperature:
         notes.append("the OCV curve is from one temperature (the low-rate test); R0/RC tables are over "
                      "temperature")
     cands_full = ocv_candidates(o, ref_res.rest_soc, ref_res.rest_v, n_ocv_breakpoints,
@@ -318,6 +399,7 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
 
     # ---- choose the OCV source
     scores = {}
+    forced_reason = None
     chooser = refine if refine is not None else (validate[0] if validate else None)
     chooser_soc0 = refine_soc0 if refine is not None else validate_soc0
     if hyst is not None and ocv_source == "auto" and "average" in cands:
@@ -334,6 +416,8 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         if hyst is not None:
             # the branch average is the centre line of the hysteresis model; rest points sit on a branch
             cands = {"average": cands["average"]}
+            ocv_source = "average"
+            forced_reason = "centre line of the identified hysteresis"
     if ocv_source == "auto":
         if chooser is not None:
             for k, c in cands.items():
@@ -365,13 +449,18 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         if ocv_source not in cands:
             raise IdentifyError(f"OCV source {ocv_source!r} is not available from these tests "
                                 f"(available: {', '.join(cands)})")
-        chosen, reason = ocv_source, "requested"
+        chosen, reason = ocv_source, forced_reason or "requested"
         if chooser is not None:
             for k, c in cands.items():
                 scores[k] = validate_fn(model_with(c, r0, rc, {}, hyst), chooser, chooser_soc0).rms_v
     ocv_curve = cands[chosen]
     ocv_curve = type(ocv_curve)(ocv_curve.soc, ocv_curve.ocv_v, ocv_curve.temperature_c,
                                 f"{chosen}: {ocv_curve.source}")
+    ocv_temp_info = None
+    if ocv_over_temperature:
+        ocv_curve, ocv_temp_info = ocv_temperature_rows(ocv_curve, results, ref)
+        if ocv_temp_info is not None:
+            notes.append("OCV over temperature: " + ocv_temp_info["summary"])
 
     # ---- provenance
     pulse_files = [r.source if not (pulse_tests[k].metadata or {}).get("source") else _file(pulse_tests[k])
@@ -392,6 +481,7 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
                 "rest_point_rms_v": info[chosen].get("rest_point_rms_v"), "choice": reason,
                 "candidates": {k: {"rest_point_rms_v": info[k].get("rest_point_rms_v"),
                                    "open_loop_rms_v": scores.get(k)} for k in cands}},
+        "ocv_temperature": ocv_temp_info or {"rows": 1, "note": "one temperature (the low-rate test's)"},
         "hysteresis_estimate": {"file": _file(ocv_test), "half_gap_v": o.hysteresis_v,
                                 "note": "median half-gap of the low-rate branches (includes the resistive drop)"},
         "hysteresis": {"file": [_file(ocv_test), pulse_files[ref]],

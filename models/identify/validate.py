@@ -79,10 +79,34 @@ def initial_soc(model: CellModel, rec: Recording, soc0: float | None = None):
     return z, f"OCV inverse of the voltage at row {k} (cell assumed rested)"
 
 
-def validate(model: CellModel, rec: Recording, soc0: float | None = None) -> ValidationResult:
-    """Open-loop voltage RMS and max error of ``model`` on ``rec``."""
+def validate(model: CellModel, rec: Recording, soc0: float | None = None,
+             correct_offset: bool = True) -> ValidationResult:
+    """Open-loop voltage RMS and max error of ``model`` on ``rec``.
+
+    Parameters
+    ----------
+    model : CellModel
+    rec : Recording
+    soc0 : float, optional
+        Initial SOC (fraction); default :func:`initial_soc`.
+    correct_offset : bool
+        Subtract the current-sensor zero offset estimated from the recording's own rests
+        (:func:`models.segment.segment_recording`; nothing when it has none), so a sensor error
+        integrated over hours is not charged to the model.
+
+    Returns
+    -------
+    ValidationResult
+    """
     z0, label = initial_soc(model, rec, soc0)
-    sim = simulate_fast(model, rec.time_s, rec.current_a, recording_temperature(rec), soc0=z0)
+    current = rec.current_a
+    if correct_offset and rec.n > 1:
+        from socfuse.models.segment import segment_recording
+
+        seg = segment_recording(rec.time_s, rec.current_a, rec.voltage_v)
+        if seg.offset_sigma_a is not None:
+            current = seg.current_a
+    sim = simulate_fast(model, rec.time_s, current, recording_temperature(rec), soc0=z0)
     res = sim.voltage_v - rec.voltage_v
     good = np.isfinite(res)
     if not np.any(good):
