@@ -265,6 +265,7 @@ def _study_figs(study, prefix: str) -> dict:
             if lim is not None:
                 figs[f"{prefix}.{m}.{sw.knob}_limit_{unit}"] = scale * float(lim)
             figs[f"{prefix}.{m}.{sw.knob}_p95_at_{scale * float(sw.values[0]):g}{unit}_pct"] = 100.0 * float(sw.p95[m][0])
+        figs[f"{prefix}.{sw.knob}_grid_max_{unit}"] = scale * float(sw.values[-1])
     return figs
 
 
