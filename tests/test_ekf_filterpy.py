@@ -85,9 +85,10 @@ WHITE = dict(model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.
 def test_matches_filterpy_every_step(n_rc, bias, uneven, new):
     m = tiny_model(n_rc=n_rc)
     # no clipping, no gate: the reference has neither; ``new``: the default noise model (model-error
-    # state, current-dependent R, capacity term), else white voltage noise only
+    # state, current-dependent R, capacity term; its adaptive magnitude is no part of the reference
+    # filter and is off here), else white voltage noise only
     s = default_settings(m).with_(gate_sigma=0.0, soc_min=-1.0, soc_max=2.0, estimate_bias=bias,
-                                  q_rc_v2_per_s=1e-6, **({} if new else WHITE))
+                                  q_rc_v2_per_s=1e-6, model_error_adapt_s=0.0, **({} if new else WHITE))
     assert (setup(m, s).i_e >= 0) == new
     rec, _ = simulated_recording(m, n=600, soc0=0.7, uneven=uneven, seed=4)
     if bias:  # a sensor offset and a few missing voltages (predict only)

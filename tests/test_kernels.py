@@ -159,3 +159,28 @@ def test_temperature_model_tracks_cold_simulation():
     # a 25 degC-only look-up would bias the voltage by the 10 mohm R0 difference at 4 A
     assert np.sqrt(np.mean(tr.soc_error ** 2)) < 0.005
     assert np.sqrt(np.mean(tr.innovation_v ** 2)) < 0.0075  # voltage noise 5 mV (ekf_cases)
+
+
+def test_adaptive_model_error_widens_the_sigma():
+    # the voltage carries a slow model error of 50 mV (first-order Gauss-Markov, 300 s), five times
+    # the assumed 10 mV; covariance matching on the model-error state (Myers and Tapley 1976, from
+    # memory) must notice and make the sigma cover more of the error than the fixed magnitude does
+    from ekf_cases import drive_profile
+    from socfuse.models import Recording, simulate
+
+    m = tiny_model(n_rc=1)
+    t, i = drive_profile(7200, seed=1)
+    sim = simulate(m, t, i, soc0=0.9)
+    rng = np.random.default_rng(1)
+    a = np.exp(-1 / 300.0)
+    e = np.zeros(t.size)
+    for k in range(1, t.size):
+        e[k] = a * e[k - 1] + 0.05 * np.sqrt(1 - a * a) * rng.standard_normal()
+    rec = Recording(t, i, sim.voltage_v + e + rng.normal(0, 0.0015, t.size), None, sim.soc)
+    s = default_settings(m).with_(model_error_v=0.01)
+    fixed = run_ekf(m, rec, s, soc0=0.9)
+    adapt = run_ekf(m, rec, s.with_(model_error_adapt_s=600.0), soc0=0.9)
+    cov = lambda tr: np.mean(np.abs(tr.soc_error) <= 3 * tr.soc_sigma)  # noqa: E731
+    assert cov(adapt) > cov(fixed) + 0.3
+    assert adapt.soc_sigma[-1] > 1.5 * fixed.soc_sigma[-1]
+    assert np.sqrt(np.mean(adapt.soc_error ** 2)) <= np.sqrt(np.mean(fixed.soc_error ** 2))

@@ -20,6 +20,7 @@ import pytest
 
 from socfuse.estimator.filters import kernels as K
 from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters.settings import default_settings
 from socfuse.estimator.outputs.export_c import CFLAGS, export_c, find_c_compiler
 from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, simulate
 
@@ -75,12 +76,13 @@ def _bad_log(model):
 
 
 @pytest.mark.skipif(CC is None, reason="no C compiler")
-@pytest.mark.parametrize("soc0", [None, 0.55])  # from the first voltage; a hand-over 30 points low
-def test_python_and_c_take_the_same_decisions(tmp_path, soc0):
+@pytest.mark.parametrize("soc0,adapt", [(None, 0.0), (0.55, 0.0), (None, 600.0)])  # a hand-over 30 points low;
+def test_python_and_c_take_the_same_decisions(tmp_path, soc0, adapt):          # the adaptive model error on
     model = _model()
     rec = _bad_log(model)
-    tr = run_ekf(model, rec, soc0=soc0, monitor=True)
-    export_c(model, None, tmp_path, rec.slice(0, 50), measure=False)
+    s = default_settings(model).with_(model_error_adapt_s=adapt)
+    tr = run_ekf(model, rec, s, soc0=soc0, monitor=True)
+    export_c(model, s, tmp_path, rec.slice(0, 50), measure=False)
     (tmp_path / "driver.c").write_text(_DRIVER_C)
     b = subprocess.run([CC, *CFLAGS, "-o", str(tmp_path / "driver"), str(tmp_path / "driver.c"),
                         str(tmp_path / "socfuse_ekf.c"), "-lm"], capture_output=True, text=True, cwd=tmp_path)

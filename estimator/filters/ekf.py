@@ -106,6 +106,7 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_CAPERR] = s.capacity_error_frac
     prm[K.P_RERR] = s.resistance_error_ohm
     prm[K.P_VCORR] = s.noise_corr_s
+    prm[K.P_ADAPT] = s.model_error_adapt_s
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
     v_span = float(model.v_max_v - model.v_min_v)
     prm[K.P_IMAX] = K.I_MAX_C * float(model.capacity_ah)

@@ -78,7 +78,7 @@ from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "N_PRM", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "N_PRM", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor",
@@ -88,8 +88,8 @@ __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN"
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
 P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
 P_SE, P_TAUE, P_CAPERR, P_RERR, P_VCORR = 16, 17, 18, 19, 20
-P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC = 21, 22, 23, 24, 25
-N_PRM = 26
+P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC, P_ADAPT = 21, 22, 23, 24, 25, 26
+N_PRM = 27
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -100,6 +100,7 @@ NIS_ALPHA = 1.0 / 64.0   # weight of the newest NIS (running mean over about 64 
 NIS_CAP = 25.0           # one sample adds at most a 5-sigma innovation
 NIS_HIGH = 9.0           # mean NIS 9 = innovations of 3 sigma on average: the filter is inconsistent
 NIS_LOW = 4.0            # ... healthy again below this (hysteresis of the health flag)
+ADAPT_CAP = 8.0          # adaptive model-error variance: at most this many times sigma_m^2 added (3 sigma_m)
 P_FLOOR = 1e-12          # diagonal floor of P for estimated states (monitored runs)
 H_MAX = 1.5              # |hysteresis state| above this is not physical (it lives in -1..1)
 BIG = 1e30               # |value| at or above this counts as not finite (the C code's float range check)
@@ -576,6 +577,10 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     i_e = error_index(nx, prm)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
+    se2 = prm[P_SE] * prm[P_SE]
+    adapt = prm[P_ADAPT] if i_e >= 0 else 0.0
+    nu2_avg = 0.0   # adaptive model-error magnitude: running second moment of the state, its excess
+    excess = 0.0
     s2i = prm[P_IN] * prm[P_IN]
     s2 = s2i
     wf = 1.0
@@ -615,6 +620,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             qd[0] += ce2 * abs(g[0] * ue)
             if i_e >= 0:
                 qd[i_e] = cache[ke]
+                if adapt > 0.0:  # adapted magnitude: q_m = sigma_eff^2 (1 - a_m^2)
+                    qd[i_e] *= (se2 + excess) / se2
             if no_h_noise:
                 gh = g[i_h]
                 g[i_h] = 0.0
@@ -706,6 +713,21 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                         v = p[i, j] - ki * ph[j]
                         p[i, j] = v
                         p[j, i] = v
+                if adapt > 0.0:
+                    # covariance matching on the model-error state (Myers and Tapley, IEEE Trans.
+                    # Autom. Control 21, 1976, from memory): its second moment m^2 + P_mm, averaged
+                    # over the window ``adapt`` (s), should not exceed sigma_m^2; an excess (a model
+                    # worse than assumed) is added to sigma_m^2 in the state's process noise
+                    wa = 1.0
+                    if k > lo:
+                        dtk = time_s[k] - time_s[k - 1]
+                        wa = dtk / (adapt + dtk)
+                    nu2_avg += wa * (x[i_e] * x[i_e] + p[i_e, i_e] - nu2_avg)
+                    excess = nu2_avg - se2
+                    if not (excess > 0.0):
+                        excess = 0.0
+                    elif excess > ADAPT_CAP * se2:
+                        excess = ADAPT_CAP * se2
         else:
             innov_out[k] = np.nan
         project_soc(x, p, smin, smax)

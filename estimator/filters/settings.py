@@ -53,6 +53,13 @@ class FilterSettings:
         the previous one, and the current-noise variance of that interval, are multiplied by
         ``max(1, noise_corr_s / dt)``.  With the model-error state this makes the answer the
         same at 1, 10 or 100 Hz.  0 = every sample independent (rate dependent).
+    model_error_adapt_s : float
+        Window of the adaptive model-error magnitude, s: when the innovations are larger than
+        the filter's ``S`` on average over about this long, the excess variance is added to
+        ``model_error_v^2`` (covariance matching on the model-error state, capped at
+        ``kernels.ADAPT_CAP`` times it), so a model that is worse than assumed makes the filter
+        lean on counting and widen its sigma.  0 = fixed magnitude (the default: on the
+        reference cases it widened the sigma but also slowed the correction of a wrong start).
     resistance_error_ohm : float
         One-sigma error of the series resistance the model predicts with, ohm: adds
         ``(resistance_error_ohm * current)^2`` to the white voltage variance of each sample (a
@@ -138,6 +145,7 @@ class FilterSettings:
     capacity_error_frac: float = 0.0
     resistance_error_ohm: float = 0.0
     noise_corr_s: float = 0.0
+    model_error_adapt_s: float = 0.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -206,7 +214,7 @@ def default_settings(model) -> FilterSettings:
         gate_sigma=5.0, soc_min=0.0, soc_max=1.0, rest_current_a=c / 50.0, rest_min_s=3600.0,
         reseed=True, early_reseed_s=0.0, n_soc_grid=401,
         model_error_v=_model_error_v(model), model_error_tau_s=60.0, capacity_error_frac=0.02,
-        resistance_error_ohm=0.2 * r0_mid, noise_corr_s=1.0)
+        resistance_error_ohm=0.2 * r0_mid, noise_corr_s=1.0, model_error_adapt_s=0.0)
 
 
 def _model_error_v(model) -> float:
