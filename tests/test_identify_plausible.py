@@ -87,3 +87,22 @@ def test_demo_hysteresis_matches_the_truth(demo_result):
     assert h.gamma == pytest.approx(30.0, rel=0.5)
     # its centre line is the branch average
     assert demo_result.ocv_source == "average"
+
+
+def test_ocv_over_temperature_from_the_pulse_test_rests(repo):
+    # demo truth (invented, datasets/manifest.json): the OCV moves with temperature; the 5 degC row
+    # built from the 5 degC pulse test's rests is closer to the truth at 5 degC than the 25 degC curve
+    from socfuse.estimator.demo.truth import truth_ocv_curve
+
+    d = repo / "datasets"
+    res = identify(load_recording(d / "c48_c20_25degC.csv"),
+                   [load_recording(d / "c48_pulse_25degC.csv"), load_recording(d / "c48_pulse_05degC.csv")])
+    ocv = res.model.ocv
+    assert ocv.temperature_c is not None and len(ocv.temperature_c) == 2
+    truth = truth_ocv_curve()
+    z = np.linspace(0.1, 0.9, 81)
+    t_cold = float(ocv.temperature_c[0])
+    with_rows = np.sqrt(np.mean((ocv.voltage(z, t_cold) - truth.voltage(z, t_cold)) ** 2))
+    flat = np.sqrt(np.mean((ocv.voltage(z, float(ocv.temperature_c[-1])) - truth.voltage(z, t_cold)) ** 2))
+    assert with_rows < 0.7 * flat
+    assert res.model.provenance["ocv_temperature"]["rows"] == 2

@@ -2,6 +2,7 @@
 doi:10.17632/wykht8y7tg.1, CC BY 4.0).  Skips when the dataset is absent."""
 from __future__ import annotations
 
+import numpy as np
 import pytest
 
 from socfuse.models.identify.pipeline import identify
@@ -64,3 +65,25 @@ def test_open_loop_voltage_on_a_real_drive_cycle(real):
     # closer to it (measured: see the README figures)
     assert res.ocv_scores["rest"] < res.ocv_scores["average"]
     assert res.ocv_source in ("rest", "anchored")
+
+
+def test_ocv_and_resistance_over_temperature_from_the_cold_pulse_tests(realdata):
+    # Panasonic 18650PF HPPC tests at 25, 10 and 0 degC (cold/SOURCE.md): rested voltages sit below
+    # the 25 degC curve in the cold (entropic term; the dataset's own rest points, measured 7-22 mV at
+    # 10 degC and 15-33 mV at 0 degC), and resistance rises in the cold (Arrhenius behaviour of
+    # lithium-ion cells: common practice, no source)
+    cold = sorted((realdata / "cold").glob("*/hppc/*HPPC*"))
+    assert len(cold) == 2
+    res = identify(_load(realdata, C20), [_load(realdata, HPPC)] + [load_recording(p, preset="panasonic-18650pf")
+                                                                   for p in cold])
+    ocv = res.model.ocv
+    temps = np.asarray(ocv.temperature_c)
+    assert temps.size == 3 and temps[0] < 2.0 and 9.0 < temps[1] < 12.0
+    z = np.linspace(0.2, 0.8, 13)
+    d0 = ocv.voltage(z, temps[0]) - ocv.voltage(z, temps[2])
+    d10 = ocv.voltage(z, temps[1]) - ocv.voltage(z, temps[2])
+    assert np.all((-0.040 < d0) & (d0 < -0.005)), d0
+    assert np.all((-0.030 < d10) & (d10 < 0.0)), d10
+    assert np.median(d0) < np.median(d10)
+    r0 = res.model.r0_ohm
+    assert float(r0.at(0.5, temps[0])) > float(r0.at(0.5, temps[1])) > float(r0.at(0.5, temps[2]))
