@@ -184,6 +184,7 @@ def part_demo(work: Path) -> tuple[dict, str]:
             if math.isfinite(cov):
                 figs[f"lunch.offset.{m}.coverage_pct"] = 100.0 * cov
     figs.update(_footprint(out / "c" / "README.md"))
+    figs.update(_counting_drift())
     for sc in DEMO_SCENARIOS:
         for m in ("ekf", "coulomb", "ukf"):
             sub = s[(s["scenario"] == sc) & (s["method"] == m)]
@@ -212,6 +213,27 @@ def part_demo(work: Path) -> tuple[dict, str]:
         figs[f"tolerance.{meth}.p50"] = float(p50)
         figs[f"tolerance.{meth}.p95"] = float(p95)
     return figs, f"socfuse demo --out {out}"
+
+
+def _counting_drift() -> dict:
+    """How far plain coulomb counting ends below the truth on each demo day, points (a positive number).
+
+    Counted by scipy's trapezoid rule (``integrate.cumulative_trapezoid``) from the true start SOC with the
+    BMS current, the 4.8 Ah nameplate and the truth's coulombic efficiency on charge (manifest.json).
+    """
+    import numpy as np
+    from scipy.integrate import cumulative_trapezoid
+
+    from socfuse.models.loaders import load_recording
+
+    eta = float(json.loads((REPO / "datasets" / "manifest.json").read_text())["truth"]["coulombic_efficiency"])
+    out = {}
+    for day in ("lunch", "cold", "long"):
+        r = load_recording(REPO / "datasets" / f"c48_day_{day}.csv")
+        i = np.asarray(r.current_a, dtype=float)
+        q_ah = cumulative_trapezoid(i * np.where(i < 0, eta, 1.0), np.asarray(r.time_s, dtype=float), initial=0.0) / 3600
+        out[f"{day}.counting_drift_low"] = 100.0 * float(r.soc_ref[-1] - (r.soc_ref[0] - q_ah[-1] / 4.8))
+    return out
 
 
 def _footprint(path: Path) -> dict:
