@@ -40,7 +40,8 @@ Reference cases:
   ``datasets/physics.py`` when it is present; skipped with a note otherwise.
 
 Intermediate files (models, filters, derived recordings, traces, logs) are cached under
-``~/.cache/socfuse/generalisation`` (``--cache DIR``; ``--fresh`` starts over).  The last line is
+``~/.cache/socfuse/generalisation`` (``--cache DIR``; ``--fresh`` starts over); a case's cache is
+dropped automatically when the socfuse sources have changed since it was written.  The last line is
 exactly ``worst_ekf_rmse_pct=.. ekf_beats_baseline=K/N coverage_min=..`` over the nominal test rows
 (the ``tuned-on`` rows are shown but not counted).
 
@@ -299,15 +300,32 @@ def metrics(tr, after_s: float | None = None) -> dict:
 
 
 # ============================================================================ running a case
+def code_fingerprint() -> str:
+    """Hash of the socfuse sources (models/, estimator/, datasets/*.py): cached results of another
+    version of the code are not reused."""
+    h = hashlib.sha1()
+    for folder in ("models", "estimator", "datasets"):
+        for f in sorted((REPO / folder).rglob("*.py")):
+            h.update(str(f.relative_to(REPO)).encode())
+            h.update(f.read_bytes())
+    return h.hexdigest()[:16]
+
+
 def run_case(case: Case, cache: Path, quick: bool, verbose: bool, scenarios=("wrong_start", "offset"),
              only=None) -> list[dict]:
     """Rows of one case: identify, tune, then estimate every test recording with both methods.
 
     ``scenarios``: which of ``wrong_start`` and ``offset`` to run beside the nominal one (tests run
-    fewer to stay short); ``only``: names of the test recordings to run (default all).
+    fewer to stay short); ``only``: names of the test recordings to run (default all).  The case's
+    cached files are dropped when the code has changed since they were made (:func:`code_fingerprint`).
     """
     work = cache / case.name
+    stamp = work / "code_fingerprint.txt"
+    fp = code_fingerprint()
+    if work.is_dir() and (not stamp.is_file() or stamp.read_text().strip() != fp):
+        shutil.rmtree(work)
     work.mkdir(parents=True, exist_ok=True)
+    stamp.write_text(fp + "\n")
     cli = Cli(work / "cli.log", verbose)
     rows = []
     model = work / "model.json"
