@@ -602,8 +602,8 @@ def _scenario_figure(rec_name: str, scenario: str, traces: Mapping, bound=None):
     a_soc.set(xlabel="time (h)", ylabel="SOC (%)", title=f"SOC against reference: {rec_name}")
     lo, hi = a_soc.get_ylim()
     a_soc.set_ylim(max(lo, -5.0), min(hi, 105.0))
-    a_err.set(xlabel="time (h)", ylabel="SOC error (percentage points)",
-              title="error (band: own +-3 sigma; dotted: +-2 points, convergence; shaded: excursions)")
+    a_err.set(xlabel="time (h)", ylabel="SOC error (percentage points)")
+    a_err.set_title("error (band: own +-3 sigma; dotted: 2 points, converged; shaded: excursions)", fontsize=10)
     lim = a_err.get_ylim()
     a_err.set_ylim(max(lim[0], -30), min(lim[1], 30))
     a_res.set(xlabel="time (h)", ylabel="voltage residual (mV)", title="innovation (measured - predicted voltage)")
