@@ -21,7 +21,7 @@ from __future__ import annotations
 
 import pytest
 
-from test_generalisation import load_benchmark
+from generalisation_cases import load_benchmark
 
 
 _MODEL: dict = {}
@@ -32,8 +32,8 @@ def rows_model_json():
 
 
 @pytest.fixture(scope="module")
-def rows(realdata, repo, tmp_path_factory):
-    bench = load_benchmark(repo)
+def rows(realdata, tmp_path_factory):
+    bench = load_benchmark()
     case = bench.pan_case(realdata, "25", None)
     cache = tmp_path_factory.mktemp("pan25")
     out = bench.run_case(case, cache, quick=False, verbose=False,

@@ -17,29 +17,18 @@ Only the unseen recordings (``drive_2``, ``drive_3``) are asserted; ``drive_1`` 
 """
 from __future__ import annotations
 
-import importlib.util
 import os
-import sys
 
 import pytest
+
+from generalisation_cases import load_benchmark
 
 os.environ.setdefault("PYBAMM_DISABLE_TELEMETRY", "true")
 
 
-def load_benchmark(repo):
-    name = "socfuse_benchmark_generalisation"
-    if name in sys.modules:
-        return sys.modules[name]
-    spec = importlib.util.spec_from_file_location(name, repo / "benchmarks" / "generalisation.py")
-    mod = importlib.util.module_from_spec(spec)
-    sys.modules[name] = mod
-    spec.loader.exec_module(mod)
-    return mod
-
-
 @pytest.fixture(scope="module")
-def physics_rows(repo, tmp_path_factory):
-    bench = load_benchmark(repo)
+def physics_rows(tmp_path_factory):
+    bench = load_benchmark()
     try:
         import pybamm  # noqa: F401
     except ImportError:
