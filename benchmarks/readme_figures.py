@@ -58,7 +58,7 @@ FIGURES = REPO / "docs" / "readme_figures.json"
 DOCS = FIGURES.parent
 README = REPO / "README.md"
 SCHEMA = "socfuse.readme-figures/1"
-PARTS = ("demo", "energy", "montecarlo", "speed", "identify", "generalisation")
+PARTS = ("demo", "energy", "montecarlo", "speed", "identify", "generalisation", "energy_real")
 # a sign belongs to the number only after a space or "(": in "+-42" the 42 is unsigned
 MARKER = re.compile(r"((?:(?<=[\s(])[+-])?\d[\d,]*(?:\.\d+)?)<!--fig:([A-Za-z0-9_.\-]+)-->")
 DEMO_SCENARIOS = ("nominal", "soc0", "offset", "gain", "vnoise", "fade", "toffset", "vdrop", "ocv_offset", "combined")
@@ -456,9 +456,30 @@ def generalisation_table(data: dict, cases=("pan25", "pan10", "pan0", "nmc", "lf
     return "\n".join(out)
 
 
+def part_energy_real(work: Path) -> tuple[dict, str]:
+    """Remaining energy at the midpoint of the real 25 degC drive cycles (the real-data energy test's printout)."""
+    env = dict(os.environ, PYTHONPATH=str(REPO) + os.pathsep + os.environ.get("PYTHONPATH", ""))
+    res = subprocess.run([sys.executable, "-m", "pytest", "-q", "-s", "-p", "no:cacheprovider",
+                          "tests/test_energy_realdata.py", "-k", "midpoint"], cwd=REPO, env=env,
+                         capture_output=True, text=True)
+    pat = re.compile(r"^\s+(\S.*?): P_avg ([\d.]+) W, SOC_C ([\d.]+) %, delivered ([\d.]+) Wh, predicted ([\d.]+) Wh "
+                     r"\(([+-][\d.]+) %\), with the peak ([\d.]+) Wh \(([+-][\d.]+) %\)", re.M)
+    figs = {}
+    for m in pat.finditer(res.stdout):
+        name = m.group(1)
+        short = next((k for k in ("Cycle_1", "US06", "HWFTa") if k in name), re.sub(r"\W", "_", name))
+        figs[f"{short}.delivered_wh"] = float(m.group(4))
+        figs[f"{short}.avg_power_err_pct"] = float(m.group(6))
+        figs[f"{short}.peak_err_pct"] = float(m.group(8))
+    if res.returncode != 0 or not figs:
+        raise RuntimeError(f"tests/test_energy_realdata.py: exit {res.returncode}, {len(figs)} rows parsed "
+                           "(is the real dataset there? SOCFUSE_REALDATA)")
+    return figs, "python -m pytest -s tests/test_energy_realdata.py -k midpoint"
+
+
 NOTES: dict = {}
 RUNNERS = {"demo": part_demo, "energy": part_energy, "montecarlo": part_montecarlo, "speed": part_speed,
-           "identify": part_identify, "generalisation": part_generalisation}
+           "identify": part_identify, "generalisation": part_generalisation, "energy_real": part_energy_real}
 
 
 def update_readme(text: str, data: dict) -> str:
