@@ -13,7 +13,8 @@ def register(sub) -> None:
     p = sub.add_parser(
         "tune", help=COMMAND_HELP["tune"],
         description="Choose the EKF noise settings from recordings: by the innovation likelihood (no reference "
-                    "needed; whitened for time-correlated innovations by default) or, when every recording has a SOC "
+                    "needed; the white form when the filter carries its model-error state, else whitened for "
+                    "time-correlated innovations) or, when every recording has a SOC "
                     "reference, by the SOC error including a wrong start handed over mid-drive (so the voltage "
                     "feedback stays alive) with a coverage and NIS penalty. Settings stay inside physical bounds "
                     "for the cell. The last 30 % of each recording is held out and the start and tuned settings "
