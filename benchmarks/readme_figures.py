@@ -26,6 +26,8 @@ Parts (the numbers come from the documented paths, never from hand-picked option
   10 Hz and batched lines).
 - ``identify``: ``benchmarks/identify_speed.py`` (pulse-test timings) and the demo round trip of
   ``socfuse.identify`` against the truth simulator's parameters.
+- ``energy_real``: ``tests/test_energy_realdata.py -s -k midpoint`` (remaining energy predicted at the
+  midpoint of the real 25 degC drive cycles against the energy delivered to 2.5 V).
 - ``generalisation``: ``benchmarks/generalisation.py --json`` (every reference case of DESIGN.md
   section 7 through the CLI: demo, Panasonic 25/10/0 degC at 10 Hz, PyBaMM NMC and LFP); RMSE, max
   and coverage per case, recording, rate and method, and its headline line.
@@ -242,7 +244,9 @@ def _footprint(path: Path) -> dict:
     return {"c_state_bytes": _num(r"state RAM[^|]*\| (\d+) bytes", text, "C footprint"),
             "c_tables_bytes": _num(r"const tables \| (\d+) bytes", text, "C footprint"),
             "c_flops": _num(r"operations per step \| about (\d+)", text, "C footprint"),
-            "c_stack_bytes": _num(r"worst-case stack \| (\d+) bytes", text, "C footprint")}
+            "c_stack_bytes": _num(r"worst-case stack \| (\d+) bytes", text, "C footprint"),
+            # in units of 1e-6 so the README can print it as a plain number
+            "c_max_soc_diff_1e6": 1e6 * _num(r"max_soc_diff=([\d.e+-]+)`", text, "C harness")}
 
 
 def _bound_final(out: Path) -> dict:
