@@ -398,7 +398,8 @@ def part_identify(work: Path) -> tuple[dict, str]:
 
 def part_generalisation(work: Path) -> tuple[dict, str]:
     out = work / "generalisation.json"
-    text = _script("generalisation.py", "--json", str(out))
+    # a cache of its own, started fresh: cached traces of an earlier code version must not be reused
+    text = _script("generalisation.py", "--json", str(out), "--cache", str(work / "generalisation"), "--fresh")
     last = text.strip().splitlines()[-1]
     figs = {"worst_ekf_rmse_pct": _num(r"worst_ekf_rmse_pct=([\d.]+)", last, "generalisation"),
             "coverage_min_pct": _num(r"coverage_min=([\d.]+)", last, "generalisation")}
@@ -421,7 +422,7 @@ def part_generalisation(work: Path) -> tuple[dict, str]:
             if isinstance(v, (int, float)) and math.isfinite(v):
                 figs[f"{gen_key(r)}.{col}"] = float(v)
     NOTES["generalisation"] = notes
-    return figs, "python benchmarks/generalisation.py --json FILE"
+    return figs, "python benchmarks/generalisation.py --json FILE --cache DIR --fresh"
 
 
 def gen_key(row: dict) -> str:
