@@ -16,6 +16,7 @@ import numpy as np
 from socfuse.models.recording import Recording
 from socfuse.models.thevenin import CellModel
 from socfuse.models.ocv import OcvCurve
+from socfuse.models.identify.currentdep import current_dependence
 from socfuse.models.identify.curves import MIN_STEP_V, isotonic_increasing
 from socfuse.models.identify.hysteresis import fit_low_rate_hysteresis, judge_hysteresis
 from socfuse.models.identify.ocvsource import OCV_SOURCES, ocv_candidates
@@ -123,6 +124,12 @@ class IdentifyResult:
                 lines.append(f"current-sensor offset {off['pooled_a'] * 1000:.2f} mA +- "
                              f"{(off.get('pooled_sigma_a') or 0.0) * 1000:.2f} mA from the rests of "
                              f"{len(off.get('pooled_files') or [])} test(s), subtracted before counting charge")
+        for f in (prov.get("current_dependence") or {}).get("fits", []):
+            lines.append(f"current dependence at {f['temperature_c']:.1f} degC: 10 s pulse resistance "
+                         f"{f['pulse_resistance_low_ohm'] * 1000:.1f} mOhm at {f['current_low_a']:.2f} A, "
+                         f"{f['pulse_resistance_high_ohm'] * 1000:.1f} mOhm at {f['current_high_a']:.2f} A; "
+                         f"Butler-Volmer fit R_s {f['r_s_ohm'] * 1000:.1f} mOhm, I0 {f['i0_a']:.3g} A "
+                         f"(RMS {f['rms_v'] * 1000:.1f} mV; not used by R0)")
         hp = prov.get("hysteresis") or {}
         if hp:
             lines.append(f"hysteresis: {hp.get('reason', '')}")
@@ -481,6 +488,9 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
                 "rest_point_rms_v": info[chosen].get("rest_point_rms_v"), "choice": reason,
                 "candidates": {k: {"rest_point_rms_v": info[k].get("rest_point_rms_v"),
                                    "open_loop_rms_v": scores.get(k)} for k in cands}},
+        "current_dependence": {"test": "Butler-Volmer charge-transfer term fitted to the 10 s pulse drops of "
+                                        "several amplitudes (models.identify.currentdep); reported, not used "
+                                        "by the model's R0", "fits": current_dependence(results)},
         "ocv_temperature": ocv_temp_info or {"rows": 1, "note": "one temperature (the low-rate test's)"},
         "hysteresis_estimate": {"file": _file(ocv_test), "half_gap_v": o.hysteresis_v,
                                 "note": "median half-gap of the low-rate branches (includes the resistive drop)"},
