@@ -105,6 +105,8 @@ def test_verdict_names_the_winner_the_margin_and_a_reason():
     head = " ".join(verdict_sentences(s))
     assert "the EKF has the lower SOC RMSE in 1, the coulomb baseline in 2, and they are about equal in 1" in head
     assert "cold / nominal (1.39 vs 1.09 points)" in head
+    # faults: offset (EKF), toffset (baseline) -> 1 of 2; fault-free: cold (baseline), day_a (tie) -> 0 of 2
+    assert "Under injected faults it is lower in 1 of 2 cases; without a fault in 0 of 2." in head
     assert "median 35 % of the samples" in head  # EKF coverage 0.40, 0.30, 0.20, 0.90 -> median 0.35
 
 

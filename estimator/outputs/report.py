@@ -467,6 +467,13 @@ def verdict_sentences(summary, recordings=None) -> list[str]:
         out.append(f"Over {len(pairs)} recording x scenario cases ({n_rec} recording(s)) the EKF has the lower "
                    f"SOC RMSE in {wins}, the coulomb baseline in {len(loses)}, and they are about equal in {ties} "
                    f"(within {TIE_POINTS:.2f} points or {100 * TIE_FRACTION:.0f} %).")
+        spec = {(str(r["recording"]), str(r["scenario"])): str(r.get("faults", "") or "")
+                for _, r in summary.iterrows()} if "faults" in summary.columns else {}
+        faulty = [(v, t) for v, t in zip(pairs, tol) if _fault_names(spec.get((v.recording, v.scenario), ""))]
+        if faulty and len(faulty) < len(pairs):
+            fw = sum(1 for v, t in faulty if v.figures["coulomb"][0] - v.figures["ekf"][0] > t)
+            out.append(f"Under injected faults it is lower in {fw} of {len(faulty)} cases; without a fault in "
+                       f"{wins - fw} of {len(pairs) - len(faulty)}.")
         if loses:
             out.append("The EKF loses on: " + "; ".join(
                 f"{v.recording} / {v.scenario} ({v.figures['ekf'][0]:.2f} vs {v.figures['coulomb'][0]:.2f} points)"
