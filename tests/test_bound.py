@@ -68,7 +68,8 @@ def test_scalar_random_walk_analytic():
 def test_bound_on_the_cell_model_and_singular_q():
     model = tiny_model(n_rc=1)
     rec, sim = simulated_recording(model, n=1500, soc0=0.8, noise_v=0.005)
-    s = default_settings(model).with_(voltage_noise_v=0.005, gate_sigma=0.0, model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False)
+    s = default_settings(model).with_(voltage_noise_v=0.005, gate_sigma=0.0, model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False,
+                                  noise_corr_s=0.0)
     res = pcrb_soc_sigma(model, rec, s, soc0=0.8)
     assert res.along == "reference" and res.soc_sigma.shape == (rec.n,)
     # the truth reconstruction reproduces the simulated RC voltage (same sampling rule)

@@ -16,7 +16,8 @@ def test_rts_pass_matches_filterpy_on_a_rest():
     # (Rauch, Tung, Striebel 1965) applies directly: relaxation of an RC voltage after a load.
     m = tiny_model(n_rc=2, linear=True)
     s = default_settings(m).with_(gate_sigma=0.0, q_rc_v2_per_s=1e-6, soc_min=-1.0, soc_max=2.0, voltage_noise_v=0.01,
-                                  model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False)
+                                  model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False,
+                                  noise_corr_s=0.0)
     t = np.arange(600.0)
     i = np.zeros(t.size)
     sim = simulate(m, t, i, soc0=0.5, v_rc0=[0.05, 0.03])
@@ -39,7 +40,8 @@ def test_rts_pass_matches_filterpy_on_a_rest():
 def test_smoothed_soc_beats_filtered():
     m = tiny_model(n_rc=2)
     rec, _ = simulated_recording(m, n=1500, soc0=0.7, seed=8)
-    s = default_settings(m).with_(voltage_noise_v=0.01, model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False)
+    s = default_settings(m).with_(voltage_noise_v=0.01, model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False,
+                                  noise_corr_s=0.0)
     rec = rec.with_(voltage_v=np.concatenate([[np.nan], rec.voltage_v[1:]]))  # no hand-over check: keep the wrong start
     f = run_ekf_store(m, rec, s, soc0=0.6)[0]
     r = rts_smooth(m, rec, s, soc0=0.6)
