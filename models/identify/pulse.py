@@ -692,6 +692,11 @@ def _level_table(res: PulseTestResult, n_rc: int, smooth: bool = True):
     for lv in levels:
         ps = [p for p in res.pulses if p.level == lv]
         s = float(np.median([p.soc for p in ps]))
+        # a pulse held at a voltage limit (constant voltage, its current decaying) is no current step:
+        # its edge and relaxation do not measure R0 or the RC pairs when other pulses of the level do
+        free = [p for p in ps if not p.pulse.limited]
+        if any(p.pulse.kind == "pulse" for p in free):
+            ps = free
         r0 = [p.r0_ohm[n_rc] for p in ps if n_rc in p.r0_ohm and p.pulse.kind == "pulse"]
         if not r0:
             r0 = [p.r0_edge_ohm for p in ps if np.isfinite(p.r0_edge_ohm) and p.r0_edge_ohm > 0]
