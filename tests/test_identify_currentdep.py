@@ -9,9 +9,7 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from socfuse.models.identify.currentdep import current_dependence, fit_butler_volmer
-from socfuse.models.identify.pulse import identify_pulse_test
-from socfuse.models.loaders import load_recording
+from socfuse.models.identify.currentdep import fit_butler_volmer
 
 
 def test_fit_recovers_the_butler_volmer_parameters():
@@ -26,17 +24,3 @@ def test_fit_recovers_the_butler_volmer_parameters():
     assert f["i0_a"] == pytest.approx(0.4, rel=1e-3)
     assert f["rms_v"] < 1e-8
     assert fit_butler_volmer([1.0, 1.2, 1.5], [0.1, 0.12, 0.15], 25.0) is None  # too narrow a span
-
-
-def test_cold_pulse_resistance_falls_with_current(realdata):
-    # Panasonic 18650PF 5-pulse HPPC at 0 degC: the 10 s pulse resistance at 1.45 A is well above
-    # that at 17.4 A, and the exchange current is lower than at 25 degC (Arrhenius-like)
-    fits = {}
-    for rel in ("cold/0degC/hppc/05-20-17_10.44 0degC_5pulse_HPPC_Pan18650PF.mat",
-                "hppc/03-11-17_08.47 25degC_5Pulse_HPPC_Pan18650PF.mat"):
-        res = identify_pulse_test(load_recording(realdata / rel, preset="panasonic-18650pf"), 2.9)
-        fits[round(res.temperature_c)] = current_dependence([res])[0]
-    cold, warm = fits[1], fits[26]
-    assert cold["pulse_resistance_low_ohm"] > 1.2 * cold["pulse_resistance_high_ohm"]
-    assert cold["i0_a"] < warm["i0_a"]
-    assert cold["rms_v"] < 0.02

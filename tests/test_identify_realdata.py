@@ -87,3 +87,10 @@ def test_ocv_and_resistance_over_temperature_from_the_cold_pulse_tests(realdata)
     assert np.median(d0) < np.median(d10)
     r0 = res.model.r0_ohm
     assert float(r0.at(0.5, temps[0])) > float(r0.at(0.5, temps[1])) > float(r0.at(0.5, temps[2]))
+    # 5-pulse HPPC: at 0 degC the 10 s pulse resistance falls with the pulse current (Butler-Volmer
+    # charge transfer; Bard and Faulkner 2001, ch. 3) and the exchange current is below 25 degC's
+    fits = {round(f["temperature_c"]): f for f in res.model.provenance["current_dependence"]["fits"]}
+    cold, warm = fits[round(temps[0])], fits[round(temps[2])]
+    assert cold["pulse_resistance_low_ohm"] > 1.2 * cold["pulse_resistance_high_ohm"]
+    assert cold["i0_a"] < warm["i0_a"]
+    assert cold["rms_v"] < 0.02
