@@ -17,6 +17,7 @@ from socfuse.models.recording import Recording
 from socfuse.models.thevenin import CellModel
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.identify.currentdep import current_dependence
+from socfuse.models.identify.usable import usable_capacity_table
 from socfuse.models.identify.curves import MIN_STEP_V, isotonic_increasing
 from socfuse.models.identify.hysteresis import fit_low_rate_hysteresis, judge_hysteresis
 from socfuse.models.identify.ocvsource import OCV_SOURCES, ocv_candidates
@@ -130,6 +131,11 @@ class IdentifyResult:
                          f"{f['pulse_resistance_high_ohm'] * 1000:.1f} mOhm at {f['current_high_a']:.2f} A; "
                          f"Butler-Volmer fit R_s {f['r_s_ohm'] * 1000:.1f} mOhm, I0 {f['i0_a']:.3g} A "
                          f"(RMS {f['rms_v'] * 1000:.1f} mV; not used by R0)")
+        rows = (prov.get("usable_capacity") or {}).get("rows", [])
+        for tc in sorted({r["temperature_c"] for r in rows}):
+            parts = [f"{r['c_rate']:g}C {r['usable_ah']:.3f} Ah" for r in rows if r["temperature_c"] == tc]
+            lines.append(f"usable capacity from full at {tc:.1f} degC (to {m.v_min_v:.2f} V, steady load): "
+                         + ", ".join(parts))
         hp = prov.get("hysteresis") or {}
         if hp:
             lines.append(f"hysteresis: {hp.get('reason', '')}")
@@ -550,6 +556,13 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
         prov = dict(prov)
         prov["validation"] = [v.as_dict() for v in vals]
         model = model.with_(provenance=prov)
+    # ---- usable capacity at each test temperature and load (steady-state Thevenin estimate)
+    temps_tested = sorted({round(r.temperature_c, 1) for r in results})
+    prov = dict(model.provenance)
+    prov["usable_capacity"] = {"method": "models.identify.usable: SOC where OCV(z,T) - I (R0 + sum R_j) meets "
+                                         "v_min; from full, on the low-rate SOC scale",
+                               "rows": usable_capacity_table(model, temps_tested)}
+    model = model.with_(provenance=prov)
     return IdentifyResult(model, o, tuple(results), n_rc, n_rc_reason, chosen, reason, cands, scores,
                           tuple(pulse_power_table(results, v_min, v_max)), ref_result, vals, tuple(notes), info)
 
