@@ -58,7 +58,7 @@ of the objective; after the search the start and the tuned settings are compared
 windows (and on any ``holdout_recs`` given, recordings the search never saw).  The result is
 ``refused`` with the reasons when the tuned filter is worse than the start by that evidence: a
 higher hold-out objective (by more than 1e-3 nats per innovation, or 5 % for ``soc-error``), a
-hold-out SOC RMSE higher by more than 10 % and 0.1 point (when there is a reference), a
+hold-out SOC RMSE higher by more than 5 % and 0.05 point (when there is a reference), a
 coverage that falls below 90 % (and by more than 2 points), or (``soc-error``) a worse recovery
 from the wrong start.  ``socfuse tune`` then exits 2 and writes
 nothing unless asked to (``--accept-worse``).
@@ -749,9 +749,10 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         tol = 1e-3 if objective == "likelihood" else 0.05 * abs(hold_b["objective"])
         if changed and hold_a["objective"] > hold_b["objective"] + tol:
             reasons.append(f"the hold-out objective rose {hold_b['objective']:.5g} -> {hold_a['objective']:.5g}")
-        # a rise of more than 10 % and 0.1 point (common practice, no source): smaller changes on a
-        # 30 % window are within what one recording can tell apart
-        if changed and hold_b.get("rmse") is not None and hold_a["rmse"] > 1.10 * hold_b["rmse"] + 1e-3:
+        # a rise of more than 5 % and 0.05 point (common practice, no source).  A looser 10 % + 0.1 point
+        # let through a tuning on the PyBaMM NMC drive_1 (hold-out 0.26 -> 0.34 %) that took the unseen
+        # drive_2 from 1.1 to 7.2 %
+        if changed and hold_b.get("rmse") is not None and hold_a["rmse"] > 1.05 * hold_b["rmse"] + 5e-4:
             reasons.append(f"the hold-out SOC RMSE rose {100 * hold_b['rmse']:.3f} % -> {100 * hold_a['rmse']:.3f} %")
         wb, wa = hold_b.get("wrong_start_rmse"), hold_a.get("wrong_start_rmse")
         if changed and wb is not None and wa is not None and wa > max(wb, 0.015) + 0.005:
