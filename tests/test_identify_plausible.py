@@ -106,3 +106,28 @@ def test_ocv_over_temperature_from_the_pulse_test_rests(repo):
     flat = np.sqrt(np.mean((ocv.voltage(z, float(ocv.temperature_c[-1])) - truth.voltage(z, t_cold)) ** 2))
     assert with_rows < 0.7 * flat
     assert res.model.provenance["ocv_temperature"]["rows"] == 2
+
+
+def test_flat_hysteretic_cell_gets_two_branches():
+    # an invented LFP-like cell (flat plateau, Plett hysteresis M = 15 mV, gamma = 25) simulated with
+    # models.simulate: identification puts the hysteresis in the model (two branches around the
+    # average) instead of averaging it away; no chemistry voltage is assumed anywhere
+    from socfuse.models import CellModel, Hysteresis, OcvCurve, RcPair, Recording, simulate
+    from socfuse.models.identify.synthetic import hppc_profile, low_rate_profile
+
+    soc = np.linspace(0.0, 1.0, 21)
+    ocv_v = 3.2 + 0.12 * soc + 0.35 * np.exp(-soc / 0.03) * -1 + 0.3 * np.exp(-(1 - soc) / 0.03)
+    truth = CellModel(2.3, OcvCurve(soc, ocv_v), ParamTable(soc, 0.02 + 0 * soc),
+                      (RcPair(ParamTable(soc, 0.01 + 0 * soc), ParamTable(soc, 30.0 + 0 * soc)),),
+                      hysteresis=Hysteresis(25.0, 0.015), v_min_v=2.8, v_max_v=3.55)
+    t, i = low_rate_profile(2.3, rate_c=0.05, dt_s=60.0)
+    c20 = Recording(t, i, simulate(truth, t, i, soc0=1.0, h0=1.0).voltage_v, name="flat c20")
+    t, i = hppc_profile(2.3, pulse_currents_a=(2.3,), rest_s=1800.0, levels=(0.9, 0.7, 0.5, 0.3, 0.1))
+    sim = simulate(truth, t, i, soc0=1.0, h0=1.0)
+    pulse = Recording(t, i, sim.voltage_v, soc_ref=sim.soc, name="flat hppc")
+    res = identify(c20, [pulse], rc_pairs=1)
+    h = res.model.hysteresis
+    assert h is not None, res.model.provenance["hysteresis"]["reason"]
+    assert h.max_v == pytest.approx(0.015, abs=0.002)
+    z = np.linspace(0.2, 0.8, 25)
+    assert np.max(np.abs(res.model.ocv.voltage(z) - truth.ocv.voltage(z))) < 0.003
