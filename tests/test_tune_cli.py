@@ -22,9 +22,27 @@ def files(tmp_path_factory):
     return d
 
 
+def _white_start(files):
+    """Start settings for the simulated day: the simulator's noise is white and its model exact, so
+    the model-error, capacity, resistance and noise-correlation terms are off."""
+    import dataclasses
+
+    from socfuse.estimator.filters.settings import FilterSettings, default_settings, save_settings
+    from socfuse.models.modelfile import load_model
+
+    names = {f.name for f in dataclasses.fields(FilterSettings)}
+    off = {k: 0.0 for k in ("model_error_v", "capacity_error_frac", "resistance_error_ohm", "noise_corr_s",
+                            "model_error_adapt_s") if k in names}
+    path = files / "white_start.json"
+    if not path.exists():
+        save_settings(default_settings(load_model(files / "model.json")).with_(**off), path)
+    return path
+
+
 def test_tune_writes_filter_json(files, capsys):
     out = files / "filter.json"
     code = main(["tune", "--model", str(files / "model.json"), str(files / "day.csv"), "-o", str(out),
+                 "--filter", str(_white_start(files)),
                  "--params", "voltage_noise_v", "current_noise_a", "--max-evaluations", "40", "--quiet"])
     cap = capsys.readouterr()
     text = cap.out
