@@ -71,8 +71,12 @@ Current-sensor noise reaches the voltage only through the SOC and RC states (``Q
 sigma_i^2``), so it is strongly confounded with ``q_soc_per_s`` and ``q_rc_v2_per_s``.  With the
 model-error state of the filter (``model_error_v``, ``model_error_tau_s`` in
 :class:`FilterSettings`) its magnitude and correlation time are tuned instead of a white
-voltage noise that absorbs model error.  On a cell whose true behaviour is richer than the
-filter's model (the usual case) tuned values are *effective* values, not data-sheet figures.
+voltage noise that absorbs model error.  ``noise_corr_s`` is not tuned: on a recording with one
+sample interval ``dt`` it only scales the white variance by ``noise_corr_s / dt``, exactly as
+``voltage_noise_v`` does, so the two cannot be told apart (the tuned ``voltage_noise_v`` is the
+one to read with the ``noise_corr_s`` of the start settings).  On a cell whose true behaviour is
+richer than the filter's model (the usual case) tuned values are *effective* values, not
+data-sheet figures.
 """
 from __future__ import annotations
 
