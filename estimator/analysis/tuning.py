@@ -59,8 +59,9 @@ windows (and on any ``holdout_recs`` given, recordings the search never saw).  T
 ``refused`` with the reasons when the tuned filter is worse than the start by that evidence: a
 higher hold-out objective (by more than 1e-3 nats per innovation, or 5 % for ``soc-error``), a
 hold-out SOC RMSE higher by more than 5 % and 0.05 point (when there is a reference), a
-coverage that falls below 90 % (and by more than 2 points), or (``soc-error``) a worse recovery
-from the wrong start.  ``socfuse tune`` then exits 2 and writes
+coverage that falls below 90 % (and by more than 2 points), or a worse recovery from the
+mid-drive wrong start (whenever the recordings have a reference; with the likelihood objective it
+is run for this check only).  ``socfuse tune`` then exits 2 and writes
 nothing unless asked to (``--accept-worse``).
 
 Search: bounded Nelder-Mead (``scipy.optimize.minimize``) on ``log10`` of each parameter, with an
@@ -739,6 +740,14 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
 
     # ---- hold-out evidence
     hb, ha = sc_before["hold"], sc_after["hold"]
+    if lay.has_ref and best_key != key0 and not lay.ws_hold.size:
+        # the search did not run the wrong start (likelihood objective): run it for the check only
+        lay_ws = _layout(model, recs, unseen, soc0s, holdout_fraction, True)
+        if lay_ws.ws_hold.size:
+            for sc, st in ((sc_before, start), (sc_after, tuned)):
+                extra = _scores(ekf_raw(model, lay_ws.recs, st, lay_ws.soc0s), lay_ws, likelihood, confidence)
+                if "wrong_start_rmse" in extra["hold"]:
+                    sc["hold"]["wrong_start_rmse"] = extra["hold"]["wrong_start_rmse"]
     reasons, warnings = [], []
     hold_b, hold_a = {}, {}
     if hb:
@@ -758,7 +767,8 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         # drive_2 from 1.1 to 7.2 %
         if changed and hold_b.get("rmse") is not None and hold_a["rmse"] > 1.05 * hold_b["rmse"] + 5e-4:
             reasons.append(f"the hold-out SOC RMSE rose {100 * hold_b['rmse']:.3f} % -> {100 * hold_a['rmse']:.3f} %")
-        wb, wa = hold_b.get("wrong_start_rmse"), hold_a.get("wrong_start_rmse")
+        wb, wa = hb.get("wrong_start_rmse"), ha.get("wrong_start_rmse")
+        hold_b["wrong_start_rmse"], hold_a["wrong_start_rmse"] = wb, wa
         if changed and wb is not None and wa is not None and wa > max(wb, 0.015) + 0.005:
             reasons.append(f"a wrong start mid-drive is corrected worse: RMSE after 600 s {100 * wb:.2f} % -> "
                            f"{100 * wa:.2f} % (the voltage feedback is weakened)")
