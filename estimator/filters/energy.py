@@ -20,9 +20,11 @@ SOC arguments outside [0, 1] are clipped to [0, 1].
 Speed: build an :class:`EnergyTable` once with :func:`energy_table` and call its methods on
 whole arrays (one ``searchsorted`` per temperature row).  The module-level functions
 (:func:`soc_c_to_e`, :func:`soc_e_to_c`, :func:`remaining_energy_wh`, :func:`rest_energy_wh`)
-reuse one table per model object through a ``weakref.WeakKeyDictionary``: an entry lives only
-as long as its (immutable) model, so the cache is bounded by the models alive and can never
-change a result.
+reuse one table per model object through a ``weakref.WeakKeyDictionary`` (an entry lives only
+as long as its immutable model), and the exact row integrals, the costly part, per OCV curve
+through a bounded cache keyed by the curve's content (a digest of its breakpoints and values, not
+the object's identity): models that differ only in capacity (a Monte Carlo study, a batch of
+cells with capacity scales) share one curve integral, and the cache can never change a result.
 
 Energy at a load (:func:`usable_energy`): the model is discharged from a given state at a
 constant current or a constant power until the *terminal* voltage reaches ``model.v_min_v``
@@ -42,15 +44,15 @@ energy and power scale by ``N * M`` and the runtime is that of one cell at ``I /
 """
 from __future__ import annotations
 
+import hashlib
 import re
 import weakref
-from dataclasses import dataclass
+from collections import OrderedDict
+from dataclasses import dataclass, replace
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
 from socfuse.models.tables import as_axis, clamp_weights
-from socfuse.models.identify.fastsim import simulate_fast
 from socfuse.models.thevenin import SECONDS_PER_HOUR, CellModel
 
 __all__ = [
@@ -84,6 +86,8 @@ class _RowIntegral:
 
     @classmethod
     def build(cls, soc: np.ndarray, ocv_v: np.ndarray) -> "_RowIntegral":
+        from scipy.interpolate import PchipInterpolator  # here: the estimate path need not import it
+
         f = PchipInterpolator(soc, ocv_v)
         anti = f.antiderivative()
         lo, hi = float(soc[0]), float(soc[-1])
@@ -252,6 +256,21 @@ class EnergyTable:
 
 
 _TABLES: "weakref.WeakKeyDictionary[CellModel, EnergyTable]" = weakref.WeakKeyDictionary()
+_CURVES: "OrderedDict[bytes, EnergyTable]" = OrderedDict()   # by OCV curve content, least recently used first
+CURVE_CACHE_SIZE = 32
+
+
+def _curve_key(ocv) -> bytes:
+    """Digest of an OCV curve's content (breakpoints, values, temperatures)."""
+    h = hashlib.blake2b(digest_size=20)
+    for a in (ocv.soc, ocv.ocv_v, ocv.temperature_c):
+        if a is None:
+            h.update(b"none")
+        else:
+            a = np.ascontiguousarray(a, dtype=float)
+            h.update(repr(a.shape).encode())
+            h.update(a.tobytes())
+    return h.digest()
 
 
 def energy_table(model: CellModel, temperature_c: float | None = None) -> EnergyTable:
@@ -268,10 +287,30 @@ def energy_table(model: CellModel, temperature_c: float | None = None) -> Energy
         if tab is not None:
             return tab
     ocv = model.ocv
-    tab = EnergyTable.from_points(ocv.soc, ocv.ocv_v, model.capacity_ah, ocv.temperature_c, temperature_c)
+    key = _curve_key(ocv)
+    base = _CURVES.get(key)
+    if base is None:
+        base = EnergyTable.from_points(ocv.soc, ocv.ocv_v, model.capacity_ah, ocv.temperature_c)
+        _CURVES[key] = base
+        while len(_CURVES) > CURVE_CACHE_SIZE:
+            _CURVES.popitem(last=False)
+    else:
+        _CURVES.move_to_end(key)
+    cap = model.capacity_ah
+    if not (np.isfinite(cap) and cap > 0):
+        raise EnergyError(f"capacity_ah must be positive and finite, got {cap}")
+    t_def = DEFAULT_TEMPERATURE_C if temperature_c is None else float(temperature_c)
+    tab = base if (base.capacity_ah == float(cap) and base.default_temperature_c == t_def) else replace(
+        base, capacity_ah=float(cap), default_temperature_c=t_def)
     if temperature_c is None:
         _TABLES[model] = tab
     return tab
+
+
+def _simulate_fast(*args, **kwargs):
+    from socfuse.models.identify.fastsim import simulate_fast  # here: the estimate path need not import it
+
+    return simulate_fast(*args, **kwargs)
 
 
 def soc_c_to_e(model: CellModel, soc, temperature_c=None):
@@ -502,7 +541,7 @@ def usable_energy(model: CellModel, *, current_a: float | None = None, power_w: 
         # first guess: current at the OCV along a coulomb count at P / OCV(soc0)
         i_prof = np.full(time_s.shape, p_cell / float(model.ocv.voltage(soc0, temp)))
         for _ in range(int(max_iter)):
-            sim = simulate_fast(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
+            sim = _simulate_fast(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
             cross = _first_crossing(_under_peak(model, sim, i_prof, temp, peak_cell, peak_duration_s),
                                     sim.soc, model.v_min_v)
             last = sim.voltage_v.size if cross is None else cross[0] + 2
@@ -520,7 +559,7 @@ def usable_energy(model: CellModel, *, current_a: float | None = None, power_w: 
                               "the load may exceed the cell's maximum power")
     else:
         i_prof = np.full(time_s.shape, i_cell)
-    sim = simulate_fast(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
+    sim = _simulate_fast(model, time_s, i_prof, temp, soc0=soc0, v_rc0=v_rc0)
     v, soc = sim.voltage_v, sim.soc
     cross = _first_crossing(_under_peak(model, sim, i_prof, temp, peak_cell, peak_duration_s), soc, model.v_min_v)
     if cross is None:  # pragma: no cover - t_end covers SOC 0 by construction
