@@ -16,7 +16,9 @@ def test_without_rests_equals_cumulative_trapezoid():
     t, i = drive_profile(2000, seed=3, uneven=True)
     i = np.abs(i) + 0.5  # discharge only, never at rest
     rec = Recording(t, i, np.full(t.size, 3.7))
-    tr = run_coulomb(m, rec, soc0=0.95)
+    # the profile has a 40 s gap; the gap rule (variance widened, count restarted from the voltage)
+    # is off here: the reference is the plain trapezoid integral
+    tr = run_coulomb(m, rec, default_settings(m).with_(gap_s=0.0), soc0=0.95)
     # scipy.integrate.cumulative_trapezoid: the trapezoid rule is our integration rule (1 Ah = 3600 C)
     ref = 0.95 - cumulative_trapezoid(i, t, initial=0.0) / (4.8 * 3600.0)
     np.testing.assert_allclose(tr.soc, ref, rtol=0, atol=1e-12)

@@ -69,8 +69,9 @@ def _filterpy_run(m, su, rec, x0, p0):
             ik, tk = i[k], np.nan
             kf.update(np.array([[v[k]]]), HJacobian=lambda x: su.measure(x[:, 0], ik, tk)[1].reshape(1, -1),
                       Hx=lambda x: np.array([[su.measure(x[:, 0], ik, tk)[0]]]),
-                      R=np.array([[(s.voltage_noise_v ** 2 + (s.resistance_error_ohm * ik) ** 2)
-                                   * (max(1.0, s.noise_corr_s / (t[k] - t[k - 1])) if k > 0 else 1.0)]]))
+                      R=np.array([[s.voltage_noise_v ** 2 * (max(1.0, s.noise_corr_s / (t[k] - t[k - 1])) if k else 1.0)
+                                   + (s.resistance_error_ohm * ik) ** 2
+                                   * (max(1.0, s.resistance_error_corr_s / (t[k] - t[k - 1])) if k else 1.0)]]))
         xs.append(kf.x[:, 0].copy())
         ps.append(kf.P.copy())
     return np.array(xs), np.array(ps)
@@ -88,7 +89,7 @@ def test_matches_filterpy_every_step(n_rc, bias, uneven, new):
     # state, current-dependent R, capacity term; its adaptive magnitude is no part of the reference
     # filter and is off here), else white voltage noise only
     s = default_settings(m).with_(gate_sigma=0.0, soc_min=-1.0, soc_max=2.0, estimate_bias=bias,
-                                  q_rc_v2_per_s=1e-6, model_error_adapt_s=0.0, **({} if new else WHITE))
+                                  q_rc_v2_per_s=1e-6, model_error_adapt_s=0.0, gap_s=0.0, **({} if new else WHITE))
     assert (setup(m, s).i_e >= 0) == new
     rec, _ = simulated_recording(m, n=600, soc0=0.7, uneven=uneven, seed=4)
     if bias:  # a sensor offset and a few missing voltages (predict only)

@@ -6,8 +6,8 @@ defined once (``estimator/filters/kernels.py``: ``check_inputs``, ``ekf_run_moni
 ``ST_*`` status bits and limits; the C header's status bits and limits are generated from them).
 Here one bad log - current spikes, an implausible and a missing voltage, an implausible
 temperature, a current logged far too large (the RC states leave their physical range: reset),
-and a voltage sensor stuck 0.4 V high (NIS far above its chi-square mean: fallback, then
-recovery) - goes through :func:`run_ekf` with ``monitor=True`` and through the compiled C
+a voltage sensor stuck 0.4 V high (NIS far above its chi-square mean: fallback, then recovery)
+and a logging gap while working - goes through :func:`run_ekf` with ``monitor=True`` and through the compiled C
 (gcc, C99, float32), and the per-sample status bits must be identical.  The reference for the
 decisions is the C code itself, a separate implementation in another language and precision.
 """
@@ -72,7 +72,9 @@ def _bad_log(model):
     temp[110] = 900.0                          # implausible temperature: 25 degC used
     i_log[500:520] = 450.0                     # within 100 C but the RC state leaves its range: reset
     v[900:1300] += 0.4                         # voltage sensor stuck high: fallback, then recovery
-    return Recording(t, i_log, v, temp, name="bad log")
+    keep = np.ones(n, bool)
+    keep[1600:1900] = False                    # a 5 min logging gap while working
+    return Recording(t[keep], i_log[keep], v[keep], temp[keep], name="bad log")
 
 
 @pytest.mark.skipif(CC is None, reason="no C compiler")
@@ -97,7 +99,7 @@ def test_python_and_c_take_the_same_decisions(tmp_path, soc0, adapt):          #
     c_status = c[:, 0].astype(np.int64)
     py_status = tr.status.copy()
     # every path was taken
-    for bit in ("rej_current", "rej_voltage", "rej_temp", "gated", "fallback", "reset"):
+    for bit in ("rej_current", "rej_voltage", "rej_temp", "gated", "fallback", "reset", "gap"):
         assert np.any(py_status & K.STATUS_BITS[bit]), bit
     # identical decisions, sample by sample (the baseline's reseed bit is left out: the stream sees a
     # rest's end one sample later, and this log has no hour-long rest anyway)

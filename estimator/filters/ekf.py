@@ -107,6 +107,8 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_RERR] = s.resistance_error_ohm
     prm[K.P_VCORR] = s.noise_corr_s
     prm[K.P_ADAPT] = s.model_error_adapt_s
+    prm[K.P_GAP] = s.gap_s
+    prm[K.P_RCORR] = s.resistance_error_corr_s
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
     v_span = float(model.v_max_v - model.v_min_v)
     prm[K.P_IMAX] = K.I_MAX_C * float(model.capacity_ah)
@@ -179,19 +181,8 @@ def handover(soc0: float, sig0: float, z_v: float, sig_v: float) -> tuple[float,
 
 
 def _soc_from_voltage(su: EkfSetup, v: float, i: float, t: float) -> tuple[float, float]:
-    s = su.settings
-    tab = su.tables
-    pk = tab.packed
-    # first guess without the drop, then one refinement with R0 at that SOC
-    z = K.ocv_inverse(pk, v, t, tab.t_min, tab.t_step)
-    r0 = K.table_value(pk, 2, z, t, tab.t_min, tab.t_step)
-    z = K.ocv_inverse(pk, v + r0 * i, t, tab.t_min, tab.t_step)
-    r0 = K.table_value(pk, 2, z, t, tab.t_min, tab.t_step)
-    r_rc = sum(K.table_value(pk, 4 + j, z, t, tab.t_min, tab.t_step) for j in range(tab.n_rc))
-    _, slope = K.ocv_lookup(pk, z, t, tab.t_min, tab.t_step)
-    sv2 = s.voltage_noise_v ** 2 + s.model_error_v ** 2 + (r0 * i) ** 2 + (r_rc * i) ** 2 + tab.hyst_max_v ** 2
-    sig = float(np.clip(np.sqrt(sv2) / max(abs(slope), 1e-3), 0.01, 0.5))
-    return float(z), sig
+    z, sig = K.soc_from_voltage(su.tables.packed, su.n_rc, su.prm, float(v), float(i), float(t))
+    return float(z), float(sig)
 
 
 def _prior(su: EkfSetup, z0: float, sig0: float):

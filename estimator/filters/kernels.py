@@ -35,9 +35,11 @@ Resistance uncertainty: the white measurement variance of sample ``k`` is ``R_k 
 (sigma_R i_k)^2`` (``sigma_R`` = ``prm[P_RERR]``, ohm): an error in R0 (and in the fast part of
 the RC response) shows at once when the current steps, in proportion to the current, so a
 voltage under heavy load says less about the OCV than one near rest (heteroscedastic noise,
-common practice, no source).  The gate uses the same ``S``.  That white part is band-limited:
-samples closer than ``tau_v = prm[P_VCORR]`` (s) are not independent, so ``R_k`` is multiplied by
-``max(1, tau_v / dt_k)`` (:func:`white_factor`; "noise scaled by the correlation time", the
+common practice, no source).  The gate uses the same ``S``.  Both white parts are band-limited:
+samples closer than ``tau_v = prm[P_VCORR]`` (s) are not independent, so the sensor part is
+multiplied by ``max(1, tau_v / dt_k)``, and the resistance part by ``max(1, tau_R / dt_k)`` with
+its own ``tau_R = prm[P_RCORR]`` (:func:`resistance_factor`: it follows the current, which holds a
+level for seconds) (:func:`white_factor`; "noise scaled by the correlation time", the
 equivalent-bandwidth argument of Gelb 1974, sec. 3.8, cited from memory): a recording sampled
 faster than ``1 / tau_v`` (or interpolated to a higher rate) carries no more white-noise
 information per second than one sampled at ``1 / tau_v``.  The first sample uses factor 1.  The
@@ -78,7 +80,7 @@ from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "N_PRM", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "N_PRM", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor",
@@ -88,8 +90,8 @@ __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN"
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
 P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
 P_SE, P_TAUE, P_CAPERR, P_RERR, P_VCORR = 16, 17, 18, 19, 20
-P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC, P_ADAPT = 21, 22, 23, 24, 25, 26
-N_PRM = 27
+P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC, P_ADAPT, P_GAP, P_RCORR = 21, 22, 23, 24, 25, 26, 27, 28
+N_PRM = 29
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -120,9 +122,10 @@ ST_FALLBACK = 0x20      # output is the coulomb-counting baseline
 ST_RESET = 0x40         # filter re-initialised from the baseline (non-finite or unphysical values)
 ST_WAITING = 0x80       # not started: no valid voltage yet and no initial SOC given (C API)
 ST_RESEED = 0x100       # baseline reseeded from the OCV after a rest
+ST_GAP = 0x200          # a logging gap ended here: the current in it was unknown, SOC variance widened
 STATUS_BITS = {"rej_dt": ST_REJ_DT, "rej_current": ST_REJ_CURRENT, "rej_voltage": ST_REJ_VOLTAGE,
                "rej_temp": ST_REJ_TEMP, "gated": ST_GATED, "fallback": ST_FALLBACK, "reset": ST_RESET,
-               "waiting": ST_WAITING, "reseed": ST_RESEED}
+               "waiting": ST_WAITING, "reseed": ST_RESEED, "gap": ST_GAP}
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -132,6 +135,38 @@ def white_factor(prm, dt):
     if dt > 0.0 and c > dt:
         return c / dt
     return 1.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def resistance_factor(prm, dt):
+    """Factor on the resistance-error variance ``(sigma_R i)^2`` for a sample ``dt`` s after the last.
+
+    That error follows the current, which in a drive holds a level for seconds to tens of seconds:
+    samples closer than ``prm[P_RCORR]`` s are not independent (as :func:`white_factor`).
+    """
+    c = prm[P_RCORR]
+    if dt > 0.0 and c > dt:
+        return c / dt
+    return 1.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def gap_variance(prm, dt, i_lo, i_hi):
+    """SOC variance added over an interval of ``dt`` s that is a logging gap (else 0).
+
+    An interval longer than ``prm[P_GAP]`` s (> 0) is a gap: the current inside it is unknown.
+    The charge moved lies anywhere between ``i_lo dt`` and ``i_hi dt`` (the current range seen in
+    the recording so far); taken as uniform there, the SOC variance grows by ``(dt (i_hi - i_lo) /
+    Q)^2 / 12`` (at most 0.25, the variance of a SOC anywhere in 0..1), so the filter (and the
+    baseline) neither trust the interpolated count nor claim a tight sigma; the voltage afterwards
+    pulls the filter back (common practice, no source).
+    """
+    g = prm[P_GAP]
+    if not (g > 0.0 and dt > g):
+        return 0.0
+    w = dt * (i_hi - i_lo) / prm[P_CAP]
+    v = w * w / 12.0
+    return v if v < 0.25 else 0.25
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -219,6 +254,39 @@ def ocv_lookup(tab, z, t_c, t_min, t_step):
     """OCV (V) and dOCV/dSOC at SOC ``z``, temperature ``t_c`` (degC) from the tables."""
     it0, it1, wt = _temp_index(tab, t_c, t_min, t_step)
     return _ocv_at(tab, z, it0, it1, wt)
+
+
+@njit(cache=True, error_model="numpy")
+def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
+    """SOC read from one voltage sample under current ``i`` (A) and its sigma (the filter's start).
+
+    The OCV inverse of ``v`` corrected by the ``R0 i`` drop (first without the drop, then once
+    with R0 at that SOC), with sigma ``sigma_v / |dOCV/dSOC|`` where ``sigma_v^2 = voltage_noise^2
+    + model_error^2 + (R0 i)^2 + (sum R_rc i)^2 + M^2`` (the drop itself, possibly unrelaxed RC
+    voltages at that current and the hysteresis magnitude are all uncertain); slope floored at
+    1 mV per unit SOC, sigma in 0.01..0.5.  Used at the start and at the end of a logging gap.
+    """
+    t_min = prm[P_TMIN]
+    t_step = prm[P_TSTEP]
+    z = ocv_inverse(tab, v, t_c, t_min, t_step)
+    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
+    z = ocv_inverse(tab, v + r0 * i, t_c, t_min, t_step)
+    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
+    r_rc = 0.0
+    for j in range(n_rc):
+        r_rc += table_value(tab, 4 + j, z, t_c, t_min, t_step)
+    _, slope = ocv_lookup(tab, z, t_c, t_min, t_step)
+    sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (r0 * i) * (r0 * i) + (r_rc * i) * (r_rc * i)
+           + prm[P_HM] * prm[P_HM])
+    den = abs(slope)
+    if den < 1e-3:
+        den = 1e-3
+    sig = math.sqrt(sv2) / den
+    if sig < 0.01:
+        sig = 0.01
+    elif sig > 0.5:
+        sig = 0.5
+    return z, sig
 
 
 @njit(cache=True, error_model="numpy")
@@ -588,6 +656,9 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     re2 = prm[P_RERR] * prm[P_RERR]
     gate = prm[P_GATE]
     grel = prm[P_GREL]
+    i_lo = current_a[lo]  # current range seen so far (logging gaps)
+    i_hi = i_lo
+    gap_k = False
     nis_avg = 1.0   # health monitor (mon): running mean NIS and the healthy flag
     healthy = True
     run_on = False  # inside a run of consecutive gated samples
@@ -618,6 +689,17 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 x[i] = xn[i]
                 qd[i] = q[i] * dt
             qd[0] += ce2 * abs(g[0] * ue)
+            ik_ = current_a[k]
+            if ik_ < i_lo:
+                i_lo = ik_
+            elif ik_ > i_hi:
+                i_hi = ik_
+            gv = gap_variance(prm, dt, i_lo, i_hi)
+            if gv > 0.0:
+                qd[0] += gv
+                for j in range(n_rc):  # the RC voltages are unknown after a working gap too
+                    qd[1 + j] += p0[1 + j, 1 + j]
+                gap_k = True
             if i_e >= 0:
                 qd[i_e] = cache[ke]
                 if adapt > 0.0:  # adapted magnitude: q_m = sigma_eff^2 (1 - a_m^2)
@@ -671,14 +753,35 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             for i in range(nx):
                 for j in range(nx):
                     ppred_out[k, i, j] = p[i, j]
+        skip_upd = False
+        if gap_k and voltage_v[k] == voltage_v[k]:
+            # end of a logging gap: the SOC read from this voltage (its sigma large under load) is
+            # fused as a direct SOC measurement (H = e_0), not through the linearised OCV, which a
+            # SOC sigma of tens of points would make overshoot; this sample's voltage is then used up
+            zv, sgv = soc_from_voltage(tab, n_rc, prm, voltage_v[k], current_a[k], tk)
+            den = p[0, 0] + sgv * sgv
+            dz = zv - x[0]
+            for i in range(nx):
+                kg[i] = p[i, 0] / den
+            for i in range(nx):
+                x[i] += kg[i] * dz
+            for i in range(nx):
+                ph[i] = p[i, 0]
+            for i in range(nx):
+                for j in range(i + 1):
+                    v = p[i, j] - kg[i] * ph[j]
+                    p[i, j] = v
+                    p[j, i] = v
+            skip_upd = True
         # measurement
         y = _measure(tab, n_rc, i_b, i_h, prm, x, current_a[k], it0, it1, wt, hrow)
         pt0, pt1, pwt = it0, it1, wt
         t_last = tk
         ik = current_a[k]
-        r_meas = vn2 + re2 * ik * ik
         if k > lo:
-            r_meas *= wf
+            r_meas = vn2 * wf + re2 * ik * ik * resistance_factor(prm, time_s[k] - time_s[k - 1])
+        else:
+            r_meas = vn2 + re2 * ik * ik
         sv = r_meas
         for i in range(nx):
             acc = 0.0
@@ -694,7 +797,9 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         if vk == vk:
             innov = vk - y
             innov_out[k] = innov
-            if gate_rejects(innov, sv, gate, run_on, run_s, grel):
+            if skip_upd:
+                pass
+            elif gate_rejects(innov, sv, gate, run_on, run_s, grel):
                 gated += 1
                 gk = True
                 if not run_on:
@@ -733,6 +838,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         project_soc(x, p, smin, smax)
         if mon:
             st = ST_GATED if gk else 0
+            if gap_k:
+                st |= ST_GAP
             ok = _finite(y) and _finite(sv) and sv > 0.0
             for j in range(n_rc):
                 if not (abs(x[1 + j]) <= prm[P_VRCMAX]):
@@ -778,6 +885,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 st |= ST_FALLBACK
             status_out[k] |= st
             healthy_out[k] = 1 if healthy else 0
+        gap_k = False
         for i in range(nx):
             x_out[k, i] = x[i]
         sig_out[k] = math.sqrt(p[0, 0]) if p[0, 0] > 0.0 else 0.0
@@ -876,6 +984,8 @@ def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest
     var = var0
     rest_start = -1
     nrs = 0
+    i_lo = current_a[0] if n else 0.0
+    i_hi = i_lo
     for k in range(n):
         if k > 0:
             dt = time_s[k] - time_s[k - 1]
@@ -883,7 +993,16 @@ def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest
             eta = 1.0 if u >= 0.0 else eta_c
             z = z - eta * u * dt / cap
             c = eta * dt / cap
-            var += c * c * s2 * white_factor(prm, dt) + qs * dt
+            i_lo = min(i_lo, current_a[k])
+            i_hi = max(i_hi, current_a[k])
+            gv = gap_variance(prm, dt, i_lo, i_hi)
+            var += c * c * s2 * white_factor(prm, dt) + qs * dt + gv
+            if gv > 0.0 and voltage_v[k] == voltage_v[k]:
+                # end of a logging gap: restart the count from this voltage when it knows better
+                zv, sgv = soc_from_voltage(tab, (tab.shape[0] - 4) // 2, prm, voltage_v[k], current_a[k], temp_c[k])
+                if sgv * sgv < var:
+                    z = zv
+                    var = sgv * sgv
             if z < smin:
                 z = smin
             elif z > smax:

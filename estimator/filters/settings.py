@@ -60,6 +60,15 @@ class FilterSettings:
         ``kernels.ADAPT_CAP`` times it), so a model that is worse than assumed makes the filter
         lean on counting and widen its sigma.  0 = fixed magnitude (the default: on the
         reference cases it widened the sigma but also slowed the correction of a wrong start).
+    resistance_error_corr_s : float
+        Correlation time of that resistance error, s: it follows the current, which in a drive
+        holds a level for seconds, so its variance of a sample ``dt`` after the previous one is
+        multiplied by ``max(1, resistance_error_corr_s / dt)``.  0 = independent per sample.
+    gap_s : float
+        An interval between samples longer than this (s) is a logging gap: the current in it is
+        unknown, the SOC variance grows by the charge the seen current range allows
+        (:func:`estimator.filters.kernels.gap_variance`), the RC voltages become uncertain again,
+        and the trace flags the sample (status bit ``gap``).  0 = never.
     resistance_error_ohm : float
         One-sigma error of the series resistance the model predicts with, ohm: adds
         ``(resistance_error_ohm * current)^2`` to the white voltage variance of each sample (a
@@ -146,6 +155,8 @@ class FilterSettings:
     resistance_error_ohm: float = 0.0
     noise_corr_s: float = 0.0
     model_error_adapt_s: float = 0.0
+    gap_s: float = 0.0
+    resistance_error_corr_s: float = 0.0
 
     def __post_init__(self) -> None:
         for f in fields(self):
@@ -188,18 +199,22 @@ def default_settings(model) -> FilterSettings:
 
     With ``C = capacity_ah`` (the 1C current in A):
 
-    - ``voltage_noise_v`` 2 mV: the voltage sensor's own white noise (a BMS front end of 1-2 mV).
+    - ``voltage_noise_v`` 6 mV: the white part of the voltage error of one sample at 1 s spacing,
+      the sensor's own noise (a BMS front end of 1-2 mV) plus the sample-to-sample part of the
+      model error.
     - ``model_error_v`` = sqrt((10 mV)^2 + r^2) with ``r`` the OCV table's residual from the
       model file's provenance (when recorded), ``model_error_tau_s`` 60 s: the slowly varying
       error of an equivalent-circuit model on dynamic load (Gauss-Markov state, see
       :mod:`estimator.filters.kernels`).
     - ``resistance_error_ohm`` = 0.35 R0 (at 50 % SOC, 25 degC): the scatter of pulse resistances
-      over SOC, current and edge timing; ``noise_corr_s`` 10 s: that fast error follows the
-      current, which in a drive holds a level for seconds to tens of seconds, so samples closer
-      than 10 s are not independent.  These two and ``model_error_v`` were chosen on the demo days
-      and the Panasonic Cycle_1 (the tuning cycle), never on the test recordings.
+      over SOC, current and edge timing; ``resistance_error_corr_s`` 10 s: that fast error
+      follows the current, which in a drive holds a level for seconds to tens of seconds, so
+      samples closer than 10 s are not independent.  These two and ``model_error_v`` were chosen
+      on the demo days and the Panasonic Cycle_1 (the tuning cycle), never on the test recordings.
+    - ``noise_corr_s`` 1 s: the sensor noise of a BMS log is independent from about 1 Hz down.
     - ``capacity_error_frac`` 0.02: a capacity known to 2 % (C/20 test, ageing since).
     - ``model_error_adapt_s`` 0 (off).
+    - ``gap_s`` 30 s: a BMS logs at 1 Hz or faster; 30 s without a sample is a logging gap.
     - ``current_noise_a`` = C/100: a Hall-effect sensor of about 1 % of the 1C current.
     - ``q_soc_per_s`` = 0.01^2 / 3600: a random walk of 1 % SOC per hour.
     - ``q_rc_v2_per_s`` = (0.1 R_rc I_1C)^2 / tau: 10 % of the 1C polarisation per time
@@ -219,14 +234,15 @@ def default_settings(model) -> FilterSettings:
     q_rc = max(q_each) if q_each else 1e-7
     p_rc = sum(float(p.r_ohm.at(0.5, 25.0)) * c for p in model.rc)
     return FilterSettings(
-        voltage_noise_v=0.002, current_noise_a=c / 100.0, q_soc_per_s=0.01 ** 2 / 3600.0,
+        voltage_noise_v=0.006, current_noise_a=c / 100.0, q_soc_per_s=0.01 ** 2 / 3600.0,
         q_rc_v2_per_s=q_rc, q_bias_a2_per_s=(c / 100.0) ** 2 / 3600.0, q_hyst_per_s=1e-6,
         p0_soc=0.02, p0_rc_v=max(p_rc, 0.005), p0_bias_a=c / 50.0, p0_hyst=0.5,
         estimate_bias=True, estimate_hysteresis=model.hysteresis is not None,
         gate_sigma=5.0, soc_min=0.0, soc_max=1.0, rest_current_a=c / 50.0, rest_min_s=3600.0,
         reseed=True, early_reseed_s=0.0, n_soc_grid=401,
         model_error_v=_model_error_v(model), model_error_tau_s=60.0, capacity_error_frac=0.02,
-        resistance_error_ohm=0.35 * r0_mid, noise_corr_s=10.0, model_error_adapt_s=0.0)
+        resistance_error_ohm=0.35 * r0_mid, noise_corr_s=1.0, model_error_adapt_s=0.0,
+        gap_s=30.0, resistance_error_corr_s=10.0)
 
 
 def _model_error_v(model) -> float:

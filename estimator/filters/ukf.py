@@ -18,7 +18,7 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
-from socfuse.estimator.filters.kernels import gate_rejects, project_soc, white_factor
+from socfuse.estimator.filters.kernels import gate_rejects, project_soc, resistance_factor, white_factor
 from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -71,7 +71,8 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         else:
             ukf.sigmas_f = pts.sigma_points(ukf.x, ukf.P)
         wf = white_factor(su.prm, float(t[k] - t[k - 1])) if k > 0 else 1.0
-        r = np.array([[(s.voltage_noise_v ** 2 + (s.resistance_error_ohm * i[k]) ** 2) * wf]])
+        wr = resistance_factor(su.prm, float(t[k] - t[k - 1])) if k > 0 else 1.0
+        r = np.array([[s.voltage_noise_v ** 2 * wf + (s.resistance_error_ohm * i[k]) ** 2 * wr]])
         ukf.R = r
         zs = np.array([hx(sp, i[k], tc[k]) for sp in ukf.sigmas_f])
         zp, smat = unscented_transform(zs, pts.Wm, pts.Wc, r)
