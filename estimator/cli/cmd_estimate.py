@@ -91,8 +91,10 @@ def run(args) -> int:
     else:
         tr = estimate(model, rec, args.method, settings, args.soc0)
     if out is not None:
+        from socfuse.estimator.outputs.trace_csv import write_trace_csv
+
         with replacing(out) as tmp:
-            tr.to_frame(states=args.states).to_csv(tmp, index=False, float_format="%.8g")
+            write_trace_csv(tr, tmp, states=args.states)
         print(f"wrote {out} ({tr.n} rows, method {tr.method})")
     else:
         print("\n".join(summary_lines(tr)))

@@ -1,0 +1,73 @@
+"""Trace CSV writer (estimator.outputs.trace_csv) against pandas' own writer and reader."""
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from ekf_cases import simulated_recording, tiny_model
+from socfuse.estimator.cli.main import main
+from socfuse.estimator.filters.run import estimate
+from socfuse.estimator.outputs.trace_csv import format_trace_csv, write_trace_csv
+
+REPO = Path(__file__).resolve().parents[1]
+DESIGN_COLUMNS = ["time_s", "soc", "soc_sigma", "voltage_pred_v", "innovation_v", "soc_e"]  # DESIGN.md sec. 3
+
+
+def _trace():
+    m = tiny_model(n_rc=2, hysteresis=True)
+    rec, _ = simulated_recording(m, n=3000, soc0=0.7, seed=3)
+    v = rec.voltage_v.copy()
+    v[[5, 6, 1000]] = np.nan                      # missing voltages: NaN innovations
+    return m, estimate(m, rec.with_(voltage_v=v), "ekf", None, None)
+
+
+@pytest.mark.parametrize("states", [False, True])
+def test_bytes_equal_pandas_and_read_back(states, tmp_path):
+    _, tr = _trace()
+    frame = tr.to_frame(states=states)
+    # pandas DataFrame.to_csv with the format socfuse estimate always used is the reference
+    ref = frame.to_csv(index=False, float_format="%.8g", lineterminator="\n")
+    path = tmp_path / "trace.csv"
+    write_trace_csv(tr, path, states=states)
+    text = path.read_text()
+    assert text == ref
+    back = pd.read_csv(io.StringIO(text))
+    assert list(back.columns) == list(frame.columns)
+    assert set(DESIGN_COLUMNS + ["soc_ref", "soc_error"]) <= set(back.columns)
+    for c in frame.columns:
+        a, b = frame[c].to_numpy(dtype=float), back[c].to_numpy(dtype=float)
+        assert np.array_equal(np.isnan(a), np.isnan(b)), c
+        # 8 significant digits: relative error at most half a unit in the 8th digit
+        ok = ~np.isnan(a)
+        np.testing.assert_allclose(b[ok], a[ok], rtol=5.01e-8, atol=0, err_msg=c)
+    assert np.isnan(back["innovation_v"].to_numpy()[[5, 6, 1000]]).all()
+    assert back["status"].dtype.kind == "i"
+
+
+def test_special_values_and_bad_columns():
+    frame = pd.DataFrame({"a": [np.inf, -np.inf, np.nan, -0.0, 1e-300, 123456789.0, 0.1 + 0.2],
+                          "b": np.arange(7, dtype=np.int64)})
+    assert format_trace_csv(frame) == frame.to_csv(index=False, float_format="%.8g", lineterminator="\n")
+    with pytest.raises(ValueError, match="not numeric"):
+        format_trace_csv(pd.DataFrame({"s": ["x"]}))
+    with pytest.raises(ValueError, match="quoting"):
+        format_trace_csv(pd.DataFrame({"a,b": [1.0]}))
+
+
+def test_cli_writes_the_same_file(tmp_path):
+    m, _ = _trace()
+    from socfuse.models.modelfile import save_model
+    rec, _ = simulated_recording(m, n=800, soc0=0.6, seed=5)
+    rec_path = tmp_path / "rec.csv"
+    pd.DataFrame({"time_s": rec.time_s, "current_a": rec.current_a, "voltage_v": rec.voltage_v,
+                  "soc_ref": rec.soc_ref}).to_csv(rec_path, index=False)
+    save_model(m, tmp_path / "model.json")
+    out = tmp_path / "trace.csv"
+    assert main(["estimate", "--model", str(tmp_path / "model.json"), str(rec_path), "-o", str(out)]) == 0
+    back = pd.read_csv(out)
+    assert list(back.columns[:6]) == DESIGN_COLUMNS
+    assert len(back) == rec.n
