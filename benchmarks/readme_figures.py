@@ -322,8 +322,16 @@ def part_speed(work: Path) -> tuple[dict, str]:
     last = text.strip().splitlines()[-1]
     figs = {"ns_per_step": _num(r"ns_per_step=([\d.]+)", last, "speed"),
             "ratio_vs_filterpy": _num(r"ratio_vs_filterpy=([\d.]+)", last, "speed"),
-            "batch_million_per_s": _num(r"batched: .*?: ([\d.]+) million cell-steps/s", text, "speed"),
             "load_average": _num(r"load average ([\d.]+)", text, "speed")}
+    m = re.search(r"batch_msteps_per_cpu_s=([\d.]+)", last)
+    figs["batch_million_per_s"] = (float(m.group(1)) if m else
+                                   _num(r"batched: .*?: ([\d.]+) million cell-steps/s", text, "speed"))
+    m = re.search(r"ratio_vs_c=([\d.]+)", last)
+    if m:
+        figs["c_time_over_ours"] = float(m.group(1))
+    m = re.search(r"^(\S+): (\d+) steps\s+ours", text, re.M)
+    if m:
+        figs["demo_steps"] = float(m.group(2))
     real = re.search(r"(\d+) steps\s+ours\s+([\d.]+) ns/step.*ratio\s+(\d+)\s+\(demo model on the real", text)
     if real:
         figs.update({"real_steps": float(real.group(1)), "real_ns_per_step": float(real.group(2)),
