@@ -1,11 +1,9 @@
 """``socfuse estimate --model M [--filter F] --method ekf|coulomb|ukf [--soc0 X] REC -o trace.csv``."""
 from __future__ import annotations
 
-
 import numpy as np
 
 from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
-from socfuse.models.fileio import check_output_file, replacing
 
 _METHODS = ("ekf", "coulomb", "ukf", "rts")
 
@@ -71,6 +69,7 @@ def summary_lines(tr) -> list:
 
 
 def run(args) -> int:
+    from socfuse.models.fileio import check_output_file, replacing  # here: `estimate --help` stays light
     from socfuse.models.modelfile import load_model
 
     from socfuse.estimator.filters.run import estimate
