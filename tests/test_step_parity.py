@@ -70,6 +70,7 @@ def _bad_log(model):
     v[[90, 91, 92]] = np.nan                   # missing voltage
     v[100] = -2.0
     temp[110] = 900.0                          # implausible temperature: 25 degC used
+    temp[2000:2100] = 60.0                     # plausible but outside the model's tables: voltage not used
     i_log[500:520] = 450.0                     # within 100 C but the RC state leaves its range: reset
     v[900:1300] += 0.4                         # voltage sensor stuck high: fallback, then recovery
     keep = np.ones(n, bool)
@@ -99,7 +100,7 @@ def test_python_and_c_take_the_same_decisions(tmp_path, soc0, adapt):          #
     c_status = c[:, 0].astype(np.int64)
     py_status = tr.status.copy()
     # every path was taken
-    for bit in ("rej_current", "rej_voltage", "rej_temp", "gated", "fallback", "reset", "gap"):
+    for bit in ("rej_current", "rej_voltage", "rej_temp", "gated", "fallback", "reset", "gap", "envelope"):
         assert np.any(py_status & K.STATUS_BITS[bit]), bit
     # identical decisions, sample by sample (the baseline's reseed bit is left out: the stream sees a
     # rest's end one sample later, and this log has no hour-long rest anyway)

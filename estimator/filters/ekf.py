@@ -109,6 +109,10 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_ADAPT] = s.model_error_adapt_s
     prm[K.P_GAP] = s.gap_s
     prm[K.P_RCORR] = s.resistance_error_corr_s
+    # operating envelope: the model's temperature tables plus a margin (NaN temperatures are 25 degC)
+    t_hi = tab.t_min + tab.t_step * (tab.temp_grid.size - 1)
+    prm[K.P_TENV_LO] = min(tab.t_min, K.DEFAULT_TEMP_C) - K.ENVELOPE_MARGIN_C
+    prm[K.P_TENV_HI] = max(t_hi, K.DEFAULT_TEMP_C) + K.ENVELOPE_MARGIN_C
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
     v_span = float(model.v_max_v - model.v_min_v)
     prm[K.P_IMAX] = K.I_MAX_C * float(model.capacity_ah)
@@ -148,9 +152,11 @@ def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True
         if not np.isfinite(soc0):
             raise ValueError(f"soc0 must be finite, got {soc0}")
         sig = s.p0_soc
-        if check and rec.n and np.isfinite(v[0]):
-            # hand-over check: widen the given sigma to cover a disagreement with the voltage
-            zv, sv = _soc_from_voltage(su, v[0], float(rec.current_a[0]), float(temperature_array(rec)[0]))
+        t0 = float(temperature_array(rec)[0]) if rec.n else K.DEFAULT_TEMP_C
+        if check and rec.n and np.isfinite(v[0]) and su.prm[K.P_TENV_LO] <= t0 <= su.prm[K.P_TENV_HI]:
+            # hand-over check (inside the operating envelope): widen the given sigma to cover a
+            # disagreement with the voltage
+            zv, sv = _soc_from_voltage(su, v[0], float(rec.current_a[0]), t0)
             return handover(soc0, sig, zv, sv)
         return soc0, sig
     ok = np.flatnonzero(np.isfinite(v))

@@ -80,7 +80,7 @@ from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "N_PRM", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor",
@@ -91,7 +91,8 @@ P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5
 P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
 P_SE, P_TAUE, P_CAPERR, P_RERR, P_VCORR = 16, 17, 18, 19, 20
 P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC, P_ADAPT, P_GAP, P_RCORR = 21, 22, 23, 24, 25, 26, 27, 28
-N_PRM = 29
+P_TENV_LO, P_TENV_HI = 29, 30
+N_PRM = 31
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -123,9 +124,14 @@ ST_RESET = 0x40         # filter re-initialised from the baseline (non-finite or
 ST_WAITING = 0x80       # not started: no valid voltage yet and no initial SOC given (C API)
 ST_RESEED = 0x100       # baseline reseeded from the OCV after a rest
 ST_GAP = 0x200          # a logging gap ended here: the current in it was unknown, SOC variance widened
+ST_ENVELOPE = 0x400     # temperature outside the model's tables (beyond a margin): voltage not used
+# operating envelope: a voltage measured more than this far outside the model's temperature tables
+# is not used (counting only, sigma grows) rather than extrapolated with confidence (common
+# practice, no source)
+ENVELOPE_MARGIN_C = 10.0
 STATUS_BITS = {"rej_dt": ST_REJ_DT, "rej_current": ST_REJ_CURRENT, "rej_voltage": ST_REJ_VOLTAGE,
                "rej_temp": ST_REJ_TEMP, "gated": ST_GATED, "fallback": ST_FALLBACK, "reset": ST_RESET,
-               "waiting": ST_WAITING, "reseed": ST_RESEED, "gap": ST_GAP}
+               "waiting": ST_WAITING, "reseed": ST_RESEED, "gap": ST_GAP, "envelope": ST_ENVELOPE}
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -754,11 +760,15 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 for j in range(nx):
                     ppred_out[k, i, j] = p[i, j]
         skip_upd = False
-        if gap_k and voltage_v[k] == voltage_v[k]:
+        vk = voltage_v[k]
+        env_k = vk == vk and not (prm[P_TENV_LO] <= tk <= prm[P_TENV_HI])
+        if env_k:
+            vk = np.nan  # outside the operating envelope: predict only
+        if gap_k and vk == vk:
             # end of a logging gap: the SOC read from this voltage (its sigma large under load) is
             # fused as a direct SOC measurement (H = e_0), not through the linearised OCV, which a
             # SOC sigma of tens of points would make overshoot; this sample's voltage is then used up
-            zv, sgv = soc_from_voltage(tab, n_rc, prm, voltage_v[k], current_a[k], tk)
+            zv, sgv = soc_from_voltage(tab, n_rc, prm, vk, current_a[k], tk)
             den = p[0, 0] + sgv * sgv
             dz = zv - x[0]
             for i in range(nx):
@@ -791,7 +801,6 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             sv += hrow[i] * acc
         vpred_out[k] = y
         s_out[k] = sv
-        vk = voltage_v[k]
         innov = np.nan
         gk = False
         if vk == vk:
@@ -840,6 +849,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             st = ST_GATED if gk else 0
             if gap_k:
                 st |= ST_GAP
+            if env_k:
+                st |= ST_ENVELOPE
             ok = _finite(y) and _finite(sv) and sv > 0.0
             for j in range(n_rc):
                 if not (abs(x[1 + j]) <= prm[P_VRCMAX]):

@@ -191,6 +191,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         capacity_error_frac=c_float(s.capacity_error_frac), resistance_error_ohm=c_float(s.resistance_error_ohm),
         noise_corr_s=c_float(s.noise_corr_s), model_error_adapt_s=c_float(s.model_error_adapt_s),
         adapt_cap=c_float(_K.ADAPT_CAP), gap_s=c_float(s.gap_s),
+        tenv_lo=c_float(su.prm[_K.P_TENV_LO]), tenv_hi=c_float(su.prm[_K.P_TENV_HI]),
         resistance_error_corr_s=c_float(s.resistance_error_corr_s), n_t=int(packed.shape[1]), n_s=n_s,
         n_bisect=int(math.ceil(math.log2(max(n_s - 1, 2)))) + 1,
         capacity_as=c_float(tab.capacity_as), eta_charge=c_float(tab.eta_charge), hyst_gamma=c_float(tab.hyst_gamma),
