@@ -33,8 +33,8 @@ def register(sub) -> None:
                    help="OCV curve: average (low-rate mean of both branches), discharge (low-rate discharge "
                         "branch), rest (pulse-test rest-end voltages), anchored (low-rate shape anchored to the "
                         "rest points); auto = lowest voltage RMS on --refine/--validate, else anchored")
-    p.add_argument("--ocv-breakpoints", type=int, default=21, metavar="N",
-                   help="number of OCV breakpoints, placed where the curve bends (default 21)")
+    p.add_argument("--ocv-breakpoints", type=int, default=41, metavar="N",
+                   help="number of OCV breakpoints: half evenly spaced, half where the curve bends (default 41)")
     p.add_argument("--pulse-soc", choices=["auto", "soc_ref", "ah_counter", "count"], default="auto",
                    help="how pulses are placed on the SOC axis: the soc_ref column, the cycler amp-hour "
                         "counter (--ah-col or a preset), or counting charge from full (default auto: in "

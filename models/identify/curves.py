@@ -65,8 +65,12 @@ def isotonic_increasing(y, weights=None, min_step: float = 0.0) -> np.ndarray:
     return out
 
 
-def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0) -> np.ndarray:
+def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0, n_even: int = 0) -> np.ndarray:
     """Indices into ``grid`` of ``n_breakpoints`` breakpoints chosen by greedy max-error insertion.
+
+    With ``n_even`` > 0 the insertion starts from ``n_even`` evenly spaced points instead of the
+    two ends, so a flat stretch (an LFP plateau, where a millivolt is several SOC points) keeps
+    its share of breakpoints while the greedy ones go where the curve bends.
 
     Parameters
     ----------
@@ -78,6 +82,8 @@ def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0) -> 
         Number of breakpoints wanted (>= 2, at most m).
     tol_v : float
         Stop early once the PCHIP interpolant of the breakpoints is within ``tol_v`` of the curve.
+    n_even : int
+        Evenly spaced starting points (0: the two ends only).
 
     Returns
     -------
@@ -88,6 +94,9 @@ def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0) -> 
     m = grid.size
     n = int(min(max(n_breakpoints, 2), m))
     chosen = [0, m - 1]
+    if n_even > 2:
+        chosen = sorted(set(np.searchsorted(grid, np.linspace(grid[0], grid[-1], min(n_even, n))).clip(0, m - 1)
+                            .tolist()) | {0, m - 1})
     while len(chosen) < n:
         idx = np.array(sorted(chosen))
         f = PchipInterpolator(grid[idx], values[idx])
@@ -101,7 +110,8 @@ def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0) -> 
 
 
 def curve_from_dense(grid, values, n_breakpoints: int, source: str, tol_v: float = 0.0):
-    """An :class:`~models.OcvCurve` from a dense curve: monotone projection, then breakpoints.
+    """An :class:`~models.OcvCurve` from a dense curve: monotone projection, then breakpoints
+    (half of them evenly spaced, half by greedy max-error insertion).
 
     Returns
     -------
@@ -111,7 +121,8 @@ def curve_from_dense(grid, values, n_breakpoints: int, source: str, tol_v: float
     """
     grid = np.asarray(grid, dtype=float)
     mono = isotonic_increasing(values, min_step=MIN_STEP_V)
-    idx = greedy_breakpoints(grid, mono, n_breakpoints, tol_v)
+    # half the breakpoints evenly spaced, half where the curve bends (greedy)
+    idx = greedy_breakpoints(grid, mono, n_breakpoints, tol_v, n_even=(int(n_breakpoints) + 1) // 2)
     curve = OcvCurve(grid[idx], mono[idx], source=source)
     err = float(np.max(np.abs(curve.voltage(grid) - mono)))
     return curve, err

@@ -180,7 +180,7 @@ def _branch_on_grid(soc, v, grid):
     return out
 
 
-def identify_ocv_test(rec: Recording, n_breakpoints: int = 21, v_min_v: float | None = None,
+def identify_ocv_test(rec: Recording, n_breakpoints: int = 41, v_min_v: float | None = None,
                       v_max_v: float | None = None, threshold_a: float | None = None,
                       n_grid: int = 401, limit_tol_v: float = 0.05,
                       edge_trim: float = 0.03, offset_a: float | None = None) -> OcvTestResult:

@@ -300,7 +300,7 @@ def _build(capacity, eta, ocv, r0, rc, v_min, v_max, name, provenance, hysteresi
 
 
 def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_source: str = "auto",
-             refine: Recording | None = None, validate=None, n_ocv_breakpoints: int = 21,
+             refine: Recording | None = None, validate=None, n_ocv_breakpoints: int = 41,
              pulse_temperatures_c=None, soc_mode: str = "auto", pulse_soc0: float = 1.0,
              v_min_v: float | None = None, v_max_v: float | None = None, name: str = "",
              refine_soc0: float | None = None, validate_soc0: float | None = None,
