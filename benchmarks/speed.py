@@ -27,8 +27,9 @@ What is timed, in one run, on the same inputs:
 Clock: the process CPU clock (``time.process_time``; for the batch it sums both cores), min and
 median of ``--rounds`` rounds.  The machine has 2 cores shared with other work: the load
 average is printed, and figures move with it.  The last line is
-``ns_per_step=.. ratio_vs_filterpy=.. ratio_vs_c=.. batch_msteps_per_cpu_s=..`` (demo day; batch
-at 10,000 cells).
+``ns_per_step=.. ratio_vs_filterpy=.. ratio_vs_c=.. batch_msteps_per_cpu_s=..`` (demo day;
+``ratio_vs_filterpy`` = filterpy time / ours, ``ratio_vs_c`` = exported C time / ours, above 1
+when socfuse is faster, ``nan`` when the C was skipped; batch at 10,000 cells).
 """
 from __future__ import annotations
 
