@@ -268,9 +268,11 @@ def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
 
     The OCV inverse of ``v`` corrected by the ``R0 i`` drop (first without the drop, then once
     with R0 at that SOC), with sigma ``sigma_v / |dOCV/dSOC|`` where ``sigma_v^2 = voltage_noise^2
-    + model_error^2 + (R0 i)^2 + (sum R_rc i)^2 + M^2`` (the drop itself, possibly unrelaxed RC
-    voltages at that current and the hysteresis magnitude are all uncertain); slope floored at
-    1 mV per unit SOC, sigma in 0.01..0.5.  Used at the start and at the end of a logging gap.
+    + model_error^2 + (sigma_R i)^2 + (sum R_rc i / 2)^2 + M^2``: the corrected drop is uncertain
+    by the resistance error ``sigma_R``, the RC voltages at that current lie somewhere between 0
+    and their steady state (taken as half of it, one sigma), and the hysteresis magnitude ``M``;
+    slope floored at 1 mV per unit SOC, sigma in 0.01..0.5.  Used at the start, for the hand-over
+    check and at the end of a logging gap.
     """
     t_min = prm[P_TMIN]
     t_step = prm[P_TSTEP]
@@ -282,8 +284,8 @@ def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
     for j in range(n_rc):
         r_rc += table_value(tab, 4 + j, z, t_c, t_min, t_step)
     _, slope = ocv_lookup(tab, z, t_c, t_min, t_step)
-    sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (r0 * i) * (r0 * i) + (r_rc * i) * (r_rc * i)
-           + prm[P_HM] * prm[P_HM])
+    sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (prm[P_RERR] * i) * (prm[P_RERR] * i)
+           + (0.5 * r_rc * i) * (0.5 * r_rc * i) + prm[P_HM] * prm[P_HM])
     den = abs(slope)
     if den < 1e-3:
         den = 1e-3
