@@ -129,6 +129,9 @@ WRONG_START = 0.30
 WRONG_START_AFTER_S = 600.0
 HANDOVER_FRACTION = 0.40
 HANDOVER_LOAD_C = 0.2
+#: Below this much hold-out data (s) ``tune`` warns that the transfer check is weak (common practice, no
+#: source: about one drive cycle).
+HOLDOUT_MIN_S = 1800.0
 
 
 class TuningError(ValueError):
@@ -780,6 +783,16 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
             warnings.append(f"on the hold-out the SOC error is outside the tuned filter's +-3 sigma in "
                             f"{100 * (1 - hold_a['coverage']):.0f} % of samples: the filter is overconfident "
                             "about SOC")
+    hold_s = 0.0
+    for j, r in enumerate(list(recs) + unseen):
+        t = np.asarray(r.time_s, dtype=float)
+        if j >= len(recs):
+            hold_s += t[-1] - t[0]
+        elif holdout_fraction > 0:
+            hold_s += t[-1] - t[min(int(round((1.0 - holdout_fraction) * r.n)), r.n - 1)]
+    if hold_s < HOLDOUT_MIN_S:
+        warnings.append(f"the hold-out holds only {hold_s / 60:.0f} min of data: too little to show how the result "
+                        f"transfers (give --holdout recordings, at least {HOLDOUT_MIN_S / 60:.0f} min)")
     if sc_after.get("coverage_all") is not None and sc_after["coverage_all"] < 0.9:
         warnings.append(f"the SOC error is outside the tuned filter's +-3 sigma in "
                         f"{100 * (1 - sc_after['coverage_all']):.0f} % of samples of the tuning recordings "
