@@ -6,7 +6,8 @@ from hypothesis import given, settings, strategies as st
 
 from ekf_cases import tiny_model
 from socfuse.estimator.filters.coulomb import run_coulomb
-from socfuse.estimator.filters.ekf import run_ekf
+from socfuse.estimator.filters import kernels as K
+from socfuse.estimator.filters.ekf import run_ekf, setup, temperature_array
 from socfuse.estimator.filters.settings import default_settings
 from socfuse.models import Recording
 
@@ -41,7 +42,11 @@ def test_ekf_stays_finite_spd_and_in_range(rec, key, bias, soc0, gate):
     # no NaN leaves the filter (innovation is NaN only where the voltage is missing)
     assert np.all(np.isfinite(tr.states)) and np.all(np.isfinite(tr.soc_sigma))
     assert np.all(np.isfinite(tr.voltage_pred_v)) and np.all(np.isfinite(tr.innovation_var_v2))
-    assert np.array_equal(np.isnan(tr.innovation_v), np.isnan(rec.voltage_v))
+    # (a voltage outside the operating envelope, kernels.ST_ENVELOPE, is not used either)
+    prm = setup(m, s).prm
+    temp = temperature_array(rec)
+    outside = ~((temp >= prm[K.P_TENV_LO]) & (temp <= prm[K.P_TENV_HI]))
+    assert np.array_equal(np.isnan(tr.innovation_v), np.isnan(rec.voltage_v) | outside)
     assert np.all((tr.soc >= s.soc_min) & (tr.soc <= s.soc_max))
     p = tr.covariance
     assert np.array_equal(p, np.transpose(p, (0, 2, 1)))  # symmetrised after every update
