@@ -19,8 +19,9 @@ REPO = Path(__file__).resolve().parents[1]
 
 
 def _recordings():
-    """Three short recordings of different kinds: a demo day, the cold day, and one with gaps,
-    an outlier the gate refuses and a start at full charge that hits the SOC limit (projection)."""
+    """Three short recordings of different kinds: a demo day, the cold day, and one with missing
+    voltages, outliers the gate refuses, a start at full charge that hits the SOC limit
+    (projection), a 10 min logging gap and samples outside the model's temperature envelope."""
     day = load_recording(REPO / "datasets" / "c48_day_lunch.csv").slice(0, 1500)
     cold = load_recording(REPO / "datasets" / "c48_day_cold.csv").slice(300, 1300)
     bad = load_recording(REPO / "datasets" / "c48_day_long.csv").slice(0, 900)
@@ -29,7 +30,11 @@ def _recordings():
     v[200:203] += 0.4          # three outliers in a row: gated, then released
     i = bad.current_a.copy()
     i[:60] = -4.0              # charging from full: SOC above 1 -> projection
-    return [day, cold, bad.with_(voltage_v=v, current_a=i)]
+    t = bad.time_s.copy()
+    t[600:] += 600.0           # a logging gap
+    temp = np.array(bad.temperature_c, dtype=float)
+    temp[700:720] = 90.0       # far outside the tables: predict only
+    return [day, cold, bad.with_(voltage_v=v, current_a=i, time_s=t, temperature_c=temp)]
 
 
 def _check_cell(res, c, tr):
@@ -58,6 +63,9 @@ def test_cells_equal_single_stream(bias):
         _check_cell(res, c, run_ekf(model, cells[c], s, soc0s[c]))
     assert res.n_gated[2] > 0                      # the outliers were gated ...
     assert np.nanmax(res.soc[:, 2]) <= s.soc_max   # ... and the SOC limit held (projection)
+    # the gap handling ran (without it the state after the gap differs)
+    no_gap = run_ekf(model, cells[2], s.with_(gap_s=0.0), soc0s[2])
+    assert s.gap_s > 0 and abs(no_gap.soc_sigma[600] - res.soc_sigma[600, 2]) > 1e-4
     # capacity scales: the same as the recording-parallel kernel with the same scales
     scales = np.array([1.0, 0.97, 1.04, 1.02, 0.95])
     res2 = run_ekf_cells(model, cells, s, soc0s, scales, keep="all", block=3)
@@ -81,7 +89,7 @@ def test_cell_matches_filterpy():
 
     m = tiny_model(n_rc=2)
     s = default_settings(m).with_(gate_sigma=0.0, soc_min=-1.0, soc_max=2.0, estimate_bias=True,
-                                  q_rc_v2_per_s=1e-6, model_error_adapt_s=0.0)
+                                  q_rc_v2_per_s=1e-6, model_error_adapt_s=0.0, gap_s=0.0)
     rec, _ = simulated_recording(m, n=400, soc0=0.7, uneven=True, seed=4)
     su = setup(m, s)
     _, (_, p_prior, _) = run_ekf_store(m, rec, s, soc0=0.65)

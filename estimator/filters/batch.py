@@ -41,8 +41,9 @@ from numba import njit, prange
 
 from socfuse.estimator.filters.ekf import initial_soc, prior, recording_arrays, setup
 from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_RERR, P_SE,
-                                               P_SMAX, P_SMIN, P_TMIN, P_TSTEP, P_VN, _measure, _qdiag,
-                                               _temp_index, _transition, error_index, gate_rejects,
+                                               P_SMAX, P_SMIN, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
+                                               _measure, _qdiag, _temp_index, _transition, error_index,
+                                               gap_variance, gate_rejects, resistance_factor, soc_from_voltage,
                                                white_factor)
 from socfuse.estimator.filters.settings import FilterSettings
 
@@ -147,6 +148,13 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
     pt1 = np.zeros(nb, dtype=np.int64)
     pwt = np.zeros(nb)
     gated = np.zeros(nb, dtype=np.int64)
+    i_lo = np.zeros(nb)      # current range seen so far (logging gaps)
+    i_hi = np.zeros(nb)
+    gap_k = np.zeros(nb, dtype=np.bool_)
+    skip_upd = np.zeros(nb, dtype=np.bool_)
+    vks = np.empty(nb)
+    kg1 = np.zeros(nx)
+    ph1 = np.zeros(nx)
     base = np.empty(nb, dtype=np.int64)
     lens = np.empty(nb, dtype=np.int64)
     q = np.zeros(nx)
@@ -172,6 +180,8 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
         base[c] = offs[r]
         lens[c] = offs[r + 1] - offs[r]
         cap[c] = prms[c0 + c, P_CAP]
+        i_lo[c] = current_a[base[c]]
+        i_hi[c] = i_lo[c]
         if lens[c] > n_max:
             n_max = lens[c]
         for i in range(nx):
@@ -200,6 +210,17 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
                     dd[i, c] = d1[i]
                     gs[i, c] = g1[i]
                 qd[0, c] += ce2 * abs(g1[0] * ue)
+                ik_ = current_a[kk]
+                if ik_ < i_lo[c]:
+                    i_lo[c] = ik_
+                elif ik_ > i_hi[c]:
+                    i_hi[c] = ik_
+                gv = gap_variance(pc, dt, i_lo[c], i_hi[c])
+                if gv > 0.0:
+                    qd[0, c] += gv
+                    for j in range(n_rc):  # the RC voltages are unknown after a working gap too
+                        qd[1 + j, c] += p0s[c0 + c, 1 + j, 1 + j]
+                    gap_k[c] = True
                 if i_e >= 0:
                     qd[i_e, c] = cache[ke]
                     if adapt > 0.0:
@@ -256,12 +277,33 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
                     _fma_in(t, gss[i], gs[i], nb)
                     _add_in(t, qd[i], nb)
                     _copy(p[lii], t, nb)
-        # -- measurement (per cell)
+        # -- operating envelope, end of a logging gap, measurement (per cell)
         for c in range(nb):
             if k >= lens[c]:
                 continue
             kk = base[c] + k
             tk = temp_c[kk]
+            skip_upd[c] = False
+            vk = voltage_v[kk]
+            if vk == vk and not (prm[P_TENV_LO] <= tk <= prm[P_TENV_HI]):
+                vk = np.nan  # outside the operating envelope: predict only
+            vks[c] = vk
+            if gap_k[c] and vk == vk:
+                # the SOC read from this voltage fused as a direct SOC measurement (as _ekf_core; rare)
+                pc[P_CAP] = cap[c]
+                zv, sgv = soc_from_voltage(tab, n_rc, pc, vk, current_a[kk], tk)
+                den = p[0, c] + sgv * sgv
+                dz = zv - x[0, c]
+                for i in range(nx):
+                    kg1[i] = p[li[i, 0], c] / den
+                for i in range(nx):
+                    x[i, c] += kg1[i] * dz
+                for i in range(nx):
+                    ph1[i] = p[li[i, 0], c]
+                for i in range(nx):
+                    for j in range(i + 1):
+                        p[li[i, j], c] = p[li[i, j], c] - kg1[i] * ph1[j]
+                skip_upd[c] = True
             it0, it1, wt = _temp_index(tab, tk, t_min, t_step)
             for i in range(nx):
                 xs[i] = x[i, c]
@@ -272,9 +314,10 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
             pt0[c] = it0
             pt1[c] = it1
             pwt[c] = wt
-            r_meas = vn2 + re2 * ik * ik
             if k > 0:
-                r_meas *= wf[c]
+                r_meas = vn2 * wf[c] + re2 * ik * ik * resistance_factor(pc, time_s[kk] - time_s[kk - 1])
+            else:
+                r_meas = vn2 + re2 * ik * ik
             sv[c] = r_meas
         # -- P H and S (structure of arrays)
         for i in range(nx):
@@ -291,15 +334,15 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
             if k >= lens[c]:
                 acc[c] = False
                 continue
-            kk = base[c] + k
-            vk = voltage_v[kk]
+            vk = vks[c]
             valid = vk == vk
+            used = valid and not skip_upd[c]   # a gap-end sample's voltage is used up
             innov = vk - y[c]
-            rej = valid and gate_rejects(innov, sv[c], gate, run_on[c], run_s[c], grel)
-            ok = valid and not rej
+            rej = used and gate_rejects(innov, sv[c], gate, run_on[c], run_s[c], grel)
+            ok = used and not rej
             gated[c] += 1 if rej else 0
             run_s[c] = 0.0 if (rej and not run_on[c]) else run_s[c]   # a run of gated samples begins
-            run_on[c] = rej if valid else run_on[c]
+            run_on[c] = rej if used else run_on[c]
             acc[c] = ok
             inn[c] = innov if ok else 0.0
             kgi[c] = 1.0 / sv[c]
@@ -362,6 +405,7 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
             if keep == KEEP_ALL:
                 for i in range(nx):
                     x_out[k, c0 + c, i] = x[i, c]
+            gap_k[c] = False
             if k == lens[c] - 1:
                 for i in range(nx):
                     x_fin[c0 + c, i] = x[i, c]
