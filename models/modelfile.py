@@ -150,12 +150,42 @@ def model_from_dict(d: dict, where: str = "cell model") -> CellModel:
 
 
 def save_model(model: CellModel, path) -> Path:
-    """Write the model JSON to ``path`` (written to a temporary file, then renamed)."""
+    """Write the model as a ``socfuse.cell-model/1`` JSON file.
+
+    Parameters
+    ----------
+    model : CellModel
+        The cell model (capacity in Ah, OCV table in V, RC tables in ohm and s).
+    path : str or pathlib.Path
+        Target file; written to a temporary name, then renamed (a partly written file never
+        replaces a good one).
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+    """
     return write_text_replacing(path, json.dumps(model_to_dict(model), indent=1) + "\n")
 
 
 def load_model(path) -> CellModel:
-    """Read and validate a cell-model JSON file."""
+    """Read and validate a ``socfuse.cell-model/1`` JSON file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The model file (as written by ``socfuse identify`` or :func:`save_model`).
+
+    Returns
+    -------
+    CellModel
+        The model; unknown keys, a wrong schema or non-physical values are refused.
+
+    Raises
+    ------
+    ModelFileError
+        One line naming the file and the key (also for bad UTF-8, deep nesting, absurd numbers).
+    """
     path = Path(path)
     try:
         d = read_json(path, "cell-model")  # names the file on bad UTF-8, deep nesting, absurd numbers
