@@ -660,6 +660,8 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     s2i = prm[P_IN] * prm[P_IN]
     s2 = s2i
     wf = 1.0
+    wr = 1.0
+    dt_f = np.nan
     vn2 = prm[P_VN] * prm[P_VN]
     re2 = prm[P_RERR] * prm[P_RERR]
     gate = prm[P_GATE]
@@ -716,7 +718,10 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 gh = g[i_h]
                 g[i_h] = 0.0
             # P- = F P F^T + G G^T s2 + diag(q) dt, with F = diag(d) + c e_b^T, c = -g (c_b = 0)
-            wf = white_factor(prm, dt)
+            if dt != dt_f:  # the noise factors of this interval length (recomputed only when it changes)
+                dt_f = dt
+                wf = white_factor(prm, dt)
+                wr = resistance_factor(prm, dt)
             s2 = s2i * wf
             if i_b < 0:  # F diagonal: in place, no branches in the inner loop
                 for i in range(nx):
@@ -791,7 +796,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         t_last = tk
         ik = current_a[k]
         if k > lo:
-            r_meas = vn2 * wf + re2 * ik * ik * resistance_factor(prm, time_s[k] - time_s[k - 1])
+            r_meas = vn2 * wf + re2 * ik * ik * wr
         else:
             r_meas = vn2 + re2 * ik * ik
         sv = r_meas
