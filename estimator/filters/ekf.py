@@ -163,7 +163,9 @@ def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True
     if ok.size == 0:
         raise ValueError(f"recording {rec.name!r}: no finite voltage sample to start from; give soc0")
     k = int(ok[0])
-    return _soc_from_voltage(su, v[k], float(rec.current_a[k]), float(temperature_array(rec)[k]))
+    z, sig = K.soc_from_voltage_start(su.tables.packed, su.n_rc, su.prm, float(v[k]), float(rec.current_a[k]),
+                                      float(temperature_array(rec)[k]))
+    return float(z), float(sig)
 
 
 def handover(soc0: float, sig0: float, z_v: float, sig_v: float) -> tuple[float, float]:

@@ -298,6 +298,39 @@ def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
 
 
 @njit(cache=True, error_model="numpy")
+def soc_from_voltage_start(tab, n_rc, prm, v, i, t_c):
+    """As :func:`soc_from_voltage`, with the wider sigma of a start from an unknown history.
+
+    At the first sample nothing is known of what came before: the whole ``R0 i`` drop and the
+    whole RC steady state ``sum R_rc i`` count as uncertain (``sigma_v^2 = voltage_noise^2 +
+    model_error^2 + (R0 i)^2 + (sum R_rc i)^2 + M^2``), so a start under load does not claim more
+    than it knows.  The estimate itself is that of :func:`soc_from_voltage`.
+
+"""
+    t_min = prm[P_TMIN]
+    t_step = prm[P_TSTEP]
+    z = ocv_inverse(tab, v, t_c, t_min, t_step)
+    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
+    z = ocv_inverse(tab, v + r0 * i, t_c, t_min, t_step)
+    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
+    r_rc = 0.0
+    for j in range(n_rc):
+        r_rc += table_value(tab, 4 + j, z, t_c, t_min, t_step)
+    _, slope = ocv_lookup(tab, z, t_c, t_min, t_step)
+    sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (r0 * i) * (r0 * i) + (r_rc * i) * (r_rc * i)
+           + prm[P_HM] * prm[P_HM])
+    den = abs(slope)
+    if den < 1e-3:
+        den = 1e-3
+    sig = math.sqrt(sv2) / den
+    if sig < 0.01:
+        sig = 0.01
+    elif sig > 0.5:
+        sig = 0.5
+    return z, sig
+
+
+@njit(cache=True, error_model="numpy")
 def ocv_inverse(tab, v, t_c, t_min, t_step):
     """SOC whose tabulated OCV at ``t_c`` equals ``v`` (the exact inverse of the piecewise-linear
     table in SOC, found by bisection over the nodes); clamped to [0, 1]."""
