@@ -443,6 +443,35 @@ def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_r
                x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out)
 
 
+def _drop_stale_cache() -> None:
+    """Forget this module's compiled-code cache when kernels.py has changed since it was written.
+
+    numba's on-disk cache is keyed by the source file of each function only; the functions here
+    inline the model functions of :mod:`estimator.filters.kernels`, so an edit there would otherwise
+    leave a stale compiled batch kernel in place.  A digest of kernels.py is kept beside the cache.
+    """
+    import hashlib
+    from pathlib import Path
+
+    from socfuse.estimator.filters import kernels
+
+    try:
+        digest = hashlib.sha256(Path(kernels.__file__).read_bytes()).hexdigest()
+        caches = [f._cache for f in (_block, ekf_cells_run, _mul, _mul_in, _add_in, _fma_in, _fma2_in, _fma3_in,
+                                     _copy)]
+        stamp = Path(caches[0]._cache_path) / "batch.kernels-digest.txt"
+        if stamp.is_file() and stamp.read_text().strip() == digest:
+            return
+        for c in caches:
+            c.flush()
+        stamp.write_text(digest + "\n")
+    except (AttributeError, OSError):  # no cache (NUMBA_DISABLE_JIT) or a read-only location
+        pass
+
+
+_drop_stale_cache()
+
+
 @dataclass(frozen=True, eq=False)
 class CellsResult:
     """Result of :func:`run_ekf_cells` for ``C`` cells (rows past a cell's length are NaN).
