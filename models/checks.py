@@ -61,6 +61,7 @@ class RecordingSummary:
     sign_steps: int
     sign_inverted: bool
     warnings: tuple[str, ...]
+    current_offset_a: float | None = None  # sensor zero offset found in the rests (robust rests only)
 
 
 def sign_check(current_a, voltage_v, n_steps: int = 50, min_fraction: float = 0.2, time_s=None,
@@ -119,14 +120,17 @@ def sign_check(current_a, voltage_v, n_steps: int = 50, min_fraction: float = 0.
     return slope, int(order.size)
 
 
-def summarise(rec: Recording, rest_current_a: float = 0.05, rest_min_s: float = 600.0) -> RecordingSummary:
+def summarise(rec: Recording, rest_current_a: float | None = None, rest_min_s: float = 600.0) -> RecordingSummary:
     """Summarise a recording (see :class:`RecordingSummary`).
 
     Parameters
     ----------
     rec : Recording
-    rest_current_a : float
-        ``|current|`` at or below this counts as rest, A.
+    rest_current_a : float, optional
+        Fixed rest threshold: ``|current|`` at or below this counts as rest, A.  Default (None):
+        the robust segmentation of :func:`socfuse.models.segment.segment_recording` (the sensor's
+        zero offset removed, thresholds from the recording's own noise floor, rests confirmed by
+        the voltage relaxation).
     rest_min_s : float
         A rest must last at least this long, s (uses :func:`models.recording.find_rests`).
     """
@@ -136,7 +140,13 @@ def summarise(rec: Recording, rest_current_a: float = 0.05, rest_min_s: float = 
     q = u * dt / SECONDS_PER_HOUR
     dis = float(np.sum(q[q > 0]))
     chg = float(-np.sum(q[q < 0])) + 0.0
-    rests = find_rests(t, i, rest_current_a, rest_min_s)
+    offset = None
+    if rest_current_a is None and t.size >= 2:
+        from socfuse.models.segment import segment_recording
+
+        seg = segment_recording(t, i, rec.voltage_v)
+        rest_current_a, offset = float(seg.off_threshold_a), float(seg.offset_a)
+    rests = find_rests(t, i, None if offset is not None else rest_current_a, rest_min_s, voltage_v=rec.voltage_v)
     longest = max((t[e] - t[s] for s, e in rests), default=0.0)
     meta = rec.metadata or {}
     gaps = tuple((float(a), float(b)) for a, b in meta.get("gaps", ()))
@@ -170,7 +180,7 @@ def summarise(rec: Recording, rest_current_a: float = 0.05, rest_min_s: float = 
         dt_median_s=float(np.median(dt)) if dt.size else 0.0,
         dt_min_s=float(dt.min()) if dt.size else 0.0, dt_max_s=float(dt.max()) if dt.size else 0.0,
         net_ah=dis - chg, discharged_ah=dis, charged_ah=chg, total_ah=dis + chg,
-        n_rests=len(rests), longest_rest_s=float(longest), rest_current_a=float(rest_current_a),
+        n_rests=len(rests), longest_rest_s=float(longest), rest_current_a=float(rest_current_a or 0.0), current_offset_a=offset,
         rest_min_s=float(rest_min_s),
         current_min_a=float(i.min()), current_max_a=float(i.max()), voltage_min_v=vmin, voltage_max_v=vmax,
         temperature_min_c=tmin, temperature_max_c=tmax, soc_ref_min=smin, soc_ref_max=smax,
@@ -196,7 +206,9 @@ def format_summary(s: RecordingSummary, max_gaps: int = 5) -> str:
         ("sample interval", f"median {s.dt_median_s:.4g} s, min {s.dt_min_s:.4g} s, max {s.dt_max_s:.6g} s"),
         ("charge (+ = discharge)", f"net {s.net_ah:.5g} Ah, total {s.total_ah:.5g} Ah "
                                    f"(discharged {s.discharged_ah:.5g} Ah, charged {s.charged_ah:.5g} Ah)"),
-        ("rests", f"{s.n_rests} (|I| <= {s.rest_current_a:g} A for >= {s.rest_min_s:g} s)"
+        ("rests", (f"{s.n_rests} (|I| <= {s.rest_current_a:g} A for >= {s.rest_min_s:g} s)" if s.current_offset_a is None
+                   else f"{s.n_rests} (|I - offset| <= {s.rest_current_a:.3g} A for >= {s.rest_min_s:g} s; sensor "
+                        f"zero offset {1e3 * s.current_offset_a:+.3g} mA)")
                   + (f", longest {_dur(s.longest_rest_s)}" if s.n_rests else "")),
         ("current", f"{s.current_min_a:.5g} .. {s.current_max_a:.5g} A"),
         ("voltage", "none" if s.voltage_min_v is None else f"{s.voltage_min_v:.5g} .. {s.voltage_max_v:.5g} V"),

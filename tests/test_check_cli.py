@@ -149,3 +149,18 @@ def test_check_against_a_model_names_the_unit_option(tmp_path, capsys):
     cap = capsys.readouterr()
     assert "IMPLAUSIBLE: current_a" in cap.out and "--current-unit mA" in cap.err.strip().splitlines()[-1]
     assert main(["check", str(p), "--model", str(tmp_path / "m.json"), "--current-unit", "mA"]) == 0
+
+
+def test_check_finds_a_rest_under_ordinary_sensor_noise():
+    # issue 12: a 30-minute rest logged by an ordinary current sensor (offset 0.5 % of 1C, noise
+    # 0.3 % of 1C for a 5 Ah cell: 25 mA and 15 mA) was reported as "rests 0" by the fixed 0.05 A
+    # threshold.  The rest is where the true current is zero (by construction).
+    rng = np.random.default_rng(5)
+    t = np.arange(0.0, 3 * 3600.0, 1.0)
+    true_i = np.where((t >= 3600) & (t < 5400), 0.0, 2.5)  # C/2 discharge, 30 min rest, C/2 again
+    i = true_i + 0.025 + rng.normal(0.0, 0.015, t.size)
+    v = 3.9 - 0.00002 * np.cumsum(true_i) - 0.03 * true_i + rng.normal(0.0, 0.0015, t.size)
+    s = summarise(Recording(t, i, v, name="noisy rest"))
+    assert s.n_rests == 1
+    assert s.longest_rest_s == pytest.approx(1800.0, abs=120.0)
+    assert s.current_offset_a == pytest.approx(0.025, abs=0.003)

@@ -18,8 +18,9 @@ def register(sub) -> None:
         epilog=SAFETY_NOTE)
     p.add_argument("file", metavar="FILE", help="recording file (.csv, .txt, .tsv, .parquet, .mat)")
     add_mapping_options(p)
-    p.add_argument("--rest-current-a", type=float, default=0.05, metavar="A",
-                   help="|current| at or below this counts as rest (default 0.05 A)")
+    p.add_argument("--rest-current-a", type=float, default=None, metavar="A",
+                   help="fixed rest threshold: |current| at or below this counts as rest (default: from the "
+                        "recording's own noise floor, after removing the sensor's zero offset)")
     p.add_argument("--rest-min-s", type=float, default=600.0, metavar="S",
                    help="shortest rest reported, s (default 600)")
     p.add_argument("--model", default=None, metavar="M",
@@ -30,7 +31,7 @@ def register(sub) -> None:
 
 
 def run(args) -> int:
-    if args.rest_current_a < 0 or args.rest_min_s < 0:
+    if (args.rest_current_a is not None and args.rest_current_a < 0) or args.rest_min_s < 0:
         raise CliError("--rest-current-a and --rest-min-s must not be negative")
     from socfuse.models.plausibility import check_against_model
 
