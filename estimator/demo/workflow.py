@@ -270,7 +270,13 @@ def _step_tune(state):
     # innovation likelihood: needs no reference, as on fleet data
     res = tune(model, [state["recs"][MAIN_DAY]], settings=settings, objective="likelihood", quiet=state["quiet"],
                max_evaluations=60 if state["quick"] else 150)
-    settings = res.settings
+    # a tuning that is worse than the start on its own hold-out evidence is refused: the demo
+    # keeps the model-derived settings then, and the report's tuning section says why
+    detail = ""
+    if res.refused:
+        detail = "(refused on the hold-out: default settings kept)"
+    else:
+        settings = res.settings
     state["extras"]["tuning"] = res
     state["sections"].append(_tuning_section(res))
     if settings.p0_soc < DEMO_P0_SOC:
@@ -278,7 +284,7 @@ def _step_tune(state):
         # claim a wide prior for it (demo choice, stated in the report)
         settings = replace(settings, p0_soc=DEMO_P0_SOC)
     state["files"]["filter.json"] = save_settings(settings, state["stage"] / "filter.json")
-    return {"settings": settings}, ""
+    return {"settings": settings}, detail
 
 
 def _step_bench(state):
@@ -361,8 +367,12 @@ def _step_export(state):
 def _tuning_section(res):
     from socfuse.estimator.outputs.report import ReportSection
 
+    verdict = ("The tuned settings were <b>refused</b>: on the held-out part of the day they were worse than the "
+               "model-derived defaults, so the demo runs on the defaults (reasons below)."
+               if res.refused else "The tuned settings passed the hold-out check and are used.")
     body = ("<p>Process and measurement noise chosen on the lunch-break day by maximising the innovation "
-            "likelihood (no reference needed); the NIS lines give the chi-square 95 % band "
+            "likelihood (no reference needed), then compared with the defaults on the held-out last part of "
+            f"the day. {verdict} The NIS lines give the chi-square 95 % band "
             "(Bar-Shalom, Li, Kirubarajan 2001).</p>"
             f"<pre>{html.escape(res.describe())}</pre>")
     return ReportSection("Noise tuning", body)
