@@ -642,6 +642,14 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
     Returns
     -------
     TuneResult
+        The tuned settings, the hold-out comparison and, when refused, the reasons.
+
+    References
+    ----------
+    .. [1] Y. Bar-Shalom, X. R. Li, T. Kirubarajan, Estimation with Applications to Tracking and
+       Navigation, Wiley 2001 (innovation likelihood, NIS consistency test).
+    .. [2] B. J. Odelson, M. R. Rajamani, J. B. Rawlings, "A new autocovariance least-squares method
+       for estimating noise covariances", Automatica 42 (2006) 303-308.
     """
     from socfuse.estimator.analysis.progress import ProgressBar
 

@@ -15,11 +15,17 @@ def estimate(model, rec, method: str = "ekf", settings: FilterSettings | None = 
 
     Parameters
     ----------
-    model : models.CellModel
-    rec : models.Recording
+    model : socfuse.models.CellModel
+        The cell model (capacity Ah, OCV V, R0/RC ohm and s).
+    rec : socfuse.models.Recording
+        The recording (time s, current A with + = discharge, voltage V, optional temperature degC).
     method : str
-    settings : FilterSettings, optional  (default :func:`estimator.settings.default_settings`)
-    soc0 : float, optional  initial SOC (fraction); else from the OCV at the first sample
+        ``"ekf"`` (default), ``"coulomb"`` (the coulomb-counting baseline with OCV reseed after
+        rests) or ``"ukf"`` (the sigma-point filter through filterpy).
+    settings : FilterSettings, optional
+        Default: :func:`socfuse.estimator.filters.settings.default_settings` of ``model``.
+    soc0 : float, optional
+        Initial SOC (fraction 0..1); else from the OCV at the first sample.
 
     Returns
     -------
@@ -27,6 +33,13 @@ def estimate(model, rec, method: str = "ekf", settings: FilterSettings | None = 
         For ``"ekf"`` a monitored run (:func:`estimator.filters.ekf.run_ekf` with ``monitor=True``):
         the same input checks, health monitor and fallback to the baseline as the exported C code,
         with the per-sample status bits in ``Trace.status`` (trace column ``status``).
+
+    References
+    ----------
+    .. [1] G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV
+       battery packs", parts 1-3, J. Power Sources 134 (2004) 252-292 (pages from memory).
+    .. [2] A. Gelb (ed.), Applied Optimal Estimation, MIT Press 1974 (coloured measurement noise by
+       state augmentation: the model-error state).
     """
     if method == "ekf":  # the exported C code's filter step: input checks, health monitor, fallback
         from socfuse.estimator.filters.ekf import run_ekf

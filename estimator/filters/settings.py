@@ -227,6 +227,16 @@ def default_settings(model) -> FilterSettings:
     - ``gate_sigma`` 5; SOC clipped to [0, 1]; ``estimate_bias`` on (a current-sensor offset is
       observable through the voltage wherever the OCV has a slope; on a flat curve its variance
       simply widens the SOC sigma); ``estimate_hysteresis`` on when the model has hysteresis.
+
+    Parameters
+    ----------
+    model : socfuse.models.CellModel
+        The cell model: capacity (Ah), R0 and RC tables (ohm, s) and OCV table (V) set the scales.
+
+    Returns
+    -------
+    FilterSettings
+        Settings in physical units (V, A, s) for this cell.
     """
     c = float(model.capacity_ah)
     r0_mid = float(model.r0_ohm.at(0.5, 25.0))
@@ -282,7 +292,20 @@ def settings_from_dict(d: dict, where: str = "filter settings", base: FilterSett
 
 
 def save_settings(settings: FilterSettings, path) -> Path:
-    """Write the settings JSON (to a temporary name, then renamed)."""
+    """Write the settings as a ``socfuse.filter/1`` JSON file.
+
+    Parameters
+    ----------
+    settings : FilterSettings
+        The settings to write.
+    path : str or pathlib.Path
+        Target file; written to a temporary name, then renamed.
+
+    Returns
+    -------
+    pathlib.Path
+        The path written.
+    """
     return write_text_replacing(path, json.dumps(settings_to_dict(settings), indent=1) + "\n")
 
 
@@ -316,7 +339,22 @@ def resolve_settings(model, path=None, overrides: dict | None = None) -> FilterS
 
 
 def load_settings(path, base: FilterSettings | None = None) -> FilterSettings:
-    """Read and validate a ``socfuse.filter/1`` file; missing keys come from ``base``."""
+    """Read and validate a ``socfuse.filter/1`` file.
+
+    Parameters
+    ----------
+    path : str or pathlib.Path
+        The settings file (a partial file is fine).
+    base : FilterSettings, optional
+        Where the missing keys come from (default: the dataclass defaults); commands use
+        :func:`resolve_settings`, which passes the model-derived defaults.
+
+    Returns
+    -------
+    FilterSettings
+        The settings; unknown keys, a wrong schema or out-of-range values are refused with a
+        :class:`SettingsError` naming the file and key.
+    """
     path = Path(path)
     try:
         d = read_json(path, "filter-settings")  # names the file on bad UTF-8, deep nesting, absurd numbers

@@ -353,6 +353,15 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
     Returns
     -------
     IdentifyResult
+        The model and the identification report (``summary()``).
+
+    References
+    ----------
+    .. [1] U.S. DOE / INL, Battery Test Manual for Electric Vehicles (HPPC test: pulse resistance
+       from the voltage step of a current pulse); edition and report number not checked here.
+    .. [2] G. L. Plett, J. Power Sources 134 (2004) 262-276 (part 2: one-state hysteresis model).
+    .. [3] X. Hu, S. Li, H. Peng, "A comparative study of equivalent circuit models for Li-ion
+       batteries", J. Power Sources 198 (2012) 359-367.
     """
     if ocv_source not in ("auto",) + OCV_SOURCES:
         raise IdentifyError(f"unknown OCV source {ocv_source!r}; choose from auto, {', '.join(OCV_SOURCES)}")
