@@ -80,7 +80,7 @@ from numba import njit, prange
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor",
@@ -476,6 +476,27 @@ def gate_rejects(innov, sv, gate, run_on, run_s, grel):
     samples has lasted ``grel`` s (``grel`` > 0): then this one is used and the run ends.
     """
     return gate > 0.0 and innov * innov > gate * gate * sv and not (run_on and grel > 0.0 and run_s >= grel)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def health_step(nis_avg, healthy, innov, sv):
+    """One update of the consistency monitor: ``(nis_avg, healthy)`` after an innovation.
+
+    The running mean of ``NIS = innov^2 / S`` (capped at :data:`NIS_CAP`, weight :data:`NIS_ALPHA`)
+    whose chi-square(1) mean is 1 for a consistent filter (Bar-Shalom, Li, Kirubarajan 2001,
+    sec. 5.4); the filter turns unhealthy above :data:`NIS_HIGH` and healthy again below
+    :data:`NIS_LOW`.  While unhealthy the estimate falls back to coulomb counting.  Shared by the
+    EKF kernel and the UKF; the C template implements the same constants and rule.
+    """
+    nis = innov * innov / sv
+    if nis > NIS_CAP:
+        nis = NIS_CAP
+    nis_avg += NIS_ALPHA * (nis - nis_avg)
+    if healthy and nis_avg > NIS_HIGH:
+        healthy = False
+    elif not healthy and nis_avg < NIS_LOW:
+        healthy = True
+    return nis_avg, healthy
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -924,14 +945,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                 vpred_out[k] = np.nan
                 innov_out[k] = np.nan
             elif vk == vk:
-                nis = innov * innov / sv
-                if nis > NIS_CAP:
-                    nis = NIS_CAP
-                nis_avg += NIS_ALPHA * (nis - nis_avg)
-                if healthy and nis_avg > NIS_HIGH:
-                    healthy = False
-                elif not healthy and nis_avg < NIS_LOW:
-                    healthy = True
+                nis_avg, healthy = health_step(nis_avg, healthy, innov, sv)
             if not healthy:
                 st |= ST_FALLBACK
             status_out[k] |= st

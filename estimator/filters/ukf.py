@@ -8,8 +8,9 @@ it shares the EKF's model code (including the model-error state).  ``Q_k`` is th
 i_k)^2) max(1, tau_v / dt)`` as in the EKF.  NaN voltage = predict only; the same input checks
 (:func:`estimator.filters.kernels.check_inputs`), innovation gate with release
 (:func:`~estimator.filters.kernels.gate_rejects`) and SOC projection
-(:func:`~estimator.filters.kernels.project_soc`) as the EKF kernel (the same functions; the health
-monitor and fallback are the EKF's only); the initial state comes from :func:`estimator.ekf.initial_soc`.  Zero initial
+(:func:`~estimator.filters.kernels.project_soc`) and consistency monitor with fallback to coulomb
+counting (:func:`~estimator.filters.kernels.health_step`) as the EKF kernel and the exported C code
+(the same functions); the initial state comes from :func:`estimator.ekf.initial_soc`.  Zero initial
 variances (``p0_soc = p0_rc_v = 0``, allowed by the schema) are raised to a tiny floor, since
 the sigma points need a positive-definite ``P``.
 """
@@ -18,7 +19,8 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
-from socfuse.estimator.filters.kernels import gate_rejects, project_soc, resistance_factor, white_factor
+from socfuse.estimator.filters.kernels import (ST_FALLBACK, gate_rejects, health_step, project_soc, resistance_factor,
+                                              white_factor)
 from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -29,12 +31,34 @@ UKF_ALPHA, UKF_BETA, UKF_KAPPA = 1.0, 2.0, 0.0  # spread, Gaussian prior (beta =
 
 
 def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | None = None) -> Trace:
-    """Run the unscented filter over one recording; returns a Trace with ``method="ukf"``."""
+    """Run the unscented filter over one recording.
+
+    Parameters
+    ----------
+    model : socfuse.models.CellModel
+        The cell model.
+    rec : socfuse.models.Recording
+        The recording (s, A with + = discharge, V, degC).
+    settings : FilterSettings, optional
+        Default: the model-derived settings.
+    soc0 : float, optional
+        Initial SOC (fraction); else from the OCV at the first sample.
+
+    Returns
+    -------
+    Trace
+        ``method="ukf"``; while the consistency monitor flags the filter unhealthy the SOC and its
+        sigma are the coulomb-counting baseline's (status bit ``fallback``), as in the EKF and the C code.
+    """
+    from socfuse.estimator.filters.coulomb import run_coulomb
+
     su = setup(model, settings)
-    rec, _ = checked_inputs(su, rec)  # the filter step's input checks (implausible samples held / missing)
+    rec_in = rec
+    rec, status = checked_inputs(su, rec)  # the filter step's input checks (implausible samples held / missing)
     s = su.settings
     nx = su.n_x
     z0, sig0 = initial_soc(su, rec, soc0)
+    base = run_coulomb(model, rec, s, start=(z0, sig0))  # the fallback, started where the filter starts
     x0, p0 = _prior(su, z0, sig0)
     # the sigma points need a positive-definite P: zero variances (deterministic hysteresis,
     # p0_soc = p0_rc_v = 0) get a floor far below any physical uncertainty
@@ -58,6 +82,8 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
     gated = 0
     run_on, run_s = False, 0.0  # gate release, as in the EKF kernel
+    nis_avg, healthy = 1.0, True  # consistency monitor, as in the EKF kernel
+    ok = np.ones(n, dtype=bool)
     for k in range(n):
         if k > 0:
             dt = float(t[k] - t[k - 1])
@@ -80,6 +106,7 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         sv[k] = smat[0, 0]
         if np.isfinite(v[k]):
             inn[k] = v[k] - zp[0]
+            nis_avg, healthy = health_step(nis_avg, healthy, inn[k], sv[k])
             if gate_rejects(inn[k], sv[k], s.gate_sigma, run_on, run_s, s.gate_release_s):
                 gated += 1
                 if not run_on:
@@ -93,4 +120,11 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         project_soc(ukf.x, ukf.P, s.soc_min, s.soc_max)  # the EKF kernel's estimate projection
         states[k] = ukf.x
         sig[k] = np.sqrt(max(ukf.P[0, 0], 0.0))
-    return make_trace(model, rec, "ukf", states[:, 0], sig, vp, inn, sv, states, gated, (), su.names)
+        ok[k] = healthy
+        if not healthy:
+            status[k] |= ST_FALLBACK
+    soc = np.where(ok, states[:, 0], base.soc)
+    soc_sigma = np.where(ok, sig, base.soc_sigma)
+    meta = {"filter_soc_sigma": sig, "n_fallback": int(np.count_nonzero(~ok))}
+    return make_trace(model, rec_in, "ukf", soc, soc_sigma, vp, inn, sv, states, gated, (), su.names, None, meta,
+                      status=status)
