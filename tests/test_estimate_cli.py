@@ -11,7 +11,7 @@ from ekf_cases import simulated_recording, tiny_model
 from socfuse.estimator.cli.main import SAFETY_NOTE, main
 from socfuse.estimator.filters.run import estimate
 from socfuse.estimator.filters.settings import default_settings, save_settings
-from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, save_model
+from socfuse.models import CellModel, OcvCurve, ParamTable, RcPair, Recording, save_model
 
 DRIVE = "drive_cycles/03-18-17_02.17 25degC_Cycle_1_Pan18650PF.mat"
 
@@ -81,3 +81,29 @@ def test_real_drive_cycle_runs(realdata, tmp_path):
     assert main(["estimate", "--model", str(tmp_path / "m.json"), "--preset", "panasonic-18650pf",
                  str(realdata / DRIVE), "-o", str(tmp_path / "t.csv")]) == 0
     assert len(pd.read_csv(tmp_path / "t.csv")) > 100000
+
+
+def test_estimate_reports_gaps_and_the_operating_envelope(tmp_path, capsys):
+    # issue 16: a logging gap and samples far outside the model's temperature tables are counted
+    # and reported by `estimate` (stderr), and the trace carries the per-sample status column
+    from socfuse.estimator.filters import kernels as K
+
+    m = tiny_model(n_rc=1)
+    rec, _ = simulated_recording(m, n=1200, soc0=0.7, seed=4, temperature_c=25.0)
+    keep = np.ones(rec.n, bool)
+    keep[500:800] = False  # a 5 min gap while the current flows
+    temp = np.full(rec.n, 25.0)
+    temp[900:1000] = -40.0  # far outside the tables (tiny_model: one temperature row)
+    rec = rec.with_(temperature_c=temp)
+    rec = Recording(rec.time_s[keep], rec.current_a[keep], rec.voltage_v[keep], rec.temperature_c[keep],
+                    rec.soc_ref[keep], rec.name)
+    rec.to_csv(tmp_path / "r.csv", float_format="%.9g")
+    save_model(m, tmp_path / "m.json")
+    rc = main(["estimate", "--model", str(tmp_path / "m.json"), str(tmp_path / "r.csv"), "-o", str(tmp_path / "t.csv"),
+               "--trust-input"])
+    assert rc == 0
+    err = capsys.readouterr().err
+    assert "samples flagged gap" in err and "samples flagged envelope" in err
+    st = pd.read_csv(tmp_path / "t.csv")["status"].to_numpy()
+    assert np.count_nonzero(st & K.ST_ENVELOPE) >= 90
+    assert np.count_nonzero(st & K.ST_GAP) >= 1

@@ -68,6 +68,45 @@ def summary_lines(tr) -> list:
     return lines
 
 
+#: status bits worth a note after a run, with what they mean for the estimate
+FLAG_NOTES = (
+    ("gap", "inside or just after a logging gap (SOC sigma widened by the charge the current range allows)"),
+    ("envelope", "outside the model's temperature range (voltage not used: counting only)"),
+    ("fallback", "filter inconsistent: the coulomb-counting baseline's SOC reported"),
+    ("reset", "filter state reset from the baseline"),
+    ("rej_current", "implausible current held at the last good value"),
+    ("rej_voltage", "implausible voltage not used"),
+    ("rej_temp", "implausible temperature replaced"),
+    ("gated", "voltage refused by the innovation gate"),
+)
+
+
+def flag_lines(tr) -> list:
+    """One line per status bit that flags samples of ``tr``: the count and what it means.
+
+    Parameters
+    ----------
+    tr : Trace
+        A trace with per-sample status bits (EKF and UKF runs; other methods give no lines).
+
+    Returns
+    -------
+    list of str
+    """
+    status = getattr(tr, "status", None)
+    if status is None:
+        return []
+    from socfuse.estimator.filters.kernels import STATUS_BITS
+
+    st = np.asarray(status)
+    out = []
+    for name, what in FLAG_NOTES:
+        k = int(np.count_nonzero(st & STATUS_BITS[name]))
+        if k:
+            out.append(f"{k} of {st.size} samples flagged {name}: {what}")
+    return out
+
+
 def run(args) -> int:
     from socfuse.models.fileio import check_output_file, replacing  # here: `estimate --help` stays light
     from socfuse.models.modelfile import load_model
@@ -89,6 +128,8 @@ def run(args) -> int:
         tr = rts_smooth(model, rec, settings, args.soc0)
     else:
         tr = estimate(model, rec, args.method, settings, args.soc0)
+    for line in flag_lines(tr):  # gaps, operating envelope, fallback: on stderr, results stay on stdout
+        note(f"note: {line}")
     if out is not None:
         from socfuse.estimator.outputs.trace_csv import write_trace_csv
 
