@@ -262,6 +262,36 @@ def ocv_lookup(tab, z, t_c, t_min, t_step):
     return _ocv_at(tab, z, it0, it1, wt)
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def _voltage_read(tab, n_rc, prm, v, i, t_c):
+    """OCV inverse of ``v`` corrected by the ``R0 i`` drop: ``(z, r0, sum r_rc, dOCV/dSOC)`` at that SOC."""
+    t_min = prm[P_TMIN]
+    t_step = prm[P_TSTEP]
+    z = ocv_inverse(tab, v, t_c, t_min, t_step)
+    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
+    z = ocv_inverse(tab, v + r0 * i, t_c, t_min, t_step)
+    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
+    r_rc = 0.0
+    for j in range(n_rc):
+        r_rc += table_value(tab, 4 + j, z, t_c, t_min, t_step)
+    _, slope = ocv_lookup(tab, z, t_c, t_min, t_step)
+    return z, r0, r_rc, slope
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _read_sigma(z, sv2, slope):
+    """``(z, sigma_v / |dOCV/dSOC|)`` with the slope floored at 1 mV per unit SOC, sigma in 0.01..0.5."""
+    den = abs(slope)
+    if den < 1e-3:
+        den = 1e-3
+    sig = math.sqrt(sv2) / den
+    if sig < 0.01:
+        sig = 0.01
+    elif sig > 0.5:
+        sig = 0.5
+    return z, sig
+
+
 @njit(cache=True, error_model="numpy")
 def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
     """SOC read from one voltage sample under current ``i`` (A) and its sigma (the filter's start).
@@ -274,27 +304,10 @@ def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
     slope floored at 1 mV per unit SOC, sigma in 0.01..0.5.  Used at the start, for the hand-over
     check and at the end of a logging gap.
     """
-    t_min = prm[P_TMIN]
-    t_step = prm[P_TSTEP]
-    z = ocv_inverse(tab, v, t_c, t_min, t_step)
-    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
-    z = ocv_inverse(tab, v + r0 * i, t_c, t_min, t_step)
-    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
-    r_rc = 0.0
-    for j in range(n_rc):
-        r_rc += table_value(tab, 4 + j, z, t_c, t_min, t_step)
-    _, slope = ocv_lookup(tab, z, t_c, t_min, t_step)
+    z, r0, r_rc, slope = _voltage_read(tab, n_rc, prm, v, i, t_c)
     sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (prm[P_RERR] * i) * (prm[P_RERR] * i)
            + (0.5 * r_rc * i) * (0.5 * r_rc * i) + prm[P_HM] * prm[P_HM])
-    den = abs(slope)
-    if den < 1e-3:
-        den = 1e-3
-    sig = math.sqrt(sv2) / den
-    if sig < 0.01:
-        sig = 0.01
-    elif sig > 0.5:
-        sig = 0.5
-    return z, sig
+    return _read_sigma(z, sv2, slope)
 
 
 @njit(cache=True, error_model="numpy")
@@ -307,27 +320,10 @@ def soc_from_voltage_start(tab, n_rc, prm, v, i, t_c):
     than it knows.  The estimate itself is that of :func:`soc_from_voltage`.
 
 """
-    t_min = prm[P_TMIN]
-    t_step = prm[P_TSTEP]
-    z = ocv_inverse(tab, v, t_c, t_min, t_step)
-    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
-    z = ocv_inverse(tab, v + r0 * i, t_c, t_min, t_step)
-    r0 = table_value(tab, 2, z, t_c, t_min, t_step)
-    r_rc = 0.0
-    for j in range(n_rc):
-        r_rc += table_value(tab, 4 + j, z, t_c, t_min, t_step)
-    _, slope = ocv_lookup(tab, z, t_c, t_min, t_step)
+    z, r0, r_rc, slope = _voltage_read(tab, n_rc, prm, v, i, t_c)
     sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (r0 * i) * (r0 * i) + (r_rc * i) * (r_rc * i)
            + prm[P_HM] * prm[P_HM])
-    den = abs(slope)
-    if den < 1e-3:
-        den = 1e-3
-    sig = math.sqrt(sv2) / den
-    if sig < 0.01:
-        sig = 0.01
-    elif sig > 0.5:
-        sig = 0.5
-    return z, sig
+    return _read_sigma(z, sv2, slope)
 
 
 @njit(cache=True, error_model="numpy")
