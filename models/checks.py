@@ -133,6 +133,14 @@ def summarise(rec: Recording, rest_current_a: float | None = None, rest_min_s: f
         the voltage relaxation).
     rest_min_s : float
         A rest must last at least this long, s (uses :func:`models.recording.find_rests`).
+
+    Returns
+    -------
+    RecordingSummary
+        Sample count, duration (s), sample intervals (s), charge throughput (Ah), rests (count,
+        longest in s, threshold in A, sensor zero offset in A when estimated), current (A), voltage (V),
+        temperature (degC) and ``soc_ref`` (fraction) ranges, gaps ``(start_s, length_s)``, the sign
+        check (dV/dI in ohm) and the warnings.
     """
     t, i, v = rec.time_s, rec.current_a, rec.voltage_v
     dt = np.diff(t)
@@ -198,7 +206,20 @@ def _dur(s: float) -> str:
 
 
 def format_summary(s: RecordingSummary, max_gaps: int = 5) -> str:
-    """The summary as a plain-text block (one fact per line, units stated)."""
+    """The summary as a plain-text block (one fact per line, units stated).
+
+    Parameters
+    ----------
+    s : RecordingSummary
+        The summary from :func:`summarise`.
+    max_gaps : int
+        At most this many gaps are listed one by one; the rest are counted.
+
+    Returns
+    -------
+    str
+        Lines ``"<fact>  <value with unit>"`` joined by ``\\n``, then one ``WARNING: ...`` line per warning.
+    """
     rows = [
         ("recording", s.name + (f"  ({s.source})" if s.source else "")),
         ("samples", f"{s.n_samples}"),
