@@ -63,6 +63,23 @@ def replacing(path, suffix: str = ".tmp"):
     On a clean exit the temporary file is renamed over ``path`` (mode 0644 less the umask); on an
     exception it is removed and ``path`` is left as it was.  ``suffix`` lets writers that infer a
     format from the file name (matplotlib) see the right extension.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file to write (its folder must exist and be writable).
+    suffix : str
+        Extension of the temporary file name.
+
+    Yields
+    ------
+    pathlib.Path
+        The temporary file to write to (created empty in the same folder as ``path``).
+
+    Raises
+    ------
+    OutputPathError
+        When the folder does not exist or is not writable.
     """
     path = Path(path)
     _check_parent(path)
@@ -82,7 +99,20 @@ def replacing(path, suffix: str = ".tmp"):
 
 
 def write_text_replacing(path, text: str) -> Path:
-    """Write ``text`` (``\\n`` line ends) to ``path`` through :func:`replacing`; returns the path."""
+    """Write ``text`` (``\\n`` line ends) to ``path`` through :func:`replacing`; returns the path.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file to write.
+    text : str
+        The content.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
     with replacing(path) as tmp:
         with open(tmp, "w", newline="\n") as f:
             f.write(text)
@@ -90,7 +120,20 @@ def write_text_replacing(path, text: str) -> Path:
 
 
 def write_bytes_replacing(path, data: bytes) -> Path:
-    """Write ``data`` to ``path`` through :func:`replacing`; returns the path."""
+    """Write ``data`` to ``path`` through :func:`replacing`; returns the path.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The file to write.
+    data : bytes
+        The content.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
     with replacing(path) as tmp:
         tmp.write_bytes(data)
     return Path(path)
@@ -139,6 +182,18 @@ def check_output_folder(path, what: str = "--out") -> Path:
     """Refuse an output folder that cannot be created or written, before any work is done.
 
     Returns the path; raises :class:`OutputPathError`.
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        The output folder (may not exist yet; its nearest existing ancestor must be a writable folder).
+    what : str
+        How the folder is named in the error message (e.g. the CLI option).
+
+    Returns
+    -------
+    pathlib.Path
+        ``path`` (nothing is created).
     """
     p = Path(path)
     if p.exists() and not p.is_dir():
