@@ -113,6 +113,19 @@ def curve_from_dense(grid, values, n_breakpoints: int, source: str, tol_v: float
     """An :class:`~models.OcvCurve` from a dense curve: monotone projection, then breakpoints
     (half of them evenly spaced, half by greedy max-error insertion).
 
+    Parameters
+    ----------
+    grid : array_like, shape (n,)
+        SOC grid of the dense curve, fraction 0..1, increasing.
+    values : array_like, shape (n,)
+        Dense OCV on ``grid``, V (made non-decreasing by isotonic projection first).
+    n_breakpoints : int
+        Number of breakpoints of the returned curve.
+    source : str
+        Provenance text stored in the curve.
+    tol_v : float
+        Greedy insertion stops early when the largest error is at or below this, V.
+
     Returns
     -------
     curve : OcvCurve
