@@ -40,6 +40,22 @@ def rest_clusters(rest_soc, rest_v, gap: float = 0.02):
     """Group rest points whose sorted SOCs are within ``gap``; median SOC and offset per group.
 
     Returns ``(soc, v)`` arrays of cluster medians (sorted by SOC).
+
+    Parameters
+    ----------
+    rest_soc : array_like, shape (n,)
+        SOC of each rest point, fraction 0..1.
+    rest_v : array_like, shape (n,)
+        Value per rest point (a rest-end voltage or an offset from a curve), V.
+    gap : float
+        Neighbouring sorted SOCs closer than or equal to this are one cluster, fraction.
+
+    Returns
+    -------
+    soc : numpy.ndarray, shape (m,)
+        Median SOC per cluster, fraction, ascending.
+    v : numpy.ndarray, shape (m,)
+        Median value per cluster, V.
     """
     s = np.asarray(rest_soc, dtype=float)
     v = np.asarray(rest_v, dtype=float)
@@ -52,7 +68,29 @@ def rest_clusters(rest_soc, rest_v, gap: float = 0.02):
 
 
 def rest_curve(grid, base_v, rest_soc, rest_v, n_breakpoints: int, label: str):
-    """OCV through the rest points (monotone), joined to the base curve's shape outside their range."""
+    """OCV through the rest points (monotone), joined to the base curve's shape outside their range.
+
+    Parameters
+    ----------
+    grid : array_like, shape (n,)
+        SOC grid, fraction 0..1, increasing.
+    base_v : array_like, shape (n,)
+        Base (low-rate) OCV on ``grid``, V; its shape is used outside the rest points' SOC range.
+    rest_soc : array_like, shape (m,)
+        SOC of each rest point, fraction.
+    rest_v : array_like, shape (m,)
+        Rest-end voltage of each rest point, V.
+    n_breakpoints : int
+        Number of breakpoints of the returned curve.
+    label : str
+        Provenance text stored in the curve.
+
+    Returns
+    -------
+    curve : OcvCurve
+    max_error_v : float
+        Largest breakpoint-fit error against the dense curve, V (see :func:`curve_from_dense`).
+    """
     grid = np.asarray(grid, dtype=float)
     s = np.asarray(rest_soc, dtype=float)
     order = np.argsort(s)
@@ -71,7 +109,36 @@ def rest_curve(grid, base_v, rest_soc, rest_v, n_breakpoints: int, label: str):
 
 
 def anchored_curve(grid, base_v, rest_soc, rest_v, n_breakpoints: int, label: str, gap: float = 0.02):
-    """Base curve + piecewise-linear correction through the rest-point clusters' offsets."""
+    """Base curve + piecewise-linear correction through the rest-point clusters' offsets.
+
+    Parameters
+    ----------
+    grid : array_like, shape (n,)
+        SOC grid, fraction 0..1, increasing.
+    base_v : array_like, shape (n,)
+        Base (low-rate) OCV on ``grid``, V.
+    rest_soc : array_like, shape (m,)
+        SOC of each rest point, fraction.
+    rest_v : array_like, shape (m,)
+        Rest-end voltage of each rest point, V.
+    n_breakpoints : int
+        Number of breakpoints of the returned curve.
+    label : str
+        Provenance text stored in the curve.
+    gap : float
+        Cluster gap in SOC, fraction (see :func:`rest_clusters`).
+
+    Returns
+    -------
+    curve : OcvCurve
+    max_error_v : float
+        Largest breakpoint-fit error, V.
+    anchor_soc : numpy.ndarray, shape (k,)
+        Cluster median SOCs, fraction.
+    anchor_offset_v : numpy.ndarray, shape (k,)
+        Median offset of the rest points from the base curve per cluster, V (held constant beyond
+        the end clusters).
+    """
     grid = np.asarray(grid, dtype=float)
     off = np.asarray(rest_v, dtype=float) - np.interp(rest_soc, grid, base_v)
     cs, co = rest_clusters(rest_soc, off, gap)
@@ -82,6 +149,19 @@ def anchored_curve(grid, base_v, rest_soc, rest_v, n_breakpoints: int, label: st
 
 def ocv_candidates(ocv_result, rest_soc, rest_v, n_breakpoints: int, rest_label: str = "pulse test"):
     """All OCV sources that the data allow.
+
+    Parameters
+    ----------
+    ocv_result : OcvTestResult
+        The low-rate OCV test result (branches on ``soc_grid``, V).
+    rest_soc : array_like, shape (m,)
+        SOC of each pulse-test rest point, fraction.
+    rest_v : array_like, shape (m,)
+        Rest-end voltage of each rest point, V.
+    n_breakpoints : int
+        Breakpoints of the rest-based curves.
+    rest_label : str
+        Name of the test the rest points come from (used in the curves' provenance).
 
     Returns
     -------
