@@ -61,6 +61,18 @@ def steps_from_segmentation(seg) -> list[Step]:
 
     Neighbouring segments of one kind (a constant-current step and the constant-voltage taper
     after it, split where the current fell fast) are one step here.
+
+    Parameters
+    ----------
+    seg : Segmentation
+        Output of :func:`socfuse.models.segment.segment_recording` (its time in s, current in A with
+        the sensor offset removed, and segments).
+
+    Returns
+    -------
+    list of Step
+        One step per run of same-kind segments: kind, start and stop sample, charge in Ah
+        (positive on discharge), mean current in A and duration in s.
     """
     t, i = seg.time_s, seg.current_a
     n = t.size
