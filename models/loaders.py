@@ -237,6 +237,24 @@ def make_column_map(preset: str | None = None, mapping: ColumnMap | None = None,
     Later sources win: preset < ``mapping`` < keyword options.  Options set to ``None`` are
     ignored (so argparse defaults do not override a preset).  Unknown option names are
     refused, listing the valid ones.
+
+    Parameters
+    ----------
+    preset : str, optional
+        Name of a preset in ``PRESETS``.
+    mapping : ColumnMap, optional
+        Base mapping; only its fields that differ from the defaults are applied.
+    **options
+        :class:`ColumnMap` field names and values; ``None`` values are ignored.
+
+    Returns
+    -------
+    ColumnMap
+
+    Raises
+    ------
+    RecordingError
+        For an unknown preset or option name.
     """
     unknown = sorted(k for k in options if k not in _FIELD_NAMES)
     if unknown:
@@ -521,7 +539,27 @@ def _mat_scalar(x):
 
 
 def read_table(path, cmap: ColumnMap | None = None) -> RawTable:
-    """Read a file's columns without mapping them (for tools that list what a file holds)."""
+    """Read a file's columns without mapping them (for tools that list what a file holds).
+
+    Parameters
+    ----------
+    path : str or os.PathLike
+        A CSV, Parquet or MATLAB file.
+    cmap : ColumnMap, optional
+        Reader options (delimiter, MATLAB variable and so on); default :class:`ColumnMap()`.
+
+    Returns
+    -------
+    RawTable
+        The file's columns by name, unmapped and unconverted.
+
+    Raises
+    ------
+    FileNotFoundError
+        When ``path`` does not exist.
+    RecordingError
+        For a folder, an unknown suffix or an empty file.
+    """
     p = Path(path)
     cmap = cmap or ColumnMap()
     if not p.exists():
@@ -807,6 +845,16 @@ def bundled_recording_path(name: str) -> Path | None:
 
     Works in a source checkout (the repository's ``datasets/`` folder) and after a plain
     (non-editable) install, where the demo data is package data of ``socfuse.datasets``.
+
+    Parameters
+    ----------
+    name : str
+        File name inside ``socfuse.datasets`` (e.g. a demo CSV).
+
+    Returns
+    -------
+    pathlib.Path or None
+        The file, or None when the package data or the file is missing.
     """
     import importlib.resources as resources
 
