@@ -78,7 +78,19 @@ def _jsonable(x):
 
 
 def model_to_dict(model: CellModel) -> dict:
-    """The model as a JSON-ready dict."""
+    """The model as a JSON-ready dict.
+
+    Parameters
+    ----------
+    model : CellModel
+
+    Returns
+    -------
+    dict
+        ``schema``, ``name``, ``capacity_ah`` (Ah), ``coulombic_efficiency``, ``v_min_v`` and ``v_max_v``
+        (V), ``ocv`` (SOC fractions, V, degC axis or None), ``r0_ohm`` and the ``rc_pairs`` tables
+        (ohm, s), ``hysteresis`` (``gamma``, ``max_v`` in V) or None, and ``provenance``.
+    """
     ocv = model.ocv
     ocv_v = ocv.ocv_v[0] if ocv.temperature_c is None else ocv.ocv_v
     return {
@@ -119,7 +131,24 @@ def _read_table(d, where, name) -> ParamTable:
 
 
 def model_from_dict(d: dict, where: str = "cell model") -> CellModel:
-    """Build a :class:`CellModel` from a dict read from JSON, validating every key."""
+    """Build a :class:`CellModel` from a dict read from JSON, validating every key.
+
+    Parameters
+    ----------
+    d : dict
+        The parsed JSON (layout of :func:`model_to_dict`).
+    where : str
+        Name of the source (a file name) used in error messages.
+
+    Returns
+    -------
+    CellModel
+
+    Raises
+    ------
+    ModelFileError
+        For a wrong schema, an unknown or missing key, or an invalid value, naming the key.
+    """
     _check_keys(d, _TOP, where, required=_REQUIRED)
     if d["schema"] != MODEL_SCHEMA:
         raise ModelFileError(f"{where}: schema is {d['schema']!r}, expected {MODEL_SCHEMA!r}")
