@@ -131,6 +131,18 @@ def charge_throughput_ah(time_s, current_a) -> np.ndarray:
 
     Positive when net discharge.  Matches ``scipy.integrate.cumulative_trapezoid(i, t,
     initial=0) / 3600``.
+
+    Parameters
+    ----------
+    time_s : array_like, shape (n,)
+        Sample times, s.
+    current_a : array_like, shape (n,)
+        Current, A, positive on discharge.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        Cumulative net discharged charge, Ah.
     """
     t = np.asarray(time_s, dtype=float)
     i = np.asarray(current_a, dtype=float)
