@@ -82,7 +82,24 @@ def unit_rc_response(time_s, current_a, tau_s, start, stop):
 
 
 def soc_trajectory(model: CellModel, time_s, current_a, soc0: float = 1.0) -> np.ndarray:
-    """SOC at every sample by the sampling rule (trapezoid charge, efficiency on charge)."""
+    """SOC at every sample by the sampling rule (trapezoid charge, efficiency on charge).
+
+    Parameters
+    ----------
+    model : CellModel
+        Supplies ``capacity_ah`` (Ah) and ``coulombic_efficiency`` (applied to charging intervals).
+    time_s : array_like, shape (n,)
+        Sample times, s.
+    current_a : array_like, shape (n,)
+        Current, A, positive on discharge.
+    soc0 : float
+        SOC at the first sample, fraction 0..1.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        SOC, fraction (not clipped to 0..1).
+    """
     t = np.asarray(time_s, dtype=float)
     u = interval_current(current_a)
     eta = np.where(u >= 0, 1.0, model.coulombic_efficiency)
