@@ -9,7 +9,25 @@ __all__ = ["ParamTable", "as_axis", "clamp_weights"]
 
 
 def as_axis(values, what: str) -> np.ndarray:
-    """Return a strictly increasing, finite float64 1-D copy of ``values`` or raise ValueError."""
+    """Return a strictly increasing, finite float64 1-D copy of ``values`` or raise ValueError.
+
+    Parameters
+    ----------
+    values : array_like
+        Axis values in the axis's unit (flattened).
+    what : str
+        Name of the axis in the error message.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        float64 copy.
+
+    Raises
+    ------
+    ValueError
+        When empty, non-finite or not strictly increasing (naming the position).
+    """
     a = np.array(values, dtype=float).ravel()
     if a.size == 0:
         raise ValueError(f"{what}: empty")
@@ -27,6 +45,20 @@ def clamp_weights(axis: np.ndarray, x):
 
     Returns ``(i0, w)`` such that the interpolated value is ``(1-w)*y[i0] + w*y[i0+1]``.
     A single-point axis gives ``i0 = 0, w = 0`` (and callers must not read ``y[1]``).
+
+    Parameters
+    ----------
+    axis : numpy.ndarray, shape (n,)
+        Strictly increasing axis (see :func:`as_axis`).
+    x : array_like
+        Query points in the axis's unit; clamped to ``[axis[0], axis[-1]]``.
+
+    Returns
+    -------
+    i0 : numpy.ndarray of int, same shape as ``x``
+        Lower index, in ``0 .. n-2`` (0 for a single-point axis).
+    w : numpy.ndarray, same shape as ``x``
+        Weight of ``y[i0 + 1]``, in 0..1.
     """
     x = np.asarray(x, dtype=float)
     if axis.size == 1:
