@@ -154,13 +154,40 @@ def discretise_rc(tau_s, r_ohm, dt_s):
     ``v[k+1] = a v[k] + b u[k]`` with ``a = exp(-dt/tau)`` and ``b = R (1 - a)``; this equals
     ``scipy.signal.cont2discrete`` of ``dv/dt = -v/tau + u/C`` with method ``"zoh"``.
     Arrays broadcast.
+
+    Parameters
+    ----------
+    tau_s : array_like
+        Time constant, s.
+    r_ohm : array_like
+        Resistance, ohm.
+    dt_s : array_like
+        Sample interval, s.
+
+    Returns
+    -------
+    a : numpy.ndarray
+        Decay factor per step, dimensionless.
+    b : numpy.ndarray
+        Input gain, ohm (V per A of interval current).
     """
     a = np.exp(-np.asarray(dt_s, dtype=float) / np.asarray(tau_s, dtype=float))
     return a, np.asarray(r_ohm, dtype=float) * (1.0 - a)
 
 
 def interval_current(current_a) -> np.ndarray:
-    """Mean current over each sample interval, ``(i[k] + i[k+1]) / 2``; length N - 1."""
+    """Mean current over each sample interval, ``(i[k] + i[k+1]) / 2``; length N - 1.
+
+    Parameters
+    ----------
+    current_a : array_like, shape (n,)
+        Current at the samples, A, positive on discharge.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n - 1,)
+        Mean current per interval, A.
+    """
     i = np.asarray(current_a, dtype=float)
     return 0.5 * (i[:-1] + i[1:])
 
