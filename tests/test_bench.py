@@ -166,3 +166,20 @@ def test_progress_is_quiet_off_a_terminal(monkeypatch):
     assert show_progress() is False          # pytest captures output: not a terminal
     monkeypatch.setenv("SOCFUSE_PROGRESS", "1")
     assert show_progress() is True and show_progress(quiet=True) is False
+
+
+def test_summary_counts_gaps_and_the_envelope(small):
+    # issue 16: the report's runs table (summary.csv) counts the samples the filter step flagged;
+    # the baseline carries no status, so its counts are blank
+    from socfuse.models.recording import Recording
+
+    rec, model, _ = small
+    keep = np.ones(rec.n, bool)
+    keep[1000:1600] = False  # a 10 min logging gap while riding
+    temp = np.where(np.arange(rec.n) >= 3000, -45.0, 25.0)  # far below the model's tables at the end
+    gapped = Recording(rec.time_s[keep], rec.current_a[keep], rec.voltage_v[keep], temp[keep], rec.soc_ref[keep],
+                       "gapped")
+    res = run_bench(model, [gapped], ["nominal"], ["ekf", "coulomb"], soc0=float(rec.soc_ref[0]), quiet=True)
+    s = res.summary.set_index("method")
+    assert s.loc["ekf", "n_gap"] >= 1 and s.loc["ekf", "n_envelope"] >= 500
+    assert pd.isna(s.loc["coulomb", "n_gap"])

@@ -32,9 +32,37 @@ SUMMARY_KEY_COLUMNS = ("recording", "scenario", "method")
 DEFAULT_METHODS = ("ekf", "coulomb")
 
 
+#: Per-run counts of samples the filter step flagged (status bits of the EKF and UKF traces; blank
+#: for methods without status): inside or after a logging gap, outside the model's temperature
+#: envelope (voltage not used), and fallen back to coulomb counting by the consistency monitor.
+FLAG_COLUMNS = ("n_gap", "n_envelope", "n_fallback")
+
+
+def flag_counts(tr) -> dict:
+    """Counts of flagged samples in a trace.
+
+    Parameters
+    ----------
+    tr : Trace
+        A trace; its ``status`` bits (None for methods without a filter step) are counted.
+
+    Returns
+    -------
+    dict
+        :data:`FLAG_COLUMNS` -> int, or None for each when the trace has no status.
+    """
+    status = getattr(tr, "status", None)
+    if status is None:
+        return dict.fromkeys(FLAG_COLUMNS)
+    from socfuse.estimator.filters.kernels import STATUS_BITS
+
+    st = np.asarray(status)
+    return {f"n_{b}": int(np.count_nonzero(st & STATUS_BITS[b])) for b in ("gap", "envelope", "fallback")}
+
+
 def summary_columns() -> list[str]:
     """All summary.csv columns in order."""
-    return list(SUMMARY_KEY_COLUMNS) + list(METRIC_COLUMNS) + ["faults"]
+    return list(SUMMARY_KEY_COLUMNS) + list(METRIC_COLUMNS) + list(FLAG_COLUMNS) + ["faults"]
 
 
 @dataclass(frozen=True)
@@ -113,7 +141,7 @@ def run_task(model, recording, scenario: Scenario, method: str, settings=None, s
     except (ValueError, ArithmeticError) as e:
         return None, None, case.notes, time.perf_counter() - t0, f"{type(e).__name__}: {e}"
     row = {"recording": recording.name, "scenario": scenario.name, "method": method, **m.as_row(),
-           "faults": scenario.spec}
+           **flag_counts(tr), "faults": scenario.spec}
     return row, (tr if keep_trace else None), case.notes, time.perf_counter() - t0, None
 
 
