@@ -40,7 +40,22 @@ def _save(fig, path: Path, overwrite: bool) -> Path:
 
 
 def plot_ocv(result, path, overwrite: bool = False) -> Path:
-    """OCV sources of an :class:`~models.identify.pipeline.IdentifyResult`."""
+    """OCV sources of an :class:`~models.identify.pipeline.IdentifyResult`.
+
+    Parameters
+    ----------
+    result : IdentifyResult
+        Supplies the low-rate branches, the OCV candidates, the rest points and the model's curve.
+    path : str or os.PathLike
+        PNG file to write.
+    overwrite : bool
+        Replace an existing file; when False an existing file raises ``FileExistsError``.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
     plt = _plt()
     o = result.ocv_test
     fig, ax = plt.subplots(figsize=(8, 5))
@@ -68,7 +83,22 @@ def plot_ocv(result, path, overwrite: bool = False) -> Path:
 
 
 def plot_parameters(result, path, overwrite: bool = False) -> Path:
-    """R0, R_j and tau_j over SOC: per-pulse values and the model tables."""
+    """R0, R_j and tau_j over SOC: per-pulse values and the model tables.
+
+    Parameters
+    ----------
+    result : IdentifyResult
+        Supplies the per-pulse fits and the model's tables (R in ohm, plotted in mOhm; tau in s).
+    path : str or os.PathLike
+        PNG file to write.
+    overwrite : bool
+        Replace an existing file; when False an existing file raises ``FileExistsError``.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
     plt = _plt()
     n = result.n_rc
     fig, axes = plt.subplots(1, 1 + 2 * n if n else 1, figsize=(4 * (1 + 2 * n), 3.8), squeeze=False)
@@ -102,7 +132,26 @@ def plot_parameters(result, path, overwrite: bool = False) -> Path:
 
 
 def plot_pulse_fits(res, n_rc: int, folder, per_page: int = 12, overwrite: bool = False) -> list:
-    """Every pulse of one pulse test: measured pulse + relaxation and the fitted relaxation."""
+    """Every pulse of one pulse test: measured pulse + relaxation and the fitted relaxation.
+
+    Parameters
+    ----------
+    res : PulseTestResult
+        One pulse test (its recording and per-pulse fits).
+    n_rc : int
+        Number of RC pairs whose fitted relaxation is drawn.
+    folder : str or os.PathLike
+        Output folder; files are named ``pulse_fits_<test>_<page>.png``.
+    per_page : int
+        Pulses per figure.
+    overwrite : bool
+        Replace existing files; when False an existing file raises ``FileExistsError``.
+
+    Returns
+    -------
+    list of pathlib.Path
+        One PNG per page; empty when the result holds no recording.
+    """
     from socfuse.models.identify.pulse import relaxation_curve
 
     plt = _plt()
@@ -145,7 +194,22 @@ def plot_pulse_fits(res, n_rc: int, folder, per_page: int = 12, overwrite: bool 
 
 
 def plot_validation(v, path, overwrite: bool = False) -> Path:
-    """Open-loop voltage error over time for one validation result."""
+    """Open-loop voltage error over time for one validation result.
+
+    Parameters
+    ----------
+    v : ValidationResult
+        Open-loop validation of one recording (time in s, residual in V).
+    path : str or os.PathLike
+        PNG file to write.
+    overwrite : bool
+        Replace an existing file; when False an existing file raises ``FileExistsError``.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
+    """
     plt = _plt()
     fig, ax = plt.subplots(figsize=(8, 3.5))
     ax.plot((v.time_s - v.time_s[0]) / 3600.0, v.residual_v * 1000, lw=0.5)
@@ -160,7 +224,22 @@ def plot_validation(v, path, overwrite: bool = False) -> Path:
 
 
 def save_plots(result, folder, overwrite: bool = False) -> list:
-    """Write all plots of an identification into ``folder`` (created if needed); returns the paths."""
+    """Write all plots of an identification into ``folder`` (created if needed); returns the paths.
+
+    Parameters
+    ----------
+    result : IdentifyResult
+        The identification to plot.
+    folder : str or os.PathLike
+        Output folder.
+    overwrite : bool
+        Replace existing PNG files; when False an existing file raises ``FileExistsError``.
+
+    Returns
+    -------
+    list of pathlib.Path
+        The PNG files written (OCV, parameters, pulse fits per test and page, one per validation).
+    """
     folder = Path(folder)
     folder.mkdir(parents=True, exist_ok=True)
     paths = [plot_ocv(result, folder / "ocv.png", overwrite),
