@@ -117,7 +117,24 @@ class RelaxationFit:
 
 
 def relaxation_curve(time_s, v_inf_v, amplitude_v, tau_s):
-    """``v_inf - sum_j A_j exp(-(t - t[0]) / tau_j)`` at ``time_s``."""
+    """``v_inf - sum_j A_j exp(-(t - t[0]) / tau_j)`` at ``time_s``.
+
+    Parameters
+    ----------
+    time_s : array_like, shape (n,)
+        Sample times, s; the curve starts at ``time_s[0]``.
+    v_inf_v : float
+        Asymptotic (rested) voltage, V.
+    amplitude_v : sequence of float
+        Amplitude of each exponential, V.
+    tau_s : sequence of float
+        Time constant of each exponential, s.
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        Voltage, V.
+    """
     t = np.asarray(time_s, dtype=float)
     x = t - t[0]
     v = np.full(t.shape, float(v_inf_v))
@@ -227,6 +244,22 @@ def rc_from_rectangular_pulse(amplitude_v, tau_s, current_a: float, duration_s: 
     For a pair charged from 0 V by a constant current ``I`` for ``T`` seconds,
     ``v(T) = R I (1 - exp(-T / tau))`` (first-order step response), so
     ``R = A / (I (1 - exp(-T / tau)))``.
+
+    Parameters
+    ----------
+    amplitude_v : sequence of float
+        Relaxation amplitude of each pair, V.
+    tau_s : sequence of float
+        Time constant of each pair, s (same length).
+    current_a : float
+        Pulse current, A (its sign carries through to R).
+    duration_s : float
+        Pulse length, s.
+
+    Returns
+    -------
+    tuple of float
+        Resistance of each pair, ohm.
     """
     return tuple(float(a) / (current_a * (1.0 - np.exp(-duration_s / tau)))
                  for a, tau in zip(amplitude_v, tau_s))
@@ -323,6 +356,30 @@ def pulse_soc(rec: Recording, capacity_ah: float, soc_mode: str = "auto", soc0: 
     ``soc_mode``: ``"soc_ref"`` (the recording's column), ``"ah_counter"`` (a cycler counter in
     ``metadata["extras"]``, named by ``metadata["ah_counter_column"]``), ``"count"`` (trapezoid
     charge from ``soc0`` with ``capacity_ah``) or ``"auto"`` (the first available in that order).
+
+    Parameters
+    ----------
+    rec : Recording
+        The pulse test.
+    capacity_ah : float
+        Cell capacity, Ah (used by ``"ah_counter"`` and ``"count"``).
+    soc_mode : {"auto", "soc_ref", "ah_counter", "count"}
+        How the SOC is obtained.
+    soc0 : float
+        SOC at the first sample for ``"ah_counter"`` and ``"count"``, fraction.
+
+    Returns
+    -------
+    soc : numpy.ndarray, shape (n,)
+        SOC at every sample, fraction (not clipped).
+    label : str
+        How it was obtained.
+
+    Raises
+    ------
+    PulseError
+        When the requested source is missing or not finite (naming the column and row), or for an
+        unknown mode.
     """
     where = rec.name or "pulse test"
     meta = rec.metadata or {}
@@ -470,6 +527,30 @@ def rest_points(rec: Recording, soc, threshold_a: float | None = None, min_rest_
     Every rest of at least ``min_rest_s`` (from :func:`models.segment.segment_recording`, cut at
     gaps) contributes its last sample.  These are OCV points (on the side of the hysteresis the
     last current left).
+
+    Parameters
+    ----------
+    rec : Recording
+        The test (time in s, current in A, voltage in V).
+    soc : array_like, shape (n,)
+        SOC at every sample, fraction 0..1 (e.g. from :func:`pulse_soc`).
+    threshold_a : float, optional
+        Fixed rest threshold on ``|current|``, A; default from the recording's noise floor.
+    min_rest_s : float
+        Shortest rest that counts, s.
+    gap_s : float, optional
+        Time steps longer than this cut a rest, s.
+    segmentation : Segmentation, optional
+        A segmentation already computed for ``rec`` (then ``threshold_a`` and ``gap_s`` are unused).
+
+    Returns
+    -------
+    soc : numpy.ndarray, shape (m,)
+        SOC at each rest end, fraction.
+    voltage_v : numpy.ndarray, shape (m,)
+        Voltage at each rest end, V.
+    rest_length_s : numpy.ndarray, shape (m,)
+        Length of each rest, s.
     """
     t, v = rec.time_s, rec.voltage_v
     seg = segmentation or segment_recording(t, rec.current_a, v, gap_s=gap_s, threshold_a=threshold_a)
@@ -651,6 +732,25 @@ def choose_rc_pairs(results, rc_pairs=None):
 
     ``rc_pairs`` given: that.  Otherwise 2 when, over all rests with valid 1- and 2-pair fits
     (at least 3 of them), the median BIC drop exceeds :data:`BIC_MARGIN`; else 1.
+
+    Parameters
+    ----------
+    results : sequence of PulseTestResult
+        Pulse tests with their 1- and 2-pair relaxation fits.
+    rc_pairs : int, optional
+        Fixed number of pairs (overrides the choice).
+
+    Returns
+    -------
+    n_rc : int
+        1 or 2 (or ``rc_pairs`` when given).
+    reason : str
+        One line saying why.
+
+    References
+    ----------
+    G. Schwarz, "Estimating the dimension of a model", Annals of Statistics 6 (1978), 461-464
+    (the Bayesian information criterion; page numbers from memory).
     """
     if rc_pairs is not None:
         return int(rc_pairs), f"{int(rc_pairs)} RC pair(s) as requested"
@@ -803,17 +903,79 @@ def pulse_tables(results, n_rc: int, soc_axis=None):
 
 # ============================================================================ DOE/INL pulse power
 def pulse_resistance(v_before_v, i_before_a, v_end_v, i_end_a):
-    """DOE/INL pulse resistance ``|dV/dI|`` (ohm) between the sample before and the pulse end."""
+    """DOE/INL pulse resistance ``|dV/dI|`` (ohm) between the sample before and the pulse end.
+
+    Parameters
+    ----------
+    v_before_v : float
+        Voltage of the sample before the pulse, V.
+    i_before_a : float
+        Current of that sample, A.
+    v_end_v : float
+        Voltage of the last pulse sample, V.
+    i_end_a : float
+        Current of that sample, A (must differ from ``i_before_a``).
+
+    Returns
+    -------
+    float
+        Pulse resistance, ohm.
+
+    References
+    ----------
+    FreedomCAR Battery Test Manual for Power-Assist Hybrid Electric Vehicles, DOE/ID-11069,
+    INEEL 2003 (recalled from memory).
+    """
     return abs((v_end_v - v_before_v) / (i_end_a - i_before_a))
 
 
 def discharge_power_w(ocv_v, r_dis_ohm, v_min_v):
-    """Discharge pulse power capability ``V_min (OCV - V_min) / R_dis`` (W), DOE/INL definition."""
+    """Discharge pulse power capability ``V_min (OCV - V_min) / R_dis`` (W), DOE/INL definition.
+
+    Parameters
+    ----------
+    ocv_v : float or array_like
+        Rested voltage before the pulse, V.
+    r_dis_ohm : float or array_like
+        Discharge pulse resistance, ohm.
+    v_min_v : float
+        Minimum cell voltage, V.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Discharge pulse power capability, W.
+
+    References
+    ----------
+    FreedomCAR Battery Test Manual for Power-Assist Hybrid Electric Vehicles, DOE/ID-11069,
+    INEEL 2003 (recalled from memory).
+    """
     return v_min_v * (ocv_v - v_min_v) / r_dis_ohm
 
 
 def regen_power_w(ocv_v, r_regen_ohm, v_max_v):
-    """Regen pulse power capability ``V_max (V_max - OCV) / R_regen`` (W), DOE/INL definition."""
+    """Regen pulse power capability ``V_max (V_max - OCV) / R_regen`` (W), DOE/INL definition.
+
+    Parameters
+    ----------
+    ocv_v : float or array_like
+        Rested voltage before the pulse, V.
+    r_regen_ohm : float or array_like
+        Regen pulse resistance, ohm.
+    v_max_v : float
+        Maximum cell voltage, V.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Regen pulse power capability, W.
+
+    References
+    ----------
+    FreedomCAR Battery Test Manual for Power-Assist Hybrid Electric Vehicles, DOE/ID-11069,
+    INEEL 2003 (recalled from memory).
+    """
     return v_max_v * (v_max_v - ocv_v) / r_regen_ohm
 
 
@@ -832,7 +994,28 @@ class PowerRow:
 
 
 def pulse_power_table(results, v_min_v: float, v_max_v: float) -> list[PowerRow]:
-    """The DOE/INL pulse-resistance and pulse power capability table, one row per pulse."""
+    """The DOE/INL pulse-resistance and pulse power capability table, one row per pulse.
+
+    Parameters
+    ----------
+    results : sequence of PulseTestResult
+        Pulse tests; only pulses of kind ``"pulse"`` with a finite positive resistance give rows.
+    v_min_v : float
+        Minimum cell voltage for the discharge power, V.
+    v_max_v : float
+        Maximum cell voltage for the regen power, V.
+
+    Returns
+    -------
+    list of PowerRow
+        Per pulse: SOC (fraction), direction, |current| (A), duration (s), OCV before (V),
+        pulse resistance (ohm), power capability (W) and temperature (degC).
+
+    References
+    ----------
+    FreedomCAR Battery Test Manual for Power-Assist Hybrid Electric Vehicles, DOE/ID-11069,
+    INEEL 2003 (HPPC analysis; recalled from memory, as in the module docstring).
+    """
     rows = []
     for res in results:
         for pf in res.pulses:
