@@ -31,6 +31,33 @@ def hppc_profile(capacity_ah: float, pulse_currents_a=(1.0,), regen_ratio: float
     SOC (counting the pulses' charge), followed by ``rest_s``.  Samples every ``dt_s`` seconds,
     or every ``fine_dt_s`` during pulses and the first 60 s after them (uneven sampling).
 
+    Parameters
+    ----------
+    capacity_ah : float
+        Cell capacity, Ah (sets the move current and the SOC bookkeeping).
+    pulse_currents_a : sequence of float
+        Discharge pulse currents at each level, A.
+    regen_ratio : float
+        Regen pulse current as a fraction of the discharge pulse current (0: no regen pulse).
+    pulse_s : float
+        Length of each pulse, s.
+    mid_rest_s : float
+        Rest between the discharge and the regen pulse, s.
+    rest_s : float
+        Rest after each pulse pair and after each SOC move, s.
+    levels : sequence of float
+        SOC levels of the pulses, fraction 0..1, descending.
+    move_rate_c : float
+        Discharge rate between levels, C (1/h).
+    dt_s : float
+        Sample interval, s.
+    fine_dt_s : float, optional
+        Sample interval during pulses and the 60 s after them, s (default ``dt_s``).
+    soc_start : float
+        SOC at the start, fraction.
+    first_rest_s : float
+        Rest before the first move, s.
+
     Returns
     -------
     time_s, current_a : ndarray
@@ -74,6 +101,27 @@ def low_rate_profile(capacity_ah: float, rate_c: float = 0.05, dt_s: float = 60.
     """A rest, a constant discharge of ``capacity_ah`` at ``rate_c``, a rest and (optionally) the charge back.
 
     The discharge removes exactly ``capacity_ah`` (the simulated cell then sits at SOC 0).
+
+    Parameters
+    ----------
+    capacity_ah : float
+        Cell capacity, Ah.
+    rate_c : float
+        Test rate, C (1/h); the current is ``rate_c * capacity_ah`` A.
+    dt_s : float
+        Sample interval of the rests, s (the discharge and charge intervals are adjusted so that
+        they hold a whole number of samples).
+    rest_s : float
+        Length of each rest, s.
+    charge : bool
+        Append the constant-current charge back and a final rest.
+
+    Returns
+    -------
+    time_s : numpy.ndarray, shape (n,)
+        Sample times, s, from 0.
+    current_a : numpy.ndarray, shape (n,)
+        Current, A, positive on discharge.
     """
     i_test = rate_c * capacity_ah
     dur = capacity_ah / i_test * 3600.0
