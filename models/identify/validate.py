@@ -52,7 +52,17 @@ class ValidationResult:
 
 
 def recording_temperature(rec: Recording):
-    """The recording's temperature array, or 25 degC when it has none."""
+    """The recording's temperature array, or 25 degC when it has none.
+
+    Parameters
+    ----------
+    rec : Recording
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,) or float
+        ``rec.temperature_c`` in degC when present and finite everywhere, else 25.0.
+    """
     if rec.temperature_c is not None and np.all(np.isfinite(rec.temperature_c)):
         return rec.temperature_c
     return 25.0
@@ -63,6 +73,27 @@ def initial_soc(model: CellModel, rec: Recording, soc0: float | None = None):
 
     Given ``soc0``; else the recording's first ``soc_ref``; else the OCV inverse of the first
     voltage corrected by the R0 drop of the first current (assumes the cell starts rested).
+
+    Parameters
+    ----------
+    model : CellModel
+        Supplies the OCV curve and R0 (ohm).
+    rec : Recording
+        The recording (voltage in V, current in A, optional ``soc_ref`` and temperature in degC).
+    soc0 : float, optional
+        Given initial SOC, fraction.
+
+    Returns
+    -------
+    soc0 : float
+        Initial SOC, fraction.
+    label : str
+        How it was obtained.
+
+    Raises
+    ------
+    RecordingError
+        When it must be found from the voltage and the voltage column has no finite sample.
     """
     if soc0 is not None:
         return float(soc0), "given"
