@@ -63,7 +63,28 @@ _SETUP_CACHE: dict = {}
 
 
 def setup(model, settings: FilterSettings | None = None, tables: KernelTables | None = None) -> EkfSetup:
-    """Build the kernel inputs for ``model`` (a CellModel) and ``settings`` (default: from the model)."""
+    """Build the kernel inputs for ``model`` (a CellModel) and ``settings`` (default: from the model).
+
+    Parameters
+    ----------
+    model : CellModel
+        The cell model.
+    settings : FilterSettings, optional
+        Filter settings; default :func:`default_settings(model) <default_settings>`.
+    tables : KernelTables, optional
+        Precomputed kernel tables for ``model`` (then the result is not cached).
+
+    Returns
+    -------
+    EkfSetup
+        The kernel tables, the parameter vector ``prm`` (read-only), the state layout (indices of the
+        RC voltages, bias, hysteresis and model-error states; ``n_x``; state names) and the settings.
+
+    References
+    ----------
+    G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV
+    battery packs", parts 1-3, J. Power Sources 134 (2004) (as cited in the module docstring).
+    """
     s = default_settings(model) if settings is None else settings
     key = (id(model), s)
     hit = _SETUP_CACHE.get(key)
@@ -131,7 +152,17 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
 
 
 def temperature_array(rec) -> np.ndarray:
-    """Per-sample temperature (degC) with missing values at 25 degC."""
+    """Per-sample temperature (degC) with missing values at 25 degC.
+
+    Parameters
+    ----------
+    rec : Recording
+
+    Returns
+    -------
+    numpy.ndarray, shape (n,)
+        Temperature, degC (25 where the recording has none or a sample is not finite).
+    """
     if rec.temperature_c is None:
         return np.full(rec.n, K.DEFAULT_TEMP_C)
     t = np.asarray(rec.temperature_c, dtype=float)
@@ -144,6 +175,29 @@ def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True
     With ``soc0`` given and ``check`` True (the filters), the hand-over is checked against the
     first voltage sample (:func:`handover`); the baseline passes ``check=False`` and counts from
     ``soc0`` as given.
+
+    Parameters
+    ----------
+    su : EkfSetup
+        From :func:`setup`.
+    rec : Recording
+        The recording (voltage in V, current in A, temperature in degC).
+    soc0 : float, optional
+        Given initial SOC, fraction; default: read from the first finite voltage sample.
+    check : bool
+        Check a given ``soc0`` against the first voltage sample (:func:`handover`).
+
+    Returns
+    -------
+    soc0 : float
+        Initial SOC, fraction.
+    sigma : float
+        Its standard deviation, fraction.
+
+    Raises
+    ------
+    ValueError
+        When ``soc0`` is not finite, or is None and no voltage sample is finite.
     """
     s = su.settings
     v = np.asarray(rec.voltage_v, dtype=float)
@@ -211,12 +265,40 @@ def _prior(su: EkfSetup, z0: float, sig0: float):
 
 
 def prior(su: EkfSetup, z0: float, sig0: float):
-    """Initial state ``x0`` (n_x,) and covariance ``P0`` (n_x, n_x) for SOC ``z0`` with sigma ``sig0``."""
+    """Initial state ``x0`` (n_x,) and covariance ``P0`` (n_x, n_x) for SOC ``z0`` with sigma ``sig0``.
+
+    Parameters
+    ----------
+    su : EkfSetup
+        From :func:`setup` (state layout and settings).
+    z0 : float
+        Initial SOC, fraction.
+    sig0 : float
+        Its standard deviation, fraction.
+
+    Returns
+    -------
+    x0 : numpy.ndarray, shape (n_x,)
+        Initial state (SOC fraction, RC voltages in V, then bias in A / hysteresis / model error in V
+        where present).
+    p0 : numpy.ndarray, shape (n_x, n_x)
+        Initial covariance in the squared units of the states.
+    """
     return _prior(su, z0, sig0)
 
 
 def recording_arrays(rec):
-    """``(time_s, current_a, voltage_v, temperature_c)`` as contiguous float arrays for the kernels."""
+    """``(time_s, current_a, voltage_v, temperature_c)`` as contiguous float arrays for the kernels.
+
+    Parameters
+    ----------
+    rec : Recording
+
+    Returns
+    -------
+    time_s, current_a, voltage_v, temperature_c : numpy.ndarray, shape (n,)
+        s, A (positive on discharge), V and degC (missing temperatures at 25 degC).
+    """
     return _arrays(rec)
 
 
@@ -296,6 +378,24 @@ def run_ekf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     settings : FilterSettings, optional (default :func:`default_settings(model)`)
     soc0 : float, optional  initial SOC (fraction); else from the OCV at the first sample
     store_covariance : bool  keep the posterior covariance (N, n_x, n_x) in ``Trace.covariance``
+    monitor : bool  run the monitored step of the exported C code (see above)
+
+    Returns
+    -------
+    Trace
+        ``method="ekf"``: SOC (fraction) and its sigma, predicted voltage (V), innovation (V) and
+        its variance (V^2), the states (N, n_x), the energy SOC and remaining energy (Wh), the
+        error against ``soc_ref`` when present, and the number of gated samples.
+
+    Raises
+    ------
+    ValueError
+        For ``monitor`` together with ``store_covariance``, or a bad ``soc0``.
+
+    References
+    ----------
+    G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV
+    battery packs", parts 1-3, J. Power Sources 134 (2004) (as cited in the module docstring).
     """
     if monitor and store_covariance:
         raise ValueError("store_covariance is not available for a monitored run")
@@ -303,7 +403,25 @@ def run_ekf(model, rec, settings: FilterSettings | None = None, soc0: float | No
 
 
 def run_ekf_store(model, rec, settings=None, soc0=None):
-    """EKF run that also returns ``(P_post, P_prior, F)``, each (N, n_x, n_x), for the smoother."""
+    """EKF run that also returns ``(P_post, P_prior, F)``, each (N, n_x, n_x), for the smoother.
+
+    Parameters
+    ----------
+    model : CellModel
+    rec : Recording
+    settings : FilterSettings, optional
+        Default :func:`default_settings(model) <default_settings>`.
+    soc0 : float, optional
+        Initial SOC, fraction; default from the first voltage sample.
+
+    Returns
+    -------
+    trace : Trace
+        As :func:`run_ekf`, with ``covariance`` set.
+    matrices : tuple of numpy.ndarray
+        ``(P_post, P_prior, F)``, each shape (N, n_x, n_x): posterior and prior covariance and the
+        state transition Jacobian mapping sample k-1 to k.
+    """
     return _run(model, rec, settings, soc0, True)
 
 
@@ -362,6 +480,24 @@ def run_ekf_batch(model, recs, settings: FilterSettings | None = None, soc0s=Non
 
     Same arguments as :func:`run_ekf_batch_raw`; returns a list of Trace, equal to running
     :func:`run_ekf` one by one.
+
+    Parameters
+    ----------
+    model : CellModel
+        The cell model (one for all recordings).
+    recs : sequence of Recording
+        The recordings (lengths may differ).
+    settings : FilterSettings, optional
+        Default :func:`default_settings(model) <default_settings>`.
+    soc0s : None, float or sequence of (float or None), optional
+        Initial SOC per recording, fraction; None: from the first voltage sample.
+    capacity_scales : sequence of float, optional
+        Per-recording multiplier of the capacity the filter assumes.
+
+    Returns
+    -------
+    list of Trace
+        One per recording, in order (empty for no recordings).
     """
     recs = list(recs)
     if not recs:
