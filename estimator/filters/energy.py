@@ -281,6 +281,21 @@ def energy_table(model: CellModel, temperature_c: float | None = None) -> Energy
     model : CellModel
     temperature_c : float, optional
         Default temperature (degC) for calls on the table that give none (default 25).
+
+    Returns
+    -------
+    EnergyTable
+        Closed-form integrals of the OCV over SOC per temperature row, for ``capacity_ah`` (Ah).
+
+    Raises
+    ------
+    EnergyError
+        When the model's capacity is not positive and finite.
+
+    References
+    ----------
+    F. N. Fritsch and R. E. Carlson, "Monotone piecewise cubic interpolation", SIAM J. Numer. Anal.
+    17 (1980) (the PCHIP interpolant whose antiderivative is used; as cited in the module docstring).
     """
     if temperature_c is None:
         tab = _TABLES.get(model)
@@ -317,22 +332,77 @@ def soc_c_to_e(model: CellModel, soc, temperature_c=None):
     """Energy-based SOC (fraction) at capacity-based SOC ``soc`` (fraction, clipped to [0, 1]).
 
     Vectorised over ``soc`` and ``temperature_c`` (degC, default 25), which broadcast.
+
+    Parameters
+    ----------
+    model : CellModel
+    soc : float or array_like
+        Capacity-based SOC, fraction.
+    temperature_c : float or array_like, optional
+        Temperature, degC (default 25).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Energy-based SOC, fraction 0..1, shape of the broadcast inputs.
     """
     return energy_table(model).soc_e(soc, temperature_c)
 
 
 def soc_e_to_c(model: CellModel, soc_e, temperature_c=None):
-    """Capacity-based SOC at energy-based SOC ``soc_e``; inverse of :func:`soc_c_to_e`."""
+    """Capacity-based SOC at energy-based SOC ``soc_e``; inverse of :func:`soc_c_to_e`.
+
+    Parameters
+    ----------
+    model : CellModel
+    soc_e : float or array_like
+        Energy-based SOC, fraction.
+    temperature_c : float or array_like, optional
+        Temperature, degC (default 25).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Capacity-based SOC, fraction 0..1, shape of the broadcast inputs.
+    """
     return energy_table(model).soc_c(soc_e, temperature_c)
 
 
 def remaining_energy_wh(model: CellModel, soc, temperature_c=None):
-    """Energy (Wh) one cell still gives at rest from ``soc`` down to SOC 0 (vectorised)."""
+    """Energy (Wh) one cell still gives at rest from ``soc`` down to SOC 0 (vectorised).
+
+    Parameters
+    ----------
+    model : CellModel
+    soc : float or array_like
+        SOC, fraction.
+    temperature_c : float or array_like, optional
+        Temperature, degC (default 25).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Energy to SOC 0 at rest (integral of the OCV over charge), Wh per cell.
+    """
     return energy_table(model).energy_wh(soc, temperature_c)
 
 
 def rest_energy_wh(model: CellModel, soc=1.0, temperature_c=None):
-    """Rest energy (Wh) of one cell from ``soc`` (default full) down to SOC 0."""
+    """Rest energy (Wh) of one cell from ``soc`` (default full) down to SOC 0.
+
+    Parameters
+    ----------
+    model : CellModel
+    soc : float or array_like
+        Start SOC, fraction (default 1, full).
+    temperature_c : float or array_like, optional
+        Temperature, degC (default 25).
+
+    Returns
+    -------
+    float or numpy.ndarray
+        Energy, Wh per cell.
+    """
     return remaining_energy_wh(model, soc, temperature_c)
 
 
@@ -363,7 +433,23 @@ class PackConfig:
 
 
 def parse_pack(text: str | None) -> PackConfig:
-    """Parse ``"14s4p"`` (case-insensitive; ``None`` or ``""`` = one cell, ``1s1p``)."""
+    """Parse ``"14s4p"`` (case-insensitive; ``None`` or ``""`` = one cell, ``1s1p``).
+
+    Parameters
+    ----------
+    text : str or None
+        Pack layout ``NsMp`` (N cells in series, M in parallel).
+
+    Returns
+    -------
+    PackConfig
+        ``(n_series, n_parallel)``.
+
+    Raises
+    ------
+    EnergyError
+        When ``text`` is not of the form ``NsMp``.
+    """
     if text is None or str(text).strip() == "":
         return PackConfig(1, 1)
     m = _PACK_RE.match(str(text))
