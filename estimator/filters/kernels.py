@@ -182,7 +182,18 @@ def error_index(nx, prm):
 
 
 def cache_size(n_rc: int) -> int:
-    """Length of the kernels' exponential cache for ``n_rc`` RC pairs."""
+    """Length of the kernels' exponential cache for ``n_rc`` RC pairs.
+
+    Parameters
+    ----------
+    n_rc : int
+        Number of RC pairs.
+
+    Returns
+    -------
+    int
+        ``2 * n_rc + 3``.
+    """
     return 2 * n_rc + 3
 
 
