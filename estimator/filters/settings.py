@@ -270,11 +270,41 @@ def _model_error_v(model) -> float:
 
 
 def settings_to_dict(s: FilterSettings) -> dict:
+    """The settings as a JSON-ready dict (the layout of ``filter.json``).
+
+    Parameters
+    ----------
+    s : FilterSettings
+
+    Returns
+    -------
+    dict
+        ``schema`` followed by every settings field in its unit (see :class:`FilterSettings`).
+    """
     return {"schema": FILTER_SCHEMA, **asdict(s)}
 
 
 def settings_from_dict(d: dict, where: str = "filter settings", base: FilterSettings | None = None) -> FilterSettings:
-    """Build settings from a dict; missing keys come from ``base`` (default: dataclass defaults)."""
+    """Build settings from a dict; missing keys come from ``base`` (default: dataclass defaults).
+
+    Parameters
+    ----------
+    d : dict
+        The parsed ``filter.json`` object; ``schema`` must equal ``FILTER_SCHEMA``.
+    where : str
+        Name of the source (a file name) used in error messages.
+    base : FilterSettings, optional
+        Values for the keys that ``d`` omits.
+
+    Returns
+    -------
+    FilterSettings
+
+    Raises
+    ------
+    SettingsError
+        For a non-object, an unknown key, a wrong schema or an invalid value.
+    """
     if not isinstance(d, dict):
         raise SettingsError(f"{where}: expected a JSON object, got {type(d).__name__}")
     valid = set(_names()) | {"schema"}
