@@ -25,6 +25,31 @@ def rts_pass(x_post, p_post, x_prior, p_prior, f):
     """The RTS backward pass over arrays (N, n_x), (N, n_x, n_x); ``f[k]`` maps k-1 to k.
 
     Returns the smoothed states (N, n_x) and covariances (N, n_x, n_x).
+
+    Parameters
+    ----------
+    x_post : numpy.ndarray, shape (N, n_x)
+        Filter posterior states.
+    p_post : numpy.ndarray, shape (N, n_x, n_x)
+        Filter posterior covariances.
+    x_prior : numpy.ndarray, shape (N, n_x)
+        Filter prior (predicted) states.
+    p_prior : numpy.ndarray, shape (N, n_x, n_x)
+        Filter prior covariances.
+    f : numpy.ndarray, shape (N, n_x, n_x)
+        Transition Jacobians; ``f[k]`` maps sample k-1 to k.
+
+    Returns
+    -------
+    xs : numpy.ndarray, shape (N, n_x)
+        Smoothed states.
+    ps : numpy.ndarray, shape (N, n_x, n_x)
+        Smoothed covariances (symmetrised).
+
+    References
+    ----------
+    H. E. Rauch, F. Tung and C. T. Striebel, "Maximum likelihood estimates of linear dynamic
+    systems", AIAA J. 3 (1965) 1445-1450.
     """
     n = x_post.shape[0]
     xs = x_post.copy()
@@ -42,6 +67,26 @@ def rts_smooth(model, rec, settings: FilterSettings | None = None, soc0: float |
 
     ``voltage_pred_v``/``innovation_v`` are the smoothed voltage and residual (measured minus
     smoothed), ``innovation_var_v2`` the filter's; ``covariance`` holds the smoothed P.
+
+    Parameters
+    ----------
+    model : CellModel
+    rec : Recording
+    settings : FilterSettings, optional
+        Default :func:`default_settings(model) <socfuse.estimator.filters.settings.default_settings>`.
+    soc0 : float, optional
+        Initial SOC, fraction; default from the first voltage sample.
+
+    Returns
+    -------
+    Trace
+        Smoothed SOC (fraction, clipped to the settings' limits), its sigma, smoothed voltage (V),
+        residual (V) and the smoothed states and covariances.
+
+    References
+    ----------
+    H. E. Rauch, F. Tung and C. T. Striebel, "Maximum likelihood estimates of linear dynamic
+    systems", AIAA J. 3 (1965) 1445-1450.
     """
     su = setup(model, settings)
     s = su.settings
