@@ -93,7 +93,45 @@ def state_names(n_rc: int, bias: bool, hyst: bool, model_error: bool = False) ->
 
 def make_trace(model, rec, method, soc, soc_sigma, vpred, innov, s, states, n_gated=0, reseeds=(),
                names=("soc",), covariance=None, metadata=None, status=None) -> Trace:
-    """Assemble a :class:`Trace`, adding energy SOC and the reference error."""
+    """Assemble a :class:`Trace`, adding energy SOC and the reference error.
+
+    Parameters
+    ----------
+    model : CellModel
+        For the energy SOC and remaining energy.
+    rec : Recording
+        Supplies time (s), temperature (degC), name and ``soc_ref``.
+    method : str
+        ``"ekf"``, ``"coulomb"``, ``"ukf"``, ``"rts"``, ...
+    soc : array_like, shape (N,)
+        SOC, fraction.
+    soc_sigma : array_like, shape (N,)
+        Its standard deviation, fraction.
+    vpred : array_like, shape (N,)
+        Predicted voltage, V.
+    innov : array_like, shape (N,)
+        Innovation (measured minus predicted), V.
+    s : array_like, shape (N,)
+        Innovation variance, V^2.
+    states : array_like, shape (N, n_x)
+        State trajectories.
+    n_gated : int
+        Samples whose voltage update was gated.
+    reseeds : sequence
+        Baseline OCV reseed events.
+    names : tuple of str
+        State names.
+    covariance : array_like, shape (N, n_x, n_x), optional
+    metadata : dict, optional
+    status : array_like of int, shape (N,), optional
+        Per-sample status bits.
+
+    Returns
+    -------
+    Trace
+        With ``soc_e`` (fraction) and ``energy_wh_remaining`` (Wh) added, and ``soc_error`` = ``soc - soc_ref``
+        when the recording has ``soc_ref``.
+    """
     soc = np.asarray(soc, dtype=float)
     soc_e = energy = None
     try:
