@@ -68,6 +68,11 @@ def write_trace_csv(trace, path, states: bool = False) -> None:
     trace : Trace
     path : str or Path   the file to write (the caller handles overwriting rules)
     states : bool   add the state columns (``v_rc_1_v``, ..., ``bias_a``, ``hyst``)
+
+    Returns
+    -------
+    None
+        The file is written.
     """
     text = format_trace_csv(trace.to_frame(states=states))
     with open(path, "w", encoding="utf-8", newline="") as f:
