@@ -61,7 +61,17 @@ def flag_counts(tr) -> dict:
 
 
 def summary_columns() -> list[str]:
-    """All summary.csv columns in order."""
+    """All summary.csv columns in order.
+
+    Parameters
+    ----------
+    None
+
+    Returns
+    -------
+    list of str
+        Key columns, metric columns, flag-count columns, then ``faults``.
+    """
     return list(SUMMARY_KEY_COLUMNS) + list(METRIC_COLUMNS) + list(FLAG_COLUMNS) + ["faults"]
 
 
@@ -120,6 +130,26 @@ def _estimate(model, rec, method, settings, soc0):
 def run_task(model, recording, scenario: Scenario, method: str, settings=None, soc0=None,
              keep_trace: bool = False, reference_is_truth: bool = False):
     """Run one case (module docstring); top-level so Dask can ship it to a worker.
+
+    Parameters
+    ----------
+    model : CellModel
+        The model the estimator uses (before the scenario's model faults).
+    recording : Recording
+        The recording (before the scenario's sensor faults).
+    scenario : Scenario
+        Faults applied to the recording, the model and the start SOC.
+    method : str
+        Estimator name (``"ekf"``, ``"coulomb"``, ...).
+    settings : FilterSettings, optional
+        Filter settings; default from the model.
+    soc0 : float, optional
+        Start SOC, fraction; default from the first voltage sample.
+    keep_trace : bool
+        Return the trace as well as the row.
+    reference_is_truth : bool
+        The recording's ``soc_ref`` is the true SOC (simulated data), so truth-based metrics are
+        filled in.
 
     Returns
     -------
@@ -272,6 +302,17 @@ def write_summary_csv(summary: pd.DataFrame, path) -> None:
     """Write summary.csv (``converge_s`` of a run that never converged is an empty cell).
 
     Written to a temporary name and renamed.
+
+    Parameters
+    ----------
+    summary : pandas.DataFrame
+        The benchmark summary.
+    path : str or os.PathLike
+        The CSV file to write (replaced atomically).
+
+    Returns
+    -------
+    None
     """
     from socfuse.models.fileio import replacing
 
@@ -289,7 +330,20 @@ def _fmt(v, digits=2):
 
 def format_summary(summary: pd.DataFrame, columns=("rmse_pct", "max_abs_pct", "final_abs_pct", "converge_s",
                                                    "inside_3sigma", "nis_mean")) -> str:
-    """The summary as a fixed-width text table for the terminal (``-`` = not defined / never)."""
+    """The summary as a fixed-width text table for the terminal (``-`` = not defined / never).
+
+    Parameters
+    ----------
+    summary : pandas.DataFrame
+        The benchmark summary (columns of :func:`summary_columns`).
+    columns : sequence of str
+        Metric columns to show after the key columns (those absent are skipped).
+
+    Returns
+    -------
+    str
+        Header, a dash rule and one line per row; percentages in SOC points, ``conv s`` in s.
+    """
     cols = list(SUMMARY_KEY_COLUMNS) + [c for c in columns if c in summary.columns]
     head = {"rmse_pct": "RMSE %", "max_abs_pct": "max %", "final_abs_pct": "final %", "converge_s": "conv s",
             "inside_3sigma": "in 3sig", "nis_mean": "NIS", "mae_pct": "MAE %"}
