@@ -248,7 +248,28 @@ def pcrb_linear(F, Q, H, R, P0, has_measurement=None) -> np.ndarray:
 
 def truth_states(model, rec, soc_true, settings: FilterSettings | None = None) -> np.ndarray:
     """Full state trajectory (N, n_x) for a known SOC: RC voltages (and hysteresis) by the
-    estimator's own transition from a rested start, bias 0."""
+    estimator's own transition from a rested start, bias 0.
+
+    Parameters
+    ----------
+    model : CellModel
+    rec : Recording
+        Time (s), current (A) and temperature (degC) of the run.
+    soc_true : array_like, shape (N,)
+        True SOC at every sample, fraction.
+    settings : FilterSettings, optional
+        Fixes the state layout; default from the model.
+
+    Returns
+    -------
+    numpy.ndarray, shape (N, n_x)
+        State trajectory (SOC fraction, RC voltages in V, bias 0 A, hysteresis where present).
+
+    Raises
+    ------
+    BoundError
+        When ``soc_true`` has the wrong length or a non-finite value (naming the row).
+    """
     su = setup(model, settings)
     z = np.ascontiguousarray(soc_true, dtype=float)
     if z.shape != (rec.n,):
