@@ -17,6 +17,16 @@ class ClusterError(ValueError):
 
 
 def dask_available() -> bool:
+    """Whether the optional ``distributed`` package (Dask) can be imported.
+
+    Parameters
+    ----------
+    None
+
+    Returns
+    -------
+    bool
+    """
     try:
         import distributed  # noqa: F401
     except ImportError:
@@ -48,6 +58,17 @@ def open_client(workers: int | None = None, scheduler: str | None = None, proces
         Local cluster workers as processes (default) or threads in this process.
     threads_per_worker : int
         Threads in each local worker (1: the kernels are single-threaded numba code).
+
+    Yields
+    ------
+    distributed.Client
+        Closed (with the local cluster) on exit.
+
+    Raises
+    ------
+    ClusterError
+        For both or neither of ``workers`` and ``scheduler``, fewer than one worker, or an
+        unreachable scheduler.
     """
     if (workers is None) == (scheduler is None):
         raise ClusterError("give either workers (a local cluster) or a scheduler address, not both or neither")
