@@ -233,6 +233,28 @@ def chi2_band_effective(n_effective: float, confidence: float = 0.95) -> tuple[f
 
     ``chi2.ppf((1 -+ confidence)/2, N_eff) / N_eff`` (the chi-square distribution with
     ``N_eff`` degrees of freedom, scipy accepts real values); used for correlated residuals.
+
+    Parameters
+    ----------
+    n_effective : float
+        Effective number of independent samples (> 0, need not be an integer).
+    confidence : float
+        Band probability, e.g. 0.95.
+
+    Returns
+    -------
+    lo, hi : float
+        Band of the time-averaged normalised squared value.
+
+    Raises
+    ------
+    ConsistencyError
+        When ``n_effective`` is not positive.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
     """
     if not (n_effective > 0):
         raise ConsistencyError(f"effective sample count must be > 0, got {n_effective}")
@@ -242,12 +264,52 @@ def chi2_band_effective(n_effective: float, confidence: float = 0.95) -> tuple[f
 
 
 def nis_test(innovation_v, innovation_var_v2, confidence: float = 0.95) -> ConsistencyResult:
-    """NIS test of voltage innovations (V) against their predicted variance ``S`` (V^2)."""
+    """NIS test of voltage innovations (V) against their predicted variance ``S`` (V^2).
+
+    Parameters
+    ----------
+    innovation_v : array_like, shape (N,)
+        Voltage innovations, V.
+    innovation_var_v2 : array_like, shape (N,)
+        Their predicted variances, V^2.
+    confidence : float
+        Band probability, e.g. 0.95.
+
+    Returns
+    -------
+    ConsistencyResult
+        ``statistic="NIS"``.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
+    """
     return consistency_test(innovation_v, innovation_var_v2, "NIS", confidence)
 
 
 def nees_test(error, variance, confidence: float = 0.95) -> ConsistencyResult:
-    """NEES test of a scalar estimation error against the filter's variance."""
+    """NEES test of a scalar estimation error against the filter's variance.
+
+    Parameters
+    ----------
+    error : array_like, shape (N,)
+        Estimation error in the state's unit (SOC: fraction).
+    variance : array_like, shape (N,)
+        The filter's variance of that state, squared unit.
+    confidence : float
+        Band probability, e.g. 0.95.
+
+    Returns
+    -------
+    ConsistencyResult
+        ``statistic="NEES"``.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
+    """
     return consistency_test(error, variance, "NEES", confidence)
 
 
@@ -260,13 +322,48 @@ def nis_summary(trace, confidence: float = 0.95, skip_s: float = 0.0) -> Consist
     confidence : float
     skip_s : float
         Leave out the first ``skip_s`` seconds (initial transient), default none.
+
+    Returns
+    -------
+    ConsistencyResult
+        ``statistic="NIS"`` over the samples after ``skip_s``.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
     """
     keep = _after(trace.time_s, skip_s)
     return nis_test(np.asarray(trace.innovation_v)[keep], np.asarray(trace.innovation_var_v2)[keep], confidence)
 
 
 def pooled_nis(traces, confidence: float = 0.95, skip_s: float = 0.0) -> ConsistencyResult:
-    """NIS test over several traces pooled (all samples of all recordings in one average)."""
+    """NIS test over several traces pooled (all samples of all recordings in one average).
+
+    Parameters
+    ----------
+    traces : iterable of Trace
+        Uses ``innovation_v`` (V) and ``innovation_var_v2`` (V^2) of each.
+    confidence : float
+        Band probability, e.g. 0.95.
+    skip_s : float
+        Leave out the first ``skip_s`` seconds of each trace.
+
+    Returns
+    -------
+    ConsistencyResult
+        ``statistic="NIS"`` over all kept samples.
+
+    Raises
+    ------
+    ConsistencyError
+        When no trace is given.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
+    """
     vals, vars_ = [], []
     for tr in traces:
         keep = _after(tr.time_s, skip_s)
@@ -290,6 +387,16 @@ def nees_soc(trace, soc_true=None, confidence: float = 0.95, skip_s: float = 0.0
     confidence : float
     skip_s : float
         Leave out the first ``skip_s`` seconds.
+
+    Returns
+    -------
+    ConsistencyResult
+        ``statistic="NEES"`` over the samples after ``skip_s``.
+
+    Raises
+    ------
+    ConsistencyError
+        Without a true SOC, or when its length differs from the trace's.
 
     Notes
     -----
@@ -384,6 +491,15 @@ def innovation_autocorrelation(innovation_v, innovation_var_v2, max_lag: int = 2
     ``rho(l) = sum_k e_k e_{k+l} / sqrt(sum e_k^2 sum e_{k+l}^2)`` with ``e = nu / sqrt(S)``
     (Bar-Shalom et al. 2001, ch. 5.4, whiteness test).  For white innovations each ``rho(l)`` is
     approximately normal with standard deviation ``1/sqrt(N)``; NaN samples count as zero.
+
+    Parameters
+    ----------
+    innovation_v : array_like, shape (N,)
+        Voltage innovations, V.
+    innovation_var_v2 : array_like, shape (N,)
+        Their predicted variances, V^2.
+    max_lag : int
+        Largest lag, samples.
 
     Returns
     -------
