@@ -210,7 +210,17 @@ class Case:
 
 def true_initial_soc(case: Case) -> float:
     """The true SOC at the first sample: ``soc_ref[0]``, else the case's ``soc0``, else the
-    OCV inverse of the first voltage (the cell is assumed rested at the start)."""
+    OCV inverse of the first voltage (the cell is assumed rested at the start).
+
+    Parameters
+    ----------
+    case : Case
+
+    Returns
+    -------
+    float
+        True initial SOC, fraction 0..1.
+    """
     rec = case.recording
     if rec.soc_ref is not None and math.isfinite(rec.soc_ref[0]):
         return float(rec.soc_ref[0])
@@ -237,6 +247,19 @@ def apply_scenario(case: Case, scenario: Scenario) -> Case:
     ``gain`` the measured current; ``vnoise`` and ``vdrop`` the measured voltage; ``toffset``
     the measured temperature; ``rowdrop`` removes rows; ``fade`` the filter model's capacity;
     ``ocv_offset`` and ``ocv_scale`` the filter model's OCV table.
+
+    Parameters
+    ----------
+    case : Case
+        The fault-free run: recording (s, A, V, degC), filter model and initial SOC.
+    scenario : Scenario
+        The faults and the random seed.
+
+    Returns
+    -------
+    Case
+        The faulted recording (metadata ``scenario`` and ``faults`` set), the faulted model, the
+        initial SOC given to the filter (fraction) and one note per fault.
     """
     rec = case.recording
     model = case.model
@@ -307,6 +330,20 @@ def scenario_from_spec(spec: str) -> Scenario:
 
     ``nominal`` (or an empty body) is the fault-free scenario.  Without a label the canonical
     spec is the name.  Values are plain numbers in the unit of the fault.
+
+    Parameters
+    ----------
+    spec : str
+        The scenario text, e.g. ``"hot:toffset=5+offset=0.05"``.
+
+    Returns
+    -------
+    Scenario
+
+    Raises
+    ------
+    FaultError
+        For a bad label, an empty or unknown fault, a non-numeric value or a bad seed.
     """
     s = str(spec).strip()
     label = None
@@ -342,7 +379,23 @@ def scenario_from_spec(spec: str) -> Scenario:
 
 
 def parse_scenarios(specs: Iterable[str] | str) -> list[Scenario]:
-    """Several specs (a list, or one string separated by commas or whitespace); names unique."""
+    """Several specs (a list, or one string separated by commas or whitespace); names unique.
+
+    Parameters
+    ----------
+    specs : str or iterable of str
+        Scenario specs (see :func:`scenario_from_spec`).
+
+    Returns
+    -------
+    list of Scenario
+        In the order given.
+
+    Raises
+    ------
+    FaultError
+        For a bad spec or a name given twice.
+    """
     if isinstance(specs, str):
         specs = [specs]
     out = []
@@ -366,7 +419,17 @@ DEFAULT_SCENARIOS = (
 
 
 def fault_help() -> str:
-    """One paragraph for ``--help`` listing every fault and its default."""
+    """One paragraph for ``--help`` listing every fault and its default.
+
+    Parameters
+    ----------
+    None
+
+    Returns
+    -------
+    str
+        The spec grammar and each fault's unit, default and meaning.
+    """
     items = [f"{k.name} ({k.unit}, default {k.default_text}): {k.text}" for k in FAULTS.values()]
     return ("Scenario spec: [label:]fault[=value][+fault...]; 'nominal' = no fault. Faults: "
             + "; ".join(items) + "; seed=N sets the RNG seed. Defaults are common practice for "
