@@ -374,6 +374,17 @@ def sweep(model, rec, knob: str = "current_offset_a", values=None, settings: Fil
     budget : float
         SOC error budget (fraction, 0.03 = 3 %).
     Other parameters as :func:`run_tolerance`.
+
+    Returns
+    -------
+    SweepResult
+        Grid values (A or fraction), P50 and P95 of the max |SOC error| per method and grid point
+        (fraction), the budget, and per method the largest tolerance whose P95 stays within it.
+
+    Raises
+    ------
+    MonteCarloError
+        For an unknown knob or a grid that is empty, not increasing or negative.
     """
     if knob not in ("current_offset_a", "current_gain"):
         raise MonteCarloError(f"cannot sweep {knob!r}; choose current_offset_a or current_gain")
@@ -420,6 +431,39 @@ def tolerance_study(model, rec, settings: FilterSettings | None = None, toleranc
     ``sweep_runs`` runs per grid point (default ``max(50, n_runs // 8)``); ``offset_grid`` /
     ``gain_grid`` as :func:`sweep` (pass an empty list to skip a sweep).  Other parameters as
     :func:`run_tolerance`.
+
+    Parameters
+    ----------
+    model : CellModel
+    rec : Recording
+        The drive cycle (its ``soc_ref`` is the truth).
+    settings : FilterSettings, optional
+        Default from the model.
+    tolerances : Tolerances, optional
+        Sensor and model tolerances drawn per run; default :class:`Tolerances()`.
+    n_runs : int
+        Base Monte Carlo runs.
+    seed : int
+        Random seed (the sweeps use ``seed + 1``).
+    methods : sequence of str
+        Estimators compared.
+    budget : float
+        SOC error budget, fraction.
+    offset_grid : array_like, optional
+        Current-offset tolerances to sweep, A.
+    gain_grid : array_like, optional
+        Current-gain tolerances to sweep, fraction.
+    sweep_runs : int, optional
+        Runs per grid point.
+    skip_s : float
+        Leave out the first ``skip_s`` seconds from the error, s.
+    quiet : bool
+        No progress bar.
+
+    Returns
+    -------
+    ToleranceStudy
+        The base runs, the sweeps, the budget, the recording name and the wall time (s).
     """
     t0 = time.perf_counter()
     methods = tuple(methods)
@@ -434,7 +478,17 @@ def tolerance_study(model, rec, settings: FilterSettings | None = None, toleranc
 
 
 def tolerance_figure(study: ToleranceStudy):
-    """Figure: histogram of the max |SOC error| per method, and P95 against each swept tolerance."""
+    """Figure: histogram of the max |SOC error| per method, and P95 against each swept tolerance.
+
+    Parameters
+    ----------
+    study : ToleranceStudy
+
+    Returns
+    -------
+    matplotlib.figure.Figure
+        Errors in percent of SOC, offset tolerances in mA, gain tolerances in percent.
+    """
     import matplotlib
 
     matplotlib.use("Agg", force=False)
