@@ -12,7 +12,18 @@ __all__ = ["show_progress", "progress", "ProgressBar"]
 
 
 def show_progress(quiet: bool = False) -> bool:
-    """Whether a bar should be drawn: not ``quiet`` and stderr (and stdout) is a terminal."""
+    """Whether a bar should be drawn: not ``quiet`` and stderr (and stdout) is a terminal.
+
+    Parameters
+    ----------
+    quiet : bool
+        Never draw.
+
+    Returns
+    -------
+    bool
+        ``SOCFUSE_PROGRESS=1`` or ``0`` overrides the terminal check.
+    """
     if quiet:
         return False
     env = os.environ.get("SOCFUSE_PROGRESS", "").strip()
@@ -66,7 +77,25 @@ class ProgressBar:
 
 
 def progress(iterable, total: int | None = None, desc: str = "", quiet: bool = False, unit: str = "run"):
-    """Iterate ``iterable`` with a bar when :func:`show_progress` says so."""
+    """Iterate ``iterable`` with a bar when :func:`show_progress` says so.
+
+    Parameters
+    ----------
+    iterable : iterable
+    total : int, optional
+        Number of items (for the bar).
+    desc : str
+        Label of the bar.
+    quiet : bool
+        Never draw.
+    unit : str
+        Name of one item.
+
+    Returns
+    -------
+    iterable
+        ``iterable`` itself, or a ``tqdm`` wrapper writing to stderr.
+    """
     if not show_progress(quiet):
         return iterable
     from tqdm.auto import tqdm
