@@ -349,6 +349,16 @@ def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=N
     The same kernel and priors as :func:`estimator.filters.ekf.run_ekf_batch`, for loops that only
     need the SOC, its sigma and the innovations (tuning, Monte Carlo).
 
+    Parameters
+    ----------
+    model : CellModel
+    recs : sequence of Recording
+    settings : FilterSettings
+    soc0s : None, float or sequence of (float or None), optional
+        Initial SOC per recording, fraction.
+    capacity_scales : sequence of float, optional
+        Per-recording multiplier of the capacity the filter assumes.
+
     Returns
     -------
     dict with ``offsets`` (M+1,), ``soc``, ``soc_sigma``, ``innovation_v``, ``innovation_var_v2``
@@ -365,6 +375,25 @@ def innovation_nll(innovation_v, innovation_var_v2) -> tuple[float, int]:
     """Total negative log-likelihood ``1/2 sum [log(2 pi S) + nu^2/S]`` (nats) and the count.
 
     NaN innovations (predict-only samples) are skipped.
+
+    Parameters
+    ----------
+    innovation_v : array_like, shape (N,)
+        Innovations, V.
+    innovation_var_v2 : array_like, shape (N,)
+        Their predicted variances, V^2.
+
+    Returns
+    -------
+    nll : float
+        Negative log-likelihood, nats (``inf`` when no sample is usable).
+    n : int
+        Samples used.
+
+    References
+    ----------
+    F. C. Schweppe, "Evaluation of likelihood functions for Gaussian signals", IEEE Trans. Inf. Theory
+    11 (1965) 61-70 (as cited in the module docstring).
     """
     nu = np.asarray(innovation_v, dtype=float)
     s = np.asarray(innovation_var_v2, dtype=float)
@@ -432,7 +461,24 @@ class _Eval:
 
 
 def evaluate(model, recs, settings: FilterSettings, soc0s=None, confidence: float = 0.95) -> _Eval:
-    """Likelihood, SOC RMSE (when all recordings have ``soc_ref``) and pooled NIS of one setting."""
+    """Likelihood, SOC RMSE (when all recordings have ``soc_ref``) and pooled NIS of one setting.
+
+    Parameters
+    ----------
+    model : CellModel
+    recs : sequence of Recording
+    settings : FilterSettings
+    soc0s : None, float or sequence of (float or None), optional
+        Initial SOC per recording, fraction.
+    confidence : float
+        Band probability of the NIS test.
+
+    Returns
+    -------
+    _Eval
+        ``nll`` (nats), ``n`` (samples), ``rmse`` (fraction or None), ``nis`` (ConsistencyResult) and
+        ``coverage`` (fraction of samples within 3 sigma, or None).
+    """
     recs = list(recs)
     raw = ekf_raw(model, recs, settings, soc0s)
     nll, n = innovation_nll(raw["innovation_v"], raw["innovation_var_v2"])
@@ -453,6 +499,21 @@ def default_params(model, settings: FilterSettings, objective: str = "likelihood
     pairs; the bias random walk when the bias is estimated; the model-error magnitude and
     correlation time when the filter has that state (``model_error_v > 0``); ``p0_soc`` when
     ``with_p0`` (an initial SOC is given).
+
+    Parameters
+    ----------
+    model : CellModel
+    settings : FilterSettings
+        The starting settings (``estimate_bias``, ``model_error_v``).
+    objective : str
+        The tuning objective (accepted for the callers; the set does not depend on it).
+    with_p0 : bool
+        Include ``p0_soc``.
+
+    Returns
+    -------
+    tuple of str
+        Names of :class:`FilterSettings` fields to tune.
     """
     p = ["voltage_noise_v", "current_noise_a", "q_soc_per_s"]
     if model.n_rc > 0:
@@ -467,7 +528,22 @@ def default_params(model, settings: FilterSettings, objective: str = "likelihood
 
 
 def handover_index(time_s, current_a, capacity_ah: float) -> int:
-    """Hand-over sample of the wrong-start check: the first with ``|I| >= C/5`` after 40 % of the time."""
+    """Hand-over sample of the wrong-start check: the first with ``|I| >= C/5`` after 40 % of the time.
+
+    Parameters
+    ----------
+    time_s : array_like, shape (N,)
+        Sample times, s.
+    current_a : array_like, shape (N,)
+        Current, A.
+    capacity_ah : float
+        Capacity, Ah (sets the C/5 threshold).
+
+    Returns
+    -------
+    int
+        Sample index (the first sample after 40 % of the time when none carries the load).
+    """
     t = np.asarray(time_s, dtype=float)
     start = t[0] + HANDOVER_FRACTION * (t[-1] - t[0])
     ok = np.nonzero((t >= start) & (np.abs(np.asarray(current_a)) >= HANDOVER_LOAD_C * capacity_ah))[0]
