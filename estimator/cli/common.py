@@ -37,7 +37,19 @@ _COLUMN_FLAGS = (
 
 
 def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentParser:
-    """Add the recording-mapping options (an option group) to ``parser``; returns it."""
+    """Add the recording-mapping options (an option group) to ``parser``; returns it.
+
+    Parameters
+    ----------
+    parser : argparse.ArgumentParser
+        The command's parser; the options store into ``map_<field>`` destinations (plus ``preset``,
+        ``drop_spikes`` and ``trust_input``).
+
+    Returns
+    -------
+    argparse.ArgumentParser
+        ``parser``.
+    """
     g = parser.add_argument_group(
         "recording mapping",
         "how to read the recording file: column names, units and sign (default: the canonical columns "
@@ -100,7 +112,22 @@ def add_mapping_options(parser: argparse.ArgumentParser) -> argparse.ArgumentPar
 
 
 def mapping_from_args(args: argparse.Namespace) -> ColumnMap:
-    """The :class:`models.loaders.ColumnMap` the parsed options describe."""
+    """The :class:`models.loaders.ColumnMap` the parsed options describe.
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed options of a parser set up by :func:`add_mapping_options`.
+
+    Returns
+    -------
+    ColumnMap
+
+    Raises
+    ------
+    RecordingError
+        For an unknown preset.
+    """
     opts = {k[4:]: v for k, v in vars(args).items() if k.startswith("map_") and v is not None}
     if "separator" in opts and opts["separator"] in ("\\t", "tab"):
         opts["separator"] = "\t"
@@ -108,12 +135,35 @@ def mapping_from_args(args: argparse.Namespace) -> ColumnMap:
 
 
 def load_from_args(args: argparse.Namespace, path) -> Recording:
-    """Load ``path`` with the mapping given on the command line (raises RecordingError)."""
+    """Load ``path`` with the mapping given on the command line (raises RecordingError).
+
+    Parameters
+    ----------
+    args : argparse.Namespace
+        Parsed options of a parser set up by :func:`add_mapping_options`.
+    path : str or os.PathLike
+        The recording file.
+
+    Returns
+    -------
+    Recording
+        In canonical units (s, A positive on discharge, V, degC, SOC fraction).
+    """
     return load_recording(path, mapping_from_args(args))
 
 
 def note(text: str) -> None:
-    """One line to stderr (notes and cautions never mix with the results on stdout)."""
+    """One line to stderr (notes and cautions never mix with the results on stdout).
+
+    Parameters
+    ----------
+    text : str
+        The line (without newline).
+
+    Returns
+    -------
+    None
+    """
     print(text, file=sys.stderr)
 
 
@@ -157,7 +207,17 @@ def load_checked(args: argparse.Namespace, path, model=None) -> Recording:
 
 def check_json_inputs(**paths) -> None:
     """Read each given JSON input (``what=path``; None skipped) with :func:`models.fileio.read_json`
-    first, so a damaged cell-model or filter file is refused naming the file."""
+    first, so a damaged cell-model or filter file is refused naming the file.
+
+    Parameters
+    ----------
+    **paths : str, os.PathLike or None
+        Keyword = the file's role (``cell_model``, ``filter``; ``_`` shown as ``-``), value = its path.
+
+    Returns
+    -------
+    None
+    """
     from socfuse.models.fileio import read_json
 
     for what, path in paths.items():
