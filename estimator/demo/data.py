@@ -26,6 +26,16 @@ def demo_file_specs(seed: int = DEMO_SEED) -> dict:
     The builders are called lazily by :func:`generate_demo_data`.  Lab tests use
     :data:`LAB_SENSORS`; the delivery days use the pack BMS (:data:`FLEET_SENSORS`), with the
     shunt offset and the temperature-sensor offset drifting a little on the cold day.
+
+    Parameters
+    ----------
+    seed : int
+        Base seed; each file's noise seed is ``seed + k`` and the delivery-day routes use ``seed``.
+
+    Returns
+    -------
+    dict
+        ``{file name: (callable returning a Profile, SensorErrors, int seed)}``.
     """
     cold_bms = replace(FLEET_SENSORS, offset_a=0.025, temperature_offset_c=1.5)
     return {
@@ -49,6 +59,18 @@ def write_recording_csv(rec: Recording, path) -> Path:
 
     Written to a temporary name and renamed, so a partly written file never replaces a good one.
     Time is written with one decimal (whole seconds as ``12.0``).
+
+    Parameters
+    ----------
+    rec : Recording
+        The recording (s, A, V, optional degC and ``soc_ref`` fraction).
+    path : str or os.PathLike
+        The CSV file.
+
+    Returns
+    -------
+    pathlib.Path
+        ``path``.
     """
     path = Path(path)
     cols = [rec.time_s, rec.current_a, rec.voltage_v]
