@@ -66,7 +66,30 @@ class Profile:
 def simulate_profile(profile: Profile, sensors: SensorErrors | None = None, seed: int = 0,
                      params: TruthParams = C48_TRUTH, capacity_scale: float = 1.0,
                      internal_dt_s: float = 0.1) -> tuple[Recording, TruthTrace]:
-    """:func:`simulate_truth` on a :class:`Profile` (its knots, sample times and start state)."""
+    """:func:`simulate_truth` on a :class:`Profile` (its knots, sample times and start state).
+
+    Parameters
+    ----------
+    profile : Profile
+        True current (A) and temperature (degC) knots, sample times (s) and start state.
+    sensors : SensorErrors, optional
+        Instrument errors; default none (the recording is the truth at the sample times).
+    seed : int
+        Seed of the sensor noise.
+    params : TruthParams
+        The truth cell.
+    capacity_scale : float
+        Multiplier of the truth capacity.
+    internal_dt_s : float
+        Internal simulation step, s.
+
+    Returns
+    -------
+    recording : Recording
+        What the instruments record (``soc_ref`` = true SOC).
+    truth : TruthTrace
+        The true signals at the sample times.
+    """
     return simulate_truth(profile.time_s, profile.current_a, profile.temperature_c, profile.soc0,
                           sensors=sensors, seed=seed, capacity_scale=capacity_scale, params=params,
                           sample_time_s=profile.sample_time_s, internal_dt_s=internal_dt_s,
@@ -176,6 +199,18 @@ def c20_test_profile(params: TruthParams = C48_TRUTH, temperature_c: float = 25.
     charge at C/20 to 4.2 V, hold 4.2 V until the current falls to C/50 (constant-voltage phase),
     rest 1 h.  Logged every 10 s and at each step change.  The constant-current steps end at the
     first whole second at which the true terminal voltage reaches the limit.
+
+    Parameters
+    ----------
+    params : TruthParams
+        The truth cell (capacity in Ah, voltage limits in V).
+    temperature_c : float
+        Chamber temperature, degC.
+
+    Returns
+    -------
+    Profile
+        ``info`` holds the step times (s) and the discharged and charged charge (Ah).
     """
     i20 = params.capacity_ah / 20.0
     name = f"c48_c20_{int(round(temperature_c)):02d}degC"
@@ -229,6 +264,23 @@ def pulse_test_profile(temperature_c: float = 25.0, params: TruthParams = C48_TR
     discharged at C/3 (1.6 A, 18 min) and the cell rests 1 h.  The chamber (and the cell) is at
     ``temperature_c``.  Logged every 1 s around the pulses and for the first 2 min of each rest and
     discharge, every 10 s otherwise, and at every step change.
+
+    Parameters
+    ----------
+    temperature_c : float
+        Chamber temperature, degC.
+    params : TruthParams
+        The truth cell (capacity in Ah).
+
+    Returns
+    -------
+    Profile
+        ``info["pulses"]`` lists each pulse's SOC level (fraction), discharge C-rate and start (s).
+
+    References
+    ----------
+    FreedomCAR Battery Test Manual for Power-Assist Hybrid Electric Vehicles, DOE/ID-11069,
+    INEEL 2003 (HPPC profile; recalled from memory).
     """
     c = params.capacity_ah
     name = f"c48_pulse_{int(round(temperature_c)):02d}degC"
@@ -368,6 +420,27 @@ def delivery_day_profile(kind: str = "lunch", seed: int = DEMO_SEED, params: Tru
     truth); launch bursts keep their level.
     Cell temperature = ambient + a first-order self-heating response (invented: 8 K/W, 600 s).
     The true current has knots every 0.1 s; the BMS logger samples every 1 s.
+
+    Parameters
+    ----------
+    kind : {"lunch", "cold", "long"}
+        Which day.
+    seed : int
+        Seed of the route.
+    params : TruthParams
+        The truth cell.
+
+    Returns
+    -------
+    Profile
+        Per-cell current knots every 0.1 s (A), cell temperature (degC), samples every 1 s;
+        ``info`` holds the traction scale, peak C-rate, charge used (fraction), ambient range (degC)
+        and route seed.
+
+    Raises
+    ------
+    ValueError
+        For an unknown ``kind``.
     """
     if kind not in _DAYS:
         raise ValueError(f"unknown day kind {kind!r}; choose one of {', '.join(DAY_KINDS)}")
