@@ -155,7 +155,22 @@ C48_TRUTH = TruthParams()
 
 
 def arrhenius_factor(temperature_c, activation_k: float, t_ref_c: float = 25.0):
-    """Arrhenius-like factor ``exp(E (1/(T+273.15) - 1/(T_ref+273.15)))``; exactly 1 at ``T_ref``."""
+    """Arrhenius-like factor ``exp(E (1/(T+273.15) - 1/(T_ref+273.15)))``; exactly 1 at ``T_ref``.
+
+    Parameters
+    ----------
+    temperature_c : float or array_like
+        Temperature, degC.
+    activation_k : float
+        Activation temperature ``E`` (activation energy over the gas constant), K.
+    t_ref_c : float
+        Reference temperature, degC.
+
+    Returns
+    -------
+    float or numpy.ndarray
+        The dimensionless factor, shape of ``temperature_c``.
+    """
     t = np.asarray(temperature_c, dtype=float)
     return np.exp(activation_k * (1.0 / (t + KELVIN) - 1.0 / (t_ref_c + KELVIN)))
 
@@ -169,6 +184,16 @@ def truth_ocv_curve(params: TruthParams = C48_TRUTH) -> OcvCurve:
 
     Row ``T`` is the PCHIP through ``ocv_v + ocv_temp_coeff_v_per_c (T - 25)``.  The simulator
     evaluates exactly this object, so it *is* the truth OCV (linear between rows in temperature).
+
+    Parameters
+    ----------
+    params : TruthParams
+        The truth cell (OCV breakpoints in V, temperature coefficients in V/degC).
+
+    Returns
+    -------
+    OcvCurve
+        Rows over SOC (fraction) by temperature (degC), V.
     """
     soc = np.asarray(params.ocv_soc, dtype=float)
     temps = np.asarray(TABLE_TEMPERATURES_C)
@@ -192,6 +217,18 @@ def truth_cell_model(temperature_c: float = 25.0, params: TruthParams = C48_TRUT
     in between; at 25 degC exact).  A ``CellModel`` has one capacity: the truth capacity at
     ``temperature_c``.  The model lacks only the continuous temperature factor between rows and
     the sub-step propagation; otherwise :func:`models.simulate` with it reproduces the truth.
+
+    Parameters
+    ----------
+    temperature_c : float
+        Temperature at which the capacity is taken, degC.
+    params : TruthParams
+        The truth cell.
+
+    Returns
+    -------
+    CellModel
+        Capacity (Ah), OCV (V), R0 and RC tables (ohm, s) over SOC x temperature, hysteresis, limits.
     """
     rc = [RcPair(_table(params, params.r1_ohm, params.r1_activation_k, "r1_ohm"),
                  _table(params, params.tau1_s, params.tau_activation_k, "tau1_s"))]
