@@ -85,6 +85,18 @@ def demo_data_dir(out_dir=None, seed: int | None = None) -> Path:
     package-data copy ``socfuse.datasets`` (``importlib.resources``), else (c) regenerates the
     data with :func:`socfuse.estimator.demo.data.generate_demo_data` into ``out_dir/data`` (never elsewhere).
 
+    Parameters
+    ----------
+    out_dir : str or os.PathLike, optional
+        Output folder of the demo; the data are regenerated into ``out_dir/data`` when not found.
+    seed : int, optional
+        Seed for regenerating (default ``DEMO_SEED``).
+
+    Returns
+    -------
+    pathlib.Path
+        The folder with the demo CSVs.
+
     Raises
     ------
     DemoError
