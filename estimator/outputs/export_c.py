@@ -131,13 +131,42 @@ _SAFE = re.compile(r"[^A-Za-z0-9 _.,:;+=()\-]")
 
 def safe_text(s, limit: int = 80) -> str:
     """``s`` reduced to letters, digits, space and ``_.,:;+=()-`` (others become ``_``), at most
-    ``limit`` characters: safe inside a C comment (no ``*/``, no trigraph, no backslash)."""
+    ``limit`` characters: safe inside a C comment (no ``*/``, no trigraph, no backslash).
+
+    Parameters
+    ----------
+    s : object
+        Text (converted with ``str``; line breaks become spaces).
+    limit : int
+        Largest length, characters.
+
+    Returns
+    -------
+    str
+        The safe text (``"unnamed"`` when empty).
+    """
     t = _SAFE.sub("_", str(s).replace("\n", " ").replace("\r", " "))
     return (t[:limit] if len(t) > limit else t) or "unnamed"
 
 
 def c_float(x) -> str:
-    """A finite number as a C ``float`` literal that round-trips the float32 value."""
+    """A finite number as a C ``float`` literal that round-trips the float32 value.
+
+    Parameters
+    ----------
+    x : float
+        The value, in whatever unit the constant has.
+
+    Returns
+    -------
+    str
+        A literal such as ``"0.00100000005f"``.
+
+    Raises
+    ------
+    ExportError
+        When the value (as float32) is not finite.
+    """
     v = float(np.float32(x))
     if not math.isfinite(v):
         raise ExportError(f"cannot export the non-finite value {x!r} as a C constant")
@@ -176,7 +205,24 @@ def _layout(model, settings):
 
 
 def render_sources(model, settings: FilterSettings | None = None) -> dict:
-    """The C sources for ``model`` and ``settings``: ``{file name: text}`` (header, library, harness)."""
+    """The C sources for ``model`` and ``settings``: ``{file name: text}`` (header, library, harness).
+
+    Parameters
+    ----------
+    model : CellModel
+    settings : FilterSettings, optional
+        Default from the model.
+
+    Returns
+    -------
+    dict of str to str
+        The C file names and their text (tables and constants as float32 literals).
+
+    Raises
+    ------
+    ExportError
+        When a constant is not finite.
+    """
     s = default_settings(model) if settings is None else settings
     su = _layout(model, s)
     tab = su.tables
@@ -221,6 +267,22 @@ def flops_per_step(n_rc: int, has_bias: bool, has_hyst: bool) -> tuple[int, int]
     Counted by hand from ``socfuse_ekf.c.in`` (additions, subtractions, multiplications,
     divisions; comparisons, ``fabsf`` and int/float conversions not counted).  Returns
     ``(arithmetic, transcendental)`` where the second counts ``expf`` and ``sqrtf`` calls.
+
+    Parameters
+    ----------
+    n_rc : int
+        Number of RC pairs.
+    has_bias : bool
+        The current-bias state is present.
+    has_hyst : bool
+        The hysteresis state is present.
+
+    Returns
+    -------
+    arithmetic : int
+        Floating-point operations per step.
+    transcendental : int
+        ``expf`` and ``sqrtf`` calls per step.
     """
     nx = 1 + n_rc + int(has_bias) + int(has_hyst)
     tri = nx * (nx + 1) // 2
@@ -261,6 +323,16 @@ def default_golden_recording(model=None):
     demo data the caller must give the golden recording.  ``model`` is accepted for
     compatibility and not used.
 
+    Parameters
+    ----------
+    model : CellModel, optional
+        Not used.
+
+    Returns
+    -------
+    Recording
+        The demo day.
+
     Raises
     ------
     ExportError
@@ -299,6 +371,21 @@ def golden_frame(model, settings: FilterSettings | None, rec):
     :func:`estimator.coulomb.run_coulomb` (with ``early_reseed_s = 0``, the only rest rule a
     stream can follow in bounded memory), both started from the first voltage sample, on the
     inputs rounded exactly as written to the CSV.
+
+    Parameters
+    ----------
+    model : CellModel
+    settings : FilterSettings or None
+        Default from the model; ``early_reseed_s`` is set to 0.
+    rec : Recording
+        The golden recording.
+
+    Returns
+    -------
+    pandas.DataFrame
+        Columns ``time_s`` (s), ``current_a`` (A), ``voltage_v`` (V), ``temperature_c`` (degC, NaN
+        when absent), ``soc`` and ``soc_sigma`` (fraction), ``voltage_pred_v`` (V), ``base_soc``
+        (fraction) and ``base_reseed`` (1 at a baseline reseed), one row per sample.
     """
     import pandas as pd
 
@@ -328,7 +415,16 @@ def _golden_csv(frame) -> str:
 
 # ----------------------------------------------------------------------------- compile + measure
 def find_c_compiler() -> str | None:
-    """Path of ``cc`` (or ``gcc``, ``clang``) on PATH, or None."""
+    """Path of ``cc`` (or ``gcc``, ``clang``) on PATH, or None.
+
+    Parameters
+    ----------
+    None
+
+    Returns
+    -------
+    str or None
+    """
     for name in ("cc", "gcc", "clang"):
         p = shutil.which(name)
         if p:
@@ -356,6 +452,29 @@ def measure_footprint(src_dir, golden_csv=None, compiler: str | None = None, tim
     Returns a dict with ``compiler``, ``stack_bytes``, ``stack_detail``, ``state_bytes``,
     ``table_bytes``, ``max_soc_diff``, ``exit`` and ``stdout``; raises ExportError when the
     sources do not compile.
+
+    Parameters
+    ----------
+    src_dir : str or os.PathLike
+        Folder holding ``socfuse_ekf.h``, ``socfuse_ekf.c`` and ``harness.c``.
+    golden_csv : str or os.PathLike, optional
+        Golden vectors for the harness.
+    compiler : str, optional
+        Compiler path; default :func:`find_c_compiler`.
+    timeout_s : float
+        Limit for each compile and the harness run, s.
+
+    Returns
+    -------
+    dict
+        ``compiler``, ``stack_bytes`` (bytes or None), ``stack_detail``, ``state_bytes`` and
+        ``table_bytes`` (bytes), ``max_soc_diff`` (fraction), ``exit``, ``stdout``, ``stderr`` and the
+        other harness fields.
+
+    Raises
+    ------
+    ExportError
+        Without a compiler, or when the sources do not compile.
     """
     cc = compiler or find_c_compiler()
     if cc is None:
