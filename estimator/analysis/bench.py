@@ -230,6 +230,8 @@ def run_bench(model, recordings: Sequence, scenarios=DEFAULT_SCENARIOS, methods:
         Local cluster of processes (default) or threads.
     quiet : bool
         No progress bar.
+    desc : str
+        Label of the progress bar.
 
     Returns
     -------
