@@ -464,6 +464,9 @@ def nees_ensemble(errors, variances, confidence: float = 0.95, statistic: str = 
     variances : array_like (M, N)
         The filter's variance of each error.
     confidence : float
+        Band probability, e.g. 0.95.
+    statistic : str
+        Name used in the result and in error messages (``"NEES"``, or ``"NIS"`` for innovations).
 
     Returns
     -------
