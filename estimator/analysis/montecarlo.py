@@ -373,7 +373,24 @@ def sweep(model, rec, knob: str = "current_offset_a", values=None, settings: Fil
         Grid (A or fraction).  Default offsets 0..0.1 A and gains 0..3 %, 6 points each.
     budget : float
         SOC error budget (fraction, 0.03 = 3 %).
-    Other parameters as :func:`run_tolerance`.
+    model : CellModel
+        The model the estimators use.
+    rec : Recording
+        Recording with ``soc_ref`` (the truth).
+    settings : FilterSettings, optional
+        Default from the model.
+    tolerances : Tolerances, optional
+        The other tolerances (held at these values while ``knob`` is swept); default :class:`Tolerances`.
+    n_runs : int
+        Runs per grid point (the same random draws at every point).
+    seed : int
+        Seed of ``numpy.random.default_rng``.
+    methods : sequence of str
+        ``"ekf"``, ``"coulomb"``.
+    skip_s : float
+        The max error is taken after the first ``skip_s`` seconds, s.
+    quiet : bool
+        No progress bar.
 
     Returns
     -------
