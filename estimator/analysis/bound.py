@@ -220,6 +220,11 @@ def pcrb_linear(F, Q, H, R, P0, has_measurement=None) -> np.ndarray:
     -------
     ndarray (N, n, n)
         ``J_k^-1`` after the measurement of sample ``k`` (k = 1..N).
+
+    References
+    ----------
+    P. Tichavsky, C. H. Muravchik and A. Nehorai, "Posterior Cramer-Rao bounds for discrete-time
+    nonlinear filtering", IEEE Trans. Signal Processing 46 (1998) 1386-1396.
     """
     F = np.asarray(F, dtype=float)
     Q = np.asarray(Q, dtype=float)
@@ -307,6 +312,11 @@ def pcrb_soc_sigma(model, rec, settings: FilterSettings | None = None, soc_true=
     Returns
     -------
     BoundResult
+
+    References
+    ----------
+    P. Tichavsky, C. H. Muravchik and A. Nehorai, "Posterior Cramer-Rao bounds for discrete-time
+    nonlinear filtering", IEEE Trans. Signal Processing 46 (1998) 1386-1396.
     """
     su = setup(model, settings)
     if soc_true is not None:
