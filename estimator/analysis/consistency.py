@@ -160,6 +160,11 @@ def chi2_band(n_samples: int, dim: int = 1, confidence: float = 0.95) -> tuple[f
     -------
     (lo, hi) : tuple of float
         ``chi2.ppf((1 -+ confidence)/2, N m) / N`` (Bar-Shalom, Li, Kirubarajan 2001, ch. 5.4).
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
     """
     if n_samples < 1:
         raise ConsistencyError(f"need at least one sample for a chi-square band, got {n_samples}")
@@ -193,6 +198,11 @@ def consistency_test(value, variance, statistic: str = "NIS", confidence: float 
     Returns
     -------
     ConsistencyResult
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
     """
     v = np.asarray(value, dtype=float).ravel()
     s = np.asarray(variance, dtype=float).ravel()
@@ -404,6 +414,11 @@ def nees_soc(trace, soc_true=None, confidence: float = 0.95, skip_s: float = 0.0
     time (the SOC is a slow state), so on one run the time-averaged NEES scatters much more
     than the band says; it is a rough indicator.  The rigorous form is over independent runs,
     :func:`nees_ensemble` (Bar-Shalom et al. 2001, ch. 5.4 use Monte Carlo runs).
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
     """
     if soc_true is None:
         soc_true = getattr(trace, "soc_ref", None)
@@ -472,6 +487,11 @@ def nees_ensemble(errors, variances, confidence: float = 0.95, statistic: str = 
     -------
     EnsembleConsistency
         At each step ``M * mean_runs(e^2/P) ~ chi2(M)``.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4.
     """
     e = np.asarray(errors, dtype=float)
     p = np.asarray(variances, dtype=float)
@@ -510,6 +530,11 @@ def innovation_autocorrelation(innovation_v, innovation_var_v2, max_lag: int = 2
     rho : ndarray (max_lag,)
     band : float
         Two-sided 95 % half-width ``1.96 / sqrt(N)``.
+
+    References
+    ----------
+    Y. Bar-Shalom, X. R. Li and T. Kirubarajan, Estimation with Applications to Tracking and
+    Navigation, Wiley, 2001, ch. 5.4 (whiteness test).
     """
     v = np.asarray(innovation_v, dtype=float)
     s = np.asarray(innovation_var_v2, dtype=float)
