@@ -425,6 +425,12 @@ def whitened_nll(innovation_v, innovation_var_v2, breaks=None) -> tuple[float, i
     -------
     (total, n, rho) : float, int, float
         Total negative log-likelihood (nats), the number of valid samples and ``rho``.
+
+    References
+    ----------
+    D. Cochrane and G. H. Orcutt, J. Am. Stat. Assoc. 44 (1949) 32-61 (cited from memory).
+    F. C. Schweppe, "Evaluation of likelihood functions for Gaussian signals", IEEE Trans. Inf. Theory
+    11 (1965) 61-70.
     """
     nu = np.asarray(innovation_v, dtype=float)
     s = np.asarray(innovation_var_v2, dtype=float)
@@ -972,6 +978,11 @@ def fixed_gain_innovations(A, C, L, y, x0=None, u=None):
     Returns
     -------
     ndarray (N,)
+
+    References
+    ----------
+    B. J. Odelson, M. R. Rajamani and J. B. Rawlings, Automatica 42 (2006) 303-308 (the fixed-gain
+    filter whose innovations the autocovariance least-squares method uses).
     """
     A = np.asarray(A, dtype=float)
     C = np.asarray(C, dtype=float).ravel()
@@ -1013,6 +1024,11 @@ def als_noise(A, C, L, innovations, q_basis, n_lags: int = 15, skip: int = 0) ->
     Returns
     -------
     AlsResult
+
+    References
+    ----------
+    B. J. Odelson, M. R. Rajamani and J. B. Rawlings, "A new autocovariance least-squares method for
+    estimating noise covariances", Automatica 42 (2006) 303-308 (title from memory).
     """
     from scipy.linalg import solve_discrete_lyapunov
 
