@@ -527,6 +527,11 @@ def run_ekf_cells(model, recs, settings: FilterSettings | None = None, soc0s=Non
     -------
     CellsResult
         Equal to :func:`estimator.filters.ekf.run_ekf` per cell (unmonitored run) to rounding.
+
+    References
+    ----------
+    G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV battery
+    packs, part 3", J. Power Sources 134 (2004) 277-292.
     """
     if keep not in _KEEP:
         raise ValueError(f"keep must be one of {', '.join(_KEEP)}, got {keep!r}")
