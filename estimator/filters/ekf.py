@@ -498,6 +498,11 @@ def run_ekf_batch(model, recs, settings: FilterSettings | None = None, soc0s=Non
     -------
     list of Trace
         One per recording, in order (empty for no recordings).
+
+    References
+    ----------
+    G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV
+    battery packs", parts 1-3, J. Power Sources 134 (2004) (as cited in the module docstring).
     """
     recs = list(recs)
     if not recs:
