@@ -49,6 +49,13 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     Trace
         ``method="ukf"``; while the consistency monitor flags the filter unhealthy the SOC and its
         sigma are the coulomb-counting baseline's (status bit ``fallback``), as in the EKF and the C code.
+
+    References
+    ----------
+    S. J. Julier and J. K. Uhlmann, "A new extension of the Kalman filter to nonlinear systems",
+    Proc. SPIE 3068 (1997) (details from memory).
+    R. van der Merwe, Sigma-point Kalman filters for probabilistic inference in dynamic state-space
+    models, PhD thesis, Oregon Health & Science University, 2004 (details from memory).
     """
     from socfuse.estimator.filters.coulomb import run_coulomb
 
