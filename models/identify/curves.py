@@ -39,6 +39,12 @@ def isotonic_increasing(y, weights=None, min_step: float = 0.0) -> np.ndarray:
     Returns
     -------
     ndarray (n,)
+
+    References
+    ----------
+    M. Ayer, H. D. Brunk, G. M. Ewing, W. T. Reid and E. Silverman, Ann. Math. Statist. 26 (1955)
+    (the pool-adjacent-violators algorithm).
+    R. E. Barlow et al., Statistical Inference under Order Restrictions, Wiley, 1972 (publisher from memory).
     """
     y = np.asarray(y, dtype=float)
     w = np.ones_like(y) if weights is None else np.asarray(weights, dtype=float)
@@ -167,6 +173,12 @@ def whittaker_gcv(x, y, weights=None, lambdas=None):
     lam : float
         The chosen penalty (``nan`` when fewer than 4 finite values: ``y`` returned, NaNs
         filled linearly).
+
+    References
+    ----------
+    E. T. Whittaker, "On a new method of graduation", Proc. Edinburgh Math. Soc. 41 (1923) (title from memory).
+    P. H. C. Eilers, "A perfect smoother", Anal. Chem. 75 (2003) 3631.
+    P. Craven and G. Wahba, "Smoothing noisy data with spline functions", Numer. Math. 31 (1979) (title from memory).
     """
     x = np.asarray(x, dtype=float)
     y = np.asarray(y, dtype=float)
