@@ -103,6 +103,11 @@ def fit_low_rate_hysteresis(soc_grid, half_gap_v, resistive_drop_v, edge: float 
     Returns
     -------
     HysteresisFit or None (fewer than 10 usable points)
+
+    References
+    ----------
+    G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV battery
+    packs", part 2, J. Power Sources 134 (2004) 262-276.
     """
     z = np.asarray(soc_grid, dtype=float)
     d = np.asarray(half_gap_v, dtype=float) - np.asarray(resistive_drop_v, dtype=float)
