@@ -193,6 +193,11 @@ def fit_relaxation(time_s, voltage_v, n_rc: int = 1, tau_min_s: float | None = N
     Returns
     -------
     RelaxationFit
+
+    References
+    ----------
+    G. H. Golub and V. Pereyra, "The differentiation of pseudo-inverses and nonlinear least squares
+    problems whose variables separate", SIAM J. Numer. Anal. 10 (1973) (title from memory).
     """
     t = np.asarray(time_s, dtype=float)
     v = np.asarray(voltage_v, dtype=float)
