@@ -221,6 +221,13 @@ def simulate(model: CellModel, time_s, current_a, temperature_c=None, soc0: floa
     The one simulator of socfuse (:func:`models.simulation.simulate_model`, also reached as
     :func:`models.identify.fastsim.simulate_fast`): the sampling rule of the module docstring,
     vectorised, with the RC and hysteresis recursions in compiled scalar loops.
+
+    References
+    ----------
+    X. Hu, S. Li and H. Peng, "A comparative study of equivalent circuit models for Li-ion batteries",
+    J. Power Sources 198 (2012) 359-367 (title from memory).
+    G. L. Plett, "Extended Kalman filtering for battery management systems of LiPB-based HEV battery
+    packs", part 2, J. Power Sources 134 (2004) 262-276 (the hysteresis state).
     """
     from socfuse.models.simulation import simulate_model  # numba only when a simulation runs
 
