@@ -506,13 +506,11 @@ def tolerance_figure(study: ToleranceStudy):
     matplotlib.figure.Figure
         Errors in percent of SOC, offset tolerances in mA, gain tolerances in percent.
     """
-    import matplotlib
-
-    matplotlib.use("Agg", force=False)
-    import matplotlib.pyplot as plt
+    from matplotlib.figure import Figure  # a plain Figure: the user's pyplot backend is never touched
 
     n_ax = 1 + len(study.sweeps)
-    fig, axes = plt.subplots(1, n_ax, figsize=(4.2 * n_ax, 3.4), squeeze=False)
+    fig = Figure(figsize=(4.2 * n_ax, 3.4))
+    axes = fig.subplots(1, n_ax, squeeze=False)
     ax = axes[0, 0]
     for m in study.methods:
         ax.hist(100 * study.runs.max_abs_error[m], bins=30, alpha=0.6, label=f"{m} (P95 {100 * study.p95[m]:.2f} %)")

@@ -21,13 +21,24 @@ from socfuse.models.fileio import replacing
 __all__ = ["save_plots", "plot_ocv", "plot_parameters", "plot_pulse_fits", "plot_validation"]
 
 
+class _Figures:
+    """``subplots`` and ``close`` on plain :class:`matplotlib.figure.Figure` objects: plotting here never
+    touches pyplot or the user's matplotlib backend (the figures are only saved to PNG)."""
+
+    @staticmethod
+    def subplots(nrows=1, ncols=1, *, figsize=None, squeeze=True):
+        from matplotlib.figure import Figure
+
+        fig = Figure(figsize=figsize)
+        return fig, fig.subplots(nrows, ncols, squeeze=squeeze)
+
+    @staticmethod
+    def close(fig) -> None:
+        fig.clear()
+
+
 def _plt():
-    import matplotlib
-
-    matplotlib.use("Agg", force=True)
-    import matplotlib.pyplot as plt
-
-    return plt
+    return _Figures
 
 
 def _save(fig, path: Path, overwrite: bool) -> Path:
