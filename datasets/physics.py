@@ -68,7 +68,7 @@ import numpy as np
 
 __all__ = ["CELLS", "CellSpec", "PhysicsCase", "SensorSpec", "cache_dir", "generate", "load_case", "main"]
 
-GENERATOR_VERSION = 3
+GENERATOR_VERSION = 4  # 4: sensor errors through socfuse.models.sensors (gain_error, a fraction)
 MANIFEST_SCHEMA = "socfuse.physics-manifest/1"
 SECONDS_PER_HOUR = 3600.0
 
@@ -77,12 +77,13 @@ SECONDS_PER_HOUR = 3600.0
 class SensorSpec:
     """BMS-grade measurement errors, as fractions of the 1C current where so named.
 
-    ``current_meas = q_i round((gain i + offset_a + n_i) / q_i)``, ``n_i ~ N(0, noise_a^2)``; the same
-    form for voltage (gain 1, no offset) and temperature.  Units: A, V, degC.
+    Applied by the one sensor-error model of socfuse (:func:`socfuse.models.sensors.measure`):
+    ``current_meas = q_i round(((1 + gain_error) i + offset_a + n_i) / q_i)``, ``n_i ~ N(0, noise_a^2)``;
+    the same form for voltage (no gain error, no offset) and temperature.  Units: A, V, degC.
     """
 
     offset_frac_1c: float = 0.005
-    gain: float = 1.004
+    gain_error: float = 0.004
     noise_frac_1c: float = 0.003
     current_quant_a: float = 0.001
     voltage_noise_v: float = 0.0015
@@ -109,12 +110,12 @@ CELLS = {
     "chen2020_nmc": CellSpec(
         "chen2020_nmc", "Chen2020", "LG M50 NMC811 (PyBaMM Chen2020, SPMe + lumped thermal)",
         options=(("thermal", "lumped"),), v_min=2.5, v_max=4.2,
-        sensors=SensorSpec(offset_frac_1c=0.005, gain=1.004),
+        sensors=SensorSpec(offset_frac_1c=0.005, gain_error=0.004),
         reference="Chen et al., J. Electrochem. Soc. 167, 080534 (2020), doi:10.1149/1945-7111/ab9050"),
     "prada2013_lfp": CellSpec(
         "prada2013_lfp", "Prada2013", "A123 26650 LFP (PyBaMM Prada2013, SPMe, isothermal)",
         options=(), v_min=2.0, v_max=3.6,
-        sensors=SensorSpec(offset_frac_1c=-0.005, gain=0.996),
+        sensors=SensorSpec(offset_frac_1c=-0.005, gain_error=-0.004),
         reference="Prada et al., J. Electrochem. Soc. 160, A616 (2013), doi:10.1149/2.053304jes"),
 }
 
@@ -352,23 +353,17 @@ def _simulate_drive(pybamm, spec: CellSpec, name: str, short: bool, one_c_a: flo
     return sol, soc0
 
 
-def _measure(x, gain, offset, noise, quant, rng):
-    y = gain * x + offset
-    if noise > 0:
-        y = y + rng.normal(0.0, noise, x.shape)
-    if quant > 0:
-        y = quant * np.round(y / quant)
-    return y + 0.0
-
 
 def _sensed(sig: dict, spec: CellSpec, one_c_a: float, seed: int) -> dict:
+    from socfuse.models.sensors import measure
+
     s = spec.sensors
     rng = np.random.default_rng(seed)
     return {
-        "current_a": _measure(sig["current_a"], s.gain, s.offset_frac_1c * one_c_a, s.noise_frac_1c * one_c_a,
-                              s.current_quant_a, rng),
-        "voltage_v": _measure(sig["voltage_v"], 1.0, 0.0, s.voltage_noise_v, s.voltage_quant_v, rng),
-        "temperature_c": _measure(sig["temperature_c"], 1.0, 0.0, s.temperature_noise_c, s.temperature_quant_c, rng),
+        "current_a": measure(sig["current_a"], s.offset_frac_1c * one_c_a, s.gain_error, s.noise_frac_1c * one_c_a,
+                             s.current_quant_a, rng),
+        "voltage_v": measure(sig["voltage_v"], 0.0, 0.0, s.voltage_noise_v, s.voltage_quant_v, rng),
+        "temperature_c": measure(sig["temperature_c"], 0.0, 0.0, s.temperature_noise_c, s.temperature_quant_c, rng),
     }
 
 
@@ -471,7 +466,7 @@ def _generate_cell(spec: CellSpec, folder: Path, short: bool, log=None) -> dict:
         "nominal_capacity_ah": one_c_a, "c20_capacity_ah": c20_ah, "stoichiometry_window_ah": q_window_ah,
         "full_below_equilibrium_ah": q_full, "precondition": _precondition_steps(spec),
         "coulombic_efficiency": 1.0,
-        "sensors": {"offset_a": s.offset_frac_1c * one_c_a, "gain": s.gain, "current_noise_a": s.noise_frac_1c * one_c_a,
+        "sensors": {"offset_a": s.offset_frac_1c * one_c_a, "gain_error": s.gain_error, "current_noise_a": s.noise_frac_1c * one_c_a,
                     "current_quant_a": s.current_quant_a, "voltage_noise_v": s.voltage_noise_v,
                     "voltage_quant_v": s.voltage_quant_v, "temperature_noise_c": s.temperature_noise_c,
                     "temperature_quant_c": s.temperature_quant_c},

@@ -35,7 +35,7 @@ def test_soc_ref_is_the_charge_counter_over_the_c20_capacity(case):
     # the noise averages out over a day) against soc_ref: both count the same charge.
     rec = load_recording(case.path("c20"))
     s = case.manifest["sensors"]
-    i_true = (rec.current_a - s["offset_a"]) / s["gain"]
+    i_true = (rec.current_a - s["offset_a"]) / (1.0 + s["gain_error"])
     q = cumulative_trapezoid(i_true, rec.time_s, initial=0.0) / 3600.0
     dsoc = rec.soc_ref[0] - rec.soc_ref
     # 1 mA quantum and 0.3 %-of-1C white noise over ~16 000 samples: far below 0.2 % of capacity
