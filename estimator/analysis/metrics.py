@@ -242,7 +242,19 @@ def error_metrics(time_s, soc, soc_ref, soc_sigma=None, band: float = CONVERGE_B
 
 
 def has_sigma(trace) -> bool:
-    """True when ``trace.method`` carries a filter's posterior sigma (:data:`SIGMA_METHODS`)."""
+    """True when ``trace.method`` carries a filter's posterior sigma (:data:`SIGMA_METHODS`).
+
+    Parameters
+    ----------
+    trace : Trace
+        Any estimator's trace (only its ``method`` is read).
+
+    Returns
+    -------
+    bool
+        True for the EKF, UKF and smoother; False for the coulomb baseline, whose sigma is a
+        bookkeeping growth law, so coverage, NIS and NEES are not defined for it.
+    """
     return str(getattr(trace, "method", "")).lower() in SIGMA_METHODS
 
 
