@@ -168,7 +168,7 @@ def test_progress_is_quiet_off_a_terminal(monkeypatch):
     assert show_progress() is True and show_progress(quiet=True) is False
 
 
-def test_summary_counts_gaps_and_the_envelope(small):
+def test_summary_counts_gaps_and_the_envelope(small, tmp_path):
     # issue 16: the report's runs table (summary.csv) counts the samples the filter step flagged;
     # the baseline carries no status, so its counts are blank
     from socfuse.models.recording import Recording
@@ -183,3 +183,9 @@ def test_summary_counts_gaps_and_the_envelope(small):
     s = res.summary.set_index("method")
     assert s.loc["ekf", "n_gap"] >= 1 and s.loc["ekf", "n_envelope"] >= 500
     assert pd.isna(s.loc["coulomb", "n_gap"])
+    # ... and the report's per-recording runs table shows them
+    from socfuse.estimator.outputs.report import write_report
+
+    rep = write_report(tmp_path / "rep", res, model)
+    html = rep.html.read_text()
+    assert "in or after a logging gap (samples)" in html and "outside the temperature envelope (samples)" in html

@@ -218,6 +218,9 @@ COLUMN_FORMATS: dict[str, tuple[str, str | Callable[[float], str]]] = {
     "nees_mean": ("mean NEES (-)", "{:.2f}"),
     "n_gated": ("gated (samples)", "{:.0f}"),
     "n_reseeds": ("reseeds (n)", "{:.0f}"),
+    "n_gap": ("in or after a logging gap (samples)", "{:.0f}"),
+    "n_envelope": ("outside the temperature envelope (samples)", "{:.0f}"),
+    "n_fallback": ("fallen back to counting (samples)", "{:.0f}"),
     "n_samples": ("samples (n)", "{:.0f}"),
     "duration_s": ("duration (s)", "{:.0f}"),
 }
@@ -740,7 +743,7 @@ def _model_summary(model) -> str:
 
 RUN_COLUMNS = ("scenario", "method", "rmse_pct", "p95_abs_pct", "max_abs_pct", "final_abs_pct", "mae_pct",
                "converge_s", "n_excursions", "excursion_s", "inside_3sigma", "nis_mean", "nis_lo", "nis_hi",
-               "nees_mean", "n_gated", "n_reseeds")
+               "nees_mean", "n_gated", "n_reseeds", "n_gap", "n_envelope", "n_fallback")
 
 
 def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse benchmark report",
