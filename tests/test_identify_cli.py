@@ -38,9 +38,10 @@ def test_identify_writes_a_model_the_loader_accepts(files, capsys):
     code = main(["identify", "--ocv-test", str(d / "c20.csv"), "--pulse-test", str(d / "pulse.csv"),
                  "--rc-pairs", "1", "--validate", str(d / "drive.csv"), "--plots", str(d / "plots"),
                  "--power-table", str(d / "power.csv"), "-o", str(out)])
-    text = capsys.readouterr().out
+    cap = capsys.readouterr()
+    text = cap.out
     assert code == 0
-    assert SAFETY_NOTE in text
+    assert SAFETY_NOTE in cap.err and SAFETY_NOTE not in text  # cautions on stderr, results on stdout
     assert "open-loop voltage RMS" in text
     m = load_model(out)
     assert m.capacity_ah == pytest.approx(1.0, rel=1e-3)  # the profile removes exactly 1 Ah

@@ -9,7 +9,7 @@ from socfuse.models.identify.pipeline import identify
 from socfuse.models.modelfile import save_model
 
 from socfuse.estimator.cli.main import COMMAND_HELP, CliError, SAFETY_NOTE
-from socfuse.estimator.cli.common import add_mapping_options, load_checked
+from socfuse.estimator.cli.common import add_mapping_options, load_checked, note
 from socfuse.models.fileio import replacing
 
 
@@ -117,6 +117,5 @@ def run(args) -> int:
         except FileExistsError as e:
             raise CliError(str(e)) from None
         print(f"plots: {len(paths)} PNG files in {args.plots}")
-    print()
-    print(SAFETY_NOTE)
+    note(SAFETY_NOTE)  # cautions on stderr, results on stdout
     return 0
