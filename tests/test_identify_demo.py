@@ -90,3 +90,16 @@ def test_the_estimator_accepts_the_model(demo):
     tr = run.estimate(res.model, rec.slice(0, 3000), method="ekf")
     assert np.all(np.isfinite(tr.soc))
     assert abs(tr.soc[-1] - rec.soc_ref[2999]) < 0.05
+
+
+def test_result_table_is_the_models_tables(demo):
+    # IdentifyResult.to_frame(): one row per R0 breakpoint; at a breakpoint the table's own value
+    # comes back exactly (round trip of the data structure, no outside reference needed)
+    _, res = demo
+    f = res.to_frame()
+    m = res.model
+    t = m.r0_ohm.temperature_c
+    assert len(f) == m.r0_ohm.soc.size * (1 if t is None else t.size)
+    assert {"temperature_c", "soc", "ocv_v", "r0_ohm", "r1_ohm", "tau1_s"} <= set(f.columns)
+    vals = np.asarray(m.r0_ohm.values, dtype=float).reshape(-1)
+    assert np.allclose(np.sort(f["r0_ohm"].to_numpy()), np.sort(vals), rtol=1e-12)

@@ -77,6 +77,32 @@ class IdentifyResult:
     notes: tuple = ()
     ocv_info: dict = field(default_factory=dict)
 
+    def to_frame(self):
+        """The identified parameter tables as one DataFrame.
+
+        Returns
+        -------
+        pandas.DataFrame
+            One row per (temperature, SOC) breakpoint of the R0 table: ``temperature_c`` (degC),
+            ``soc`` (fraction), ``ocv_v`` (V), ``r0_ohm`` and, per RC pair ``j``, ``r{j}_ohm``
+            (ohm) and ``tau{j}_s`` (s), all evaluated from the model's tables at that point.
+        """
+        import pandas as pd
+
+        m = self.model
+        temps = m.r0_ohm.temperature_c if m.r0_ohm.temperature_c is not None else np.array([25.0])
+        rows = []
+        for t_c in np.atleast_1d(temps):
+            for z in m.r0_ohm.soc:
+                row = {"temperature_c": float(t_c), "soc": float(z),
+                       "ocv_v": float(m.ocv.voltage(float(z), float(t_c))),
+                       "r0_ohm": float(m.r0_ohm.at(float(z), float(t_c)))}
+                for j, pair in enumerate(m.rc, start=1):
+                    row[f"r{j}_ohm"] = float(pair.r_ohm.at(float(z), float(t_c)))
+                    row[f"tau{j}_s"] = float(pair.tau_s.at(float(z), float(t_c)))
+                rows.append(row)
+        return pd.DataFrame(rows)
+
     def summary(self) -> str:
         """A short plain-text summary (SI units; SOC in percent)."""
         m = self.model
