@@ -39,7 +39,7 @@ from dataclasses import dataclass
 import numpy as np
 from numba import njit, prange
 
-from socfuse.estimator.filters.ekf import initial_soc, prior, recording_arrays, setup
+from socfuse.estimator.filters.ekf import batch_inputs, initial_soc, prior, recording_arrays, setup
 from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_RERR, P_SE,
                                                P_SMAX, P_SMIN, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
                                                _measure, _qdiag, _temp_index, _transition, error_index,
@@ -535,16 +535,8 @@ def run_ekf_cells(model, recs, settings: FilterSettings | None = None, soc0s=Non
     """
     if keep not in _KEEP:
         raise ValueError(f"keep must be one of {', '.join(_KEEP)}, got {keep!r}")
-    recs = list(recs)
+    recs, m, soc0s, scales = batch_inputs(recs, soc0s, capacity_scales, "cells")
     su = setup(model, settings)
-    m = len(recs)
-    if soc0s is None or np.isscalar(soc0s):
-        soc0s = [soc0s] * m
-    if len(soc0s) != m:
-        raise ValueError(f"{len(soc0s)} soc0 values for {m} cells")
-    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
-    if scales.shape != (m,) or np.any(~(scales > 0)):
-        raise ValueError("capacity_scales must be one positive number per cell")
     if int(block) < 1:
         raise ValueError(f"block must be a positive number of cells, got {block}")
     uniq: dict = {}

@@ -23,7 +23,7 @@ from socfuse.estimator.filters.settings import FilterSettings, default_settings
 from socfuse.estimator.filters.tables import KernelTables
 from socfuse.estimator.filters.trace import Trace, make_trace, state_names
 
-__all__ = ["EkfSetup", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
+__all__ = ["EkfSetup", "batch_inputs", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
            "run_ekf_store", "temperature_array"]
 
 
@@ -425,6 +425,37 @@ def run_ekf_store(model, rec, settings=None, soc0=None):
     return _run(model, rec, settings, soc0, True)
 
 
+def batch_inputs(recs, soc0s, capacity_scales, noun: str = "recordings"):
+    """Check the per-run inputs of a batched EKF run (the one check for every batch entry point).
+
+    Parameters
+    ----------
+    recs : sequence of Recording
+        One recording per run.
+    soc0s : float, None or sequence
+        Initial SOC (fraction) per run, or one value (or None: from the first voltage) for all.
+    capacity_scales : array_like (M,) or None
+        Per-run multiplier of the model capacity (positive; None = 1).
+    noun : str
+        What a run is called in the error messages ("recordings", "cells").
+
+    Returns
+    -------
+    (list, int, list, numpy.ndarray)
+        The recordings, their count ``M``, the ``M`` initial SOCs and the ``M`` capacity scales.
+    """
+    recs = list(recs)
+    m = len(recs)
+    if soc0s is None or np.isscalar(soc0s):
+        soc0s = [soc0s] * m
+    if len(soc0s) != m:
+        raise ValueError(f"{len(soc0s)} soc0 values for {m} {noun}")
+    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
+    if scales.shape != (m,) or np.any(~(scales > 0)):
+        raise ValueError(f"capacity_scales must be one positive number per {noun[:-1]}")
+    return recs, m, soc0s, scales
+
+
 def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s=None,
                      capacity_scales=None) -> dict:
     """The batched EKF (numba ``prange`` over recordings), returning the raw arrays.
@@ -445,16 +476,8 @@ def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s
     ``voltage_pred_v``, ``innovation_v``, ``innovation_var_v2`` (all concatenated over the
     recordings), ``n_gated`` (M,), ``capacity_scales`` (M,) and ``setup``.
     """
-    recs = list(recs)
+    recs, m, soc0s, scales = batch_inputs(recs, soc0s, capacity_scales, "recordings")
     su = setup(model, settings)
-    m = len(recs)
-    if soc0s is None or np.isscalar(soc0s):
-        soc0s = [soc0s] * m
-    if len(soc0s) != m:
-        raise ValueError(f"{len(soc0s)} soc0 values for {m} recordings")
-    scales = np.ones(m) if capacity_scales is None else np.ascontiguousarray(capacity_scales, dtype=float)
-    if scales.shape != (m,) or np.any(~(scales > 0)):
-        raise ValueError("capacity_scales must be one positive number per recording")
     lens = np.array([r.n for r in recs], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
     nx = su.n_x
