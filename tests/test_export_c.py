@@ -96,7 +96,8 @@ def test_refuses_a_foreign_folder(tmp_path):
     export_c(model, None, out, rec, measure=False)
     readme = (out / "README.md").read_text()
     assert "regenerate, do not hand-edit".lower() in readme.lower() and "ISO 26262" in readme
-    assert res.footprint.table_bytes == 4 * 6 * 1 * 401  # 6 rows (4 + 2 n_rc) x 1 temperature x 401 SOC points
+    # 6 rows (4 + 2 n_rc) x 1 temperature x 401 SOC points, and the one-entry temperature axis
+    assert res.footprint.table_bytes == 4 * (6 * 1 * 401 + 1)
 
 
 # ----------------------------------------------------------------------------- compiled

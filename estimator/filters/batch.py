@@ -158,8 +158,8 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
     base = np.empty(nb, dtype=np.int64)
     lens = np.empty(nb, dtype=np.int64)
     q = np.zeros(nx)
-    _qdiag(n_rc, i_b, i_h, est_h, prm, q)
     i_e = error_index(nx, prm)
+    _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
     se2 = prm[P_SE] * prm[P_SE]
@@ -203,7 +203,7 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
                     xs[i] = x[i, c]
                 ue = u - xs[i_b] if i_b >= 0 else u
                 pc[P_CAP] = cap[c]
-                _transition(tab, n_rc, i_b, i_h, pc, xs, u, dt, pt0[c], pt1[c], pwt[c], xn, d1, g1, cache)
+                _transition(tab, n_rc, i_b, i_h, i_e, pc, xs, u, dt, pt0[c], pt1[c], pwt[c], xn, d1, g1, cache)
                 for i in range(nx):
                     x[i, c] = xn[i]
                     qd[i, c] = q[i] * dt
@@ -308,7 +308,7 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
             for i in range(nx):
                 xs[i] = x[i, c]
             ik = current_a[kk]
-            y[c] = _measure(tab, n_rc, i_b, i_h, pc, xs, ik, it0, it1, wt, h1)
+            y[c] = _measure(tab, n_rc, i_b, i_h, i_e, pc, xs, ik, it0, it1, wt, h1)
             for i in range(nx):
                 hs[i, c] = h1[i]
             pt0[c] = it0

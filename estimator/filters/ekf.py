@@ -131,7 +131,7 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_GAP] = s.gap_s
     prm[K.P_RCORR] = s.resistance_error_corr_s
     # operating envelope: the model's temperature tables plus a margin (NaN temperatures are 25 degC)
-    t_hi = tab.t_min + tab.t_step * (tab.temp_grid.size - 1)
+    t_hi = tab.t_max
     prm[K.P_TENV_LO] = min(tab.t_min, K.DEFAULT_TEMP_C) - K.ENVELOPE_MARGIN_C
     prm[K.P_TENV_HI] = max(t_hi, K.DEFAULT_TEMP_C) + K.ENVELOPE_MARGIN_C
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)

@@ -77,13 +77,15 @@ import math
 
 import numpy as np
 from numba import njit, prange
+from numba import typeof as _nb_typeof
+from numba.core import types as _nb_types
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
            "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
-           "white_factor",
+           "white_factor", "layout", "layout_size", "specialised",
            "error_index", "cache_size", "NIS_ALPHA", "NIS_CAP", "NIS_HIGH", "NIS_LOW", "table_value", "ocv_lookup",
            "ocv_inverse", "measure", "transition", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
 
@@ -197,6 +199,101 @@ def cache_size(n_rc: int) -> int:
     return 2 * n_rc + 3
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def layout_size(n_rc, i_b, i_h, i_e):
+    """State size of the layout ``[soc, v_rc_1..n_rc, (bias), (h), (m)]`` (absent states have index -1)."""
+    return 1 + n_rc + (1 if i_b >= 0 else 0) + (1 if i_h >= 0 else 0) + (1 if i_e >= 0 else 0)
+
+
+def layout(n_x: int, n_rc: int, i_b: int, i_h: int, est_h: bool, prm) -> tuple:
+    """The state layout ``(n_rc, i_b, i_h, i_e, est_h)`` as plain ints, checked against the state size.
+
+    Parameters
+    ----------
+    n_x : int
+        State size of the prior handed to the kernel.
+    n_rc, i_b, i_h : int
+        RC pairs; index of the bias / hysteresis state or -1.
+    est_h : bool
+        Hysteresis estimated.
+    prm : ndarray (N_PRM,)
+        Parameter vector; the model-error state exists when ``prm[P_SE] > 0`` (:func:`error_index`).
+
+    Returns
+    -------
+    tuple of int
+        ``(n_rc, i_b, i_h, i_e, est_h)`` with ``est_h`` as 0/1.
+
+    Raises
+    ------
+    ValueError
+        When ``n_x`` does not match the layout (the kernel would index past its arrays).
+    """
+    n_x, n_rc, i_b, i_h = int(n_x), int(n_rc), int(i_b), int(i_h)
+    i_e = n_x - 1 if prm[P_SE] > 0.0 else -1
+    if n_rc < 0 or layout_size(n_rc, i_b, i_h, i_e) != n_x or max(i_b, i_h, i_e) >= n_x:
+        raise ValueError(f"state size {n_x} does not match the layout n_rc={n_rc}, i_b={i_b}, i_h={i_h}, "
+                         f"model error {'on' if i_e >= 0 else 'off'}")
+    return n_rc, i_b, i_h, i_e, int(bool(est_h))
+
+
+_SPECIALISED: dict = {}
+
+
+def _nb_type(a):
+    if isinstance(a, (bool, np.bool_)):
+        return _nb_types.boolean
+    if isinstance(a, (int, np.integer)):
+        return _nb_types.int64
+    if isinstance(a, float):
+        return _nb_types.float64
+    return _nb_typeof(a)
+
+
+def specialised(fn, first: int, args: tuple):
+    """The compiled ``fn`` for ``args`` with the state layout as compile-time constants.
+
+    ``args[first:first + 5]`` is the layout ``(n_rc, i_b, i_h, i_e, est_h)`` (plain ints, from
+    :func:`layout`).  They are typed as numba literals, so every layout gets its own machine code
+    (loops over the state with fixed trip counts, branches on absent states folded away) from the
+    one source; each is compiled once and kept in numba's on-disk cache (``cache=True``: the literal
+    types are part of the cache key).  The entry point is looked up directly, so no Python-side
+    dispatch on literal values happens per call.  Under ``NUMBA_DISABLE_JIT=1`` this is ``fn``.
+
+    Parameters
+    ----------
+    fn : numba dispatcher (or plain function without JIT)
+    first : int
+        Position of ``n_rc`` in ``args``.
+    args : tuple
+        The call's arguments.
+
+    Returns
+    -------
+    callable
+        To be called with ``args``.
+    """
+    compile_ = getattr(fn, "compile", None)
+    if compile_ is None:
+        return fn
+    lay = args[first:first + 5]
+    key = (fn, lay, tuple(_nb_type(a) for a in args))
+    hit = _SPECIALISED.get(key)
+    if hit is None:
+        sig = list(key[2])
+        for j, v in enumerate(lay):
+            sig[first + j] = _nb_types.literal(int(v))
+        hit = compile_(tuple(sig))
+        _SPECIALISED[key] = hit
+    return hit
+
+
+def _call(fn, head: tuple, n_x: int, n_rc, i_b, i_h, est_h, prm, tail: tuple):
+    """``fn(*head, n_rc, i_b, i_h, i_e, est_h, prm, *tail)`` compiled for this layout (:func:`specialised`)."""
+    args = (*head, *layout(n_x, n_rc, i_b, i_h, est_h, prm), prm, *tail)
+    return specialised(fn, len(head), args)(*args)
+
+
 # ----------------------------------------------------------------------------- look-ups
 @njit(cache=True, error_model="numpy", inline="always")
 def _soc_index(tab, z):
@@ -215,21 +312,28 @@ def _soc_index(tab, z):
 
 @njit(cache=True, error_model="numpy", inline="always")
 def _temp_index(tab, t_c, t_min, t_step):
-    """Rows and weight on the uniform temperature grid (clamped; NaN -> 25 degC)."""
+    """Rows and weight on the table's temperature axis (clamped; NaN -> 25 degC).
+
+    The axis is the model's own breakpoints (non-uniform), carried in the last packed row
+    (:attr:`estimator.filters.tables.KernelTables.row_temp`); a short linear search (the filter
+    loop calls this only when the temperature changes).  At a breakpoint the weight is exactly 0,
+    so that row is used as identified.  ``t_min`` and ``t_step`` are not used (kept for callers).
+    """
     n_t = tab.shape[1]
     if n_t == 1:
         return 0, 0, 0.0
     if not (t_c == t_c):
         t_c = DEFAULT_TEMP_C
-    x = (t_c - t_min) / t_step
-    if x <= 0.0:
+    ax = tab.shape[0] - 1
+    if t_c <= tab[ax, 0, 0]:
         return 0, 1, 0.0
-    if x >= n_t - 1:
+    if t_c >= tab[ax, n_t - 1, 0]:
         return n_t - 2, n_t - 1, 1.0
-    i = int(x)
-    if i > n_t - 2:
-        i = n_t - 2
-    return i, i + 1, x - i
+    i = 0
+    while i < n_t - 2 and tab[ax, i + 1, 0] <= t_c:
+        i += 1
+    t0 = tab[ax, i, 0]
+    return i, i + 1, (t_c - t0) / (tab[ax, i + 1, 0] - t0)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -365,7 +469,7 @@ def ocv_inverse(tab, v, t_c, t_min, t_step):
 
 # ----------------------------------------------------------------------------- model pieces
 @njit(cache=True, error_model="numpy", inline="always")
-def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache):
+def _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache):
     """One interval of the sampling rule.
 
     Writes the next state ``xn``, the diagonal ``d`` of ``F`` and the input Jacobian
@@ -415,7 +519,6 @@ def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g,
         xn[i_h] = e * h - (1.0 - e) * sg
         d[i_h] = e
         g[i_h] = -(h + sg) * e * k * sg
-    i_e = error_index(x.size, prm)
     if i_e >= 0:
         ke = 2 * n_rc + 1
         if same_dt and cache[ke] == cache[ke]:
@@ -430,7 +533,7 @@ def _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g,
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow):
+def _measure(tab, n_rc, i_b, i_h, i_e, prm, x, i_k, it0, it1, wt, hrow):
     """Predicted terminal voltage at state ``x`` and current sample ``i_k``; writes ``H``."""
     z = x[0]
     is0, ws = _soc_index(tab, z)
@@ -454,7 +557,6 @@ def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow):
     if i_h >= 0:
         y += prm[P_HM] * x[i_h]
         hrow[i_h] = prm[P_HM]
-    i_e = error_index(x.size, prm)
     if i_e >= 0:
         y += x[i_e]
         hrow[i_e] = 1.0
@@ -462,7 +564,7 @@ def _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow):
 
 
 @njit(cache=True, error_model="numpy")
-def _qdiag(n_rc, i_b, i_h, est_h, prm, q):
+def _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q):
     q[0] = prm[P_QSOC]
     for j in range(n_rc):
         q[1 + j] = prm[P_QRC]
@@ -470,7 +572,6 @@ def _qdiag(n_rc, i_b, i_h, est_h, prm, q):
         q[i_b] = prm[P_QB]
     if i_h >= 0:
         q[i_h] = prm[P_QH] if est_h else 0.0
-    i_e = error_index(q.size, prm)
     if i_e >= 0:
         q[i_e] = 0.0  # its noise sigma_m^2 (1 - a_m^2) is not a density: added per interval
 
@@ -528,7 +629,7 @@ def measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c):
     """Python-callable measurement model: ``(y_pred_v, H)`` at state ``x`` (n_x,)."""
     hrow = np.zeros(x.size)
     it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
-    y = _measure(tab, n_rc, i_b, i_h, prm, x, i_k, it0, it1, wt, hrow)
+    y = _measure(tab, n_rc, i_b, i_h, error_index(x.size, prm), prm, x, i_k, it0, it1, wt, hrow)
     return y, hrow
 
 
@@ -541,7 +642,7 @@ def transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c):
     g = np.zeros(nx)
     cache = np.full(2 * n_rc + 3, np.nan)
     it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
-    _transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache)
+    _transition(tab, n_rc, i_b, i_h, error_index(nx, prm), prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache)
     return xn
 
 
@@ -574,14 +675,15 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
     it0, it1, wt = _temp_index(tab, t_prev, prm[P_TMIN], prm[P_TSTEP])
     u = 0.5 * (i_prev + i_next)
     ue = u - x[i_b] if i_b >= 0 else u
-    _transition(tab, n_rc, i_b, i_h, prm, x, u, dt, it0, it1, wt, xn, d, g, cache)
+    i_e = error_index(nx, prm)
+    _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u, dt, it0, it1, wt, xn, d, g, cache)
     f = np.zeros((nx, nx))
     for i in range(nx):
         f[i, i] = d[i]
         if i_b >= 0 and i != i_b:
             f[i, i_b] = -g[i]
     q = np.zeros(nx)
-    _qdiag(n_rc, i_b, i_h, est_h, prm, q)
+    _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
     gq = g.copy()
     if i_h >= 0 and not est_h:
         gq[i_h] = 0.0
@@ -592,26 +694,27 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
             qm[i, j] = gq[i] * gq[j] * s2
         qm[i, i] += q[i] * dt
     qm[0, 0] += prm[P_CAPERR] * prm[P_CAPERR] * abs(g[0] * ue)
-    i_e = error_index(nx, prm)
     if i_e >= 0:
         qm[i_e, i_e] += cache[2 * n_rc + 2]
     hrow = np.zeros(nx)
     it0, it1, wt = _temp_index(tab, t_next, prm[P_TMIN], prm[P_TSTEP])
-    y = _measure(tab, n_rc, i_b, i_h, prm, xn, i_next, it0, it1, wt, hrow)
+    y = _measure(tab, n_rc, i_b, i_h, i_e, prm, xn, i_next, it0, it1, wt, hrow)
     return xn, f, g, qm, hrow, y
 
 
 # ----------------------------------------------------------------------------- EKF
-@njit(cache=True, error_model="numpy")
 def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
             x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
     """Run the EKF over one recording; returns the number of gated samples.
+
+    The kernel is compiled once per state layout (:func:`specialised`).
 
     Parameters
     ----------
     time_s, current_a, voltage_v, temp_c : ndarray (N,)
         Samples (s, A positive on discharge, V with NaN = missing, degC with NaN = 25).
-    tab : ndarray (4 + 2 n_rc, n_t, n_s)   packed :class:`estimator.tables.KernelTables`
+    tab : ndarray (5 + 2 n_rc, n_t, n_s)   packed :class:`estimator.tables.KernelTables` (last row: the
+        temperature axis)
     n_rc, i_b, i_h : int    RC pairs; index of the bias / hysteresis state or -1
     est_h : bool            hysteresis estimated (else propagated with zero noise)
     prm : ndarray (N_PRM,)  settings and model scalars (``P_*`` layout)
@@ -621,10 +724,22 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
     store : bool
         When True also write ``p_out`` (posterior P), ``ppred_out`` (prior P) and ``f_out``
         (the F that led to sample k; identity at k = 0), each (N, n_x, n_x).
+
+    Returns
+    -------
+    int
+        The number of gated samples.
     """
+    return _call(_ekf_run, (time_s, current_a, voltage_v, temp_c, tab), x0.size, n_rc, i_b, i_h, est_h, prm,
+                 (x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, bool(store), p_out, ppred_out, f_out))
+
+
+@njit(cache=True, error_model="numpy")
+def _ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, x0, p0,
+             x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
     dummy = np.zeros(1)
     idummy = np.zeros(1, dtype=np.int64)
-    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
+    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm,
                      x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
                      False, dummy, dummy, idummy, idummy)
 
@@ -669,7 +784,6 @@ def check_inputs(current_a, voltage_v, temp_c, prm, cur_out, volt_out, temp_out,
         status_out[k] = st
 
 
-@njit(cache=True, error_model="numpy")
 def ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
                       base_soc, base_sig, x_out, sig_out, vpred_out, innov_out, s_out, status_out, healthy_out):
     """The EKF with the health monitor of the exported C code (inputs already through :func:`check_inputs`).
@@ -682,21 +796,39 @@ def ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     NIS (:data:`NIS_ALPHA`, one sample capped at :data:`NIS_CAP`) above :data:`NIS_HIGH` marks the
     filter unhealthy until it falls below :data:`NIS_LOW`.  ``healthy_out[k]`` = 0 means the
     output at ``k`` is the baseline (``ST_FALLBACK``).  ``status_out`` carries the input-check
-    bits on entry; ``ST_GATED``, ``ST_RESET`` and ``ST_FALLBACK`` are added.  Returns the number of
-    gated samples.
+    bits on entry; ``ST_GATED``, ``ST_RESET`` and ``ST_FALLBACK`` are added.  Compiled once per state
+    layout (:func:`specialised`).
+
+    Returns
+    -------
+    int
+        The number of gated samples.
     """
+    return _call(_ekf_run_monitored, (time_s, current_a, voltage_v, temp_c, tab), x0.size, n_rc, i_b, i_h, est_h,
+                 prm, (x0, p0, base_soc, base_sig, x_out, sig_out, vpred_out, innov_out, s_out, status_out,
+                       healthy_out))
+
+
+@njit(cache=True, error_model="numpy")
+def _ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, x0, p0,
+                       base_soc, base_sig, x_out, sig_out, vpred_out, innov_out, s_out, status_out, healthy_out):
     dummy = np.zeros((1, x0.size, x0.size))
-    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
+    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm,
                      x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, False, dummy, dummy, dummy,
                      True, base_soc, base_sig, status_out, healthy_out)
 
 
 @njit(cache=True, error_model="numpy")
-def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0,
+def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, x0, p0,
               x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
               mon, base_soc, base_sig, status_out, healthy_out):
-    """The EKF loop over rows ``lo..hi-1`` of the (possibly concatenated) arrays; see :func:`ekf_run`."""
-    nx = x0.size
+    """The EKF loop over rows ``lo..hi-1`` of the (possibly concatenated) arrays; see :func:`ekf_run`.
+
+    The layout ints ``n_rc, i_b, i_h, i_e, est_h`` are compile-time constants when called through
+    :func:`ekf_run` and its siblings (:func:`specialised`), so the loops over the state have fixed
+    trip counts and the branches on absent states fold away.
+    """
+    nx = layout_size(n_rc, i_b, i_h, i_e)
     x = x0.copy()
     p = p0.copy()
     xn = np.zeros(nx)
@@ -710,8 +842,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     q = np.zeros(nx)
     qd = np.zeros(nx)
     cache = np.full(2 * n_rc + 3, np.nan)
-    _qdiag(n_rc, i_b, i_h, est_h, prm, q)
-    i_e = error_index(nx, prm)
+    _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
     se2 = prm[P_SE] * prm[P_SE]
@@ -755,7 +886,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             if run_on:
                 run_s += dt
             ue = u - x[i_b] if i_b >= 0 else u
-            _transition(tab, n_rc, i_b, i_h, prm, x, u, dt, pt0, pt1, pwt, xn, d, g, cache)
+            _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u, dt, pt0, pt1, pwt, xn, d, g, cache)
             for i in range(nx):
                 x[i] = xn[i]
                 qd[i] = q[i] * dt
@@ -852,7 +983,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                     p[j, i] = v
             skip_upd = True
         # measurement
-        y = _measure(tab, n_rc, i_b, i_h, prm, x, current_a[k], it0, it1, wt, hrow)
+        y = _measure(tab, n_rc, i_b, i_h, i_e, prm, x, current_a[k], it0, it1, wt, hrow)
         pt0, pt1, pwt = it0, it1, wt
         t_last = tk
         ik = current_a[k]
@@ -968,14 +1099,26 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     return gated
 
 
-@njit(cache=True, parallel=True, error_model="numpy")
 def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm,
                   cap_scale, x0s, p0s, x_out, sig_out, vpred_out, innov_out, s_out, gated_out):
     """Many recordings of one model in parallel (numba ``prange`` over recordings).
 
     Recordings are concatenated; recording ``r`` occupies rows ``offsets[r]:offsets[r+1]``.
-    ``cap_scale[r]`` multiplies the capacity, ``x0s[r]``/``p0s[r]`` are the priors.
+    ``cap_scale[r]`` multiplies the capacity, ``x0s[r]``/``p0s[r]`` are the priors.  Compiled once
+    per state layout (:func:`specialised`).
+
+    Returns
+    -------
+    None
+        Writes the outputs as :func:`ekf_run` (concatenated) and ``gated_out[r]``.
     """
+    _call(_ekf_run_batch, (offsets, time_s, current_a, voltage_v, temp_c, tab), x0s.shape[1], n_rc, i_b, i_h,
+          est_h, prm, (cap_scale, x0s, p0s, x_out, sig_out, vpred_out, innov_out, s_out, gated_out))
+
+
+@njit(cache=True, parallel=True, error_model="numpy")
+def _ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm,
+                   cap_scale, x0s, p0s, x_out, sig_out, vpred_out, innov_out, s_out, gated_out):
     nrec = offsets.size - 1
     nx = x0s.shape[1]
     dummy = np.zeros((1, nx, nx))
@@ -986,7 +1129,7 @@ def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b,
         b = offsets[r + 1]
         pr = prm.copy()
         pr[P_CAP] = prm[P_CAP] * cap_scale[r]
-        gated_out[r] = _ekf_core(a, b, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr,
+        gated_out[r] = _ekf_core(a, b, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, pr,
                                  x0s[r], p0s[r], x_out, sig_out, vpred_out, innov_out, s_out, False, dummy,
                                  dummy, dummy, False, dummy1, dummy1, idummy, idummy)
 
@@ -1071,7 +1214,7 @@ def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest
             var += c * c * s2 * white_factor(prm, dt) + qs * dt + gv
             if gv > 0.0 and voltage_v[k] == voltage_v[k]:
                 # end of a logging gap: restart the count from this voltage when it knows better
-                zv, sgv = soc_from_voltage(tab, (tab.shape[0] - 4) // 2, prm, voltage_v[k], current_a[k], temp_c[k])
+                zv, sgv = soc_from_voltage(tab, (tab.shape[0] - 5) // 2, prm, voltage_v[k], current_a[k], temp_c[k])
                 if sgv * sgv < var:
                     z = zv
                     var = sgv * sgv

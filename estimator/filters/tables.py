@@ -1,9 +1,13 @@
-"""KernelTables: a cell model resampled on uniform SOC x temperature grids for the kernels.
+"""KernelTables: a cell model resampled on a uniform SOC grid x its own temperature breakpoints.
 
-The compiled kernels (and the C export) look parameters up by index arithmetic on uniform
-grids: ``i = floor(soc / dsoc)``, ``w = soc / dsoc - i``, bilinear in temperature, no search.
-All tables are packed in one array ``packed`` of shape ``(4 + 2 n_rc, n_t, n_s)`` with rows
-``ocv, docv, r0, dr0, r_rc_1..n, tau_rc_1..n``; the named attributes are views of it.
+The compiled kernels (and the C export) look parameters up by index arithmetic on the uniform
+SOC grid (``i = floor(soc / dsoc)``, ``w = soc / dsoc - i``) and bilinearly in temperature on
+the axis of every temperature breakpoint the model has (non-uniform; a short search, which the
+filter loop caches while the temperature is unchanged), so a table identified at 0.56 degC is
+reproduced exactly at 0.56 degC.  All tables are packed in one array ``packed`` of shape
+``(5 + 2 n_rc, n_t, n_s)`` with rows ``ocv, docv, r0, dr0, r_rc_1..n, tau_rc_1..n`` and a last
+row that carries the temperature axis (degC, the same value along SOC), so the kernels take one
+table argument; the named attributes are views of it.
 """
 from __future__ import annotations
 
@@ -16,14 +20,13 @@ from socfuse.models.thevenin import SECONDS_PER_HOUR
 __all__ = ["KernelTables", "ROW_OCV", "ROW_DOCV", "ROW_R0", "ROW_DR0", "ROW_RC"]
 
 ROW_OCV, ROW_DOCV, ROW_R0, ROW_DR0, ROW_RC = 0, 1, 2, 3, 4
-_MAX_T = 41
+_MAX_T = 64
 
 
 def _temperature_grid(model) -> np.ndarray:
-    """Uniform temperature grid covering every temperature breakpoint of the model.
+    """Every temperature breakpoint of the model's tables (sorted, duplicates within 1e-9 degC merged).
 
-    The spacing is the smallest gap between the model's breakpoints (so breakpoints on a
-    regular lattice are reproduced exactly), with at most 41 points.
+    The union over the OCV, R0 and RC tables; a single 25 degC row for a temperature-free model.
     """
     pts = []
     for a in (model.ocv.temperature_c, model.r0_ohm.temperature_c,
@@ -33,22 +36,22 @@ def _temperature_grid(model) -> np.ndarray:
     if not pts:
         return np.array([25.0])
     u = np.unique(np.round(pts, 9))
-    lo, hi = float(u[0]), float(u[-1])
-    step = float(np.min(np.diff(u)))
-    n = int(round((hi - lo) / step)) + 1
-    n = min(max(n, 2), _MAX_T)
-    return np.linspace(lo, hi, n)
+    if u.size > _MAX_T:
+        raise ValueError(f"the model has {u.size} distinct temperature breakpoints; the kernel tables take at "
+                         f"most {_MAX_T}")
+    return u.astype(float)
 
 
 @dataclass(frozen=True, eq=False)
 class KernelTables:
-    """The model on uniform grids.
+    """The model on a uniform SOC grid x the model's temperature breakpoints.
 
     Attributes
     ----------
     soc_grid : ndarray (n_s,)  uniform over [0, 1]
-    temp_grid : ndarray (n_t,)  uniform, degC (a single 25 degC row for a temperature-free model)
-    packed : ndarray (4 + 2 n_rc, n_t, n_s)
+    temp_grid : ndarray (n_t,)  every temperature breakpoint of the model, increasing, degC (a single
+        25 degC row for a temperature-free model)
+    packed : ndarray (5 + 2 n_rc, n_t, n_s)   the table rows and, last, the temperature axis
     ocv, docv : ndarray (n_t, n_s)   OCV (V) and dOCV/dSOC (V per unit SOC, the PCHIP derivative)
     r0, dr0 : ndarray (n_t, n_s)     R0 (ohm) and dR0/dSOC (ohm per unit SOC, central differences)
     r_rc, tau_rc : ndarray (n_rc, n_t, n_s)   RC resistances (ohm) and time constants (s)
@@ -80,6 +83,7 @@ class KernelTables:
         rows = [ocv, docv, r0, dr0]
         rows += [p.r_ohm.uniform(soc_grid, temp) for p in model.rc]
         rows += [p.tau_s.uniform(soc_grid, temp) for p in model.rc]
+        rows.append(np.repeat(temp[:, None], soc_grid.size, axis=1))   # the temperature axis (row_temp)
         packed = np.ascontiguousarray(np.stack(rows), dtype=np.float64)
         packed.setflags(write=False)
         hy = model.hysteresis
@@ -113,6 +117,16 @@ class KernelTables:
         return self.packed[ROW_RC + self.n_rc:ROW_RC + 2 * self.n_rc]
 
     @property
+    def row_temp(self) -> int:
+        """Index of the packed row that carries the temperature axis (``4 + 2 n_rc``)."""
+        return ROW_RC + 2 * self.n_rc
+
+    @property
+    def tables(self):
+        """The table rows without the temperature-axis row, (4 + 2 n_rc, n_t, n_s) (the C export's)."""
+        return self.packed[:self.row_temp]
+
+    @property
     def n_soc(self) -> int:
         return int(self.soc_grid.size)
 
@@ -122,11 +136,18 @@ class KernelTables:
 
     @property
     def t_min(self) -> float:
+        """The lowest temperature row, degC."""
         return float(self.temp_grid[0])
 
     @property
+    def t_max(self) -> float:
+        """The highest temperature row, degC."""
+        return float(self.temp_grid[-1])
+
+    @property
     def t_step(self) -> float:
-        return float(self.temp_grid[1] - self.temp_grid[0]) if self.temp_grid.size > 1 else 1.0
+        """Mean spacing of the temperature rows, degC (informational: the look-up searches the axis)."""
+        return (self.t_max - self.t_min) / (self.temp_grid.size - 1) if self.temp_grid.size > 1 else 1.0
 
     def lookup(self, row: int, soc, temperature_c=None):
         """Python-side bilinear look-up of one packed row (the kernel's rule; for tests/plots)."""

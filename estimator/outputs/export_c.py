@@ -226,7 +226,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
     s = default_settings(model) if settings is None else settings
     su = _layout(model, s)
     tab = su.tables
-    packed = tab.packed
+    packed = tab.tables   # the table rows; the temperature axis goes out as its own array
     n_s = int(packed.shape[2])
     subs = dict(
         generator=GENERATOR, model_comment=safe_text(model.name or "unnamed cell model"),
@@ -241,7 +241,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         resistance_error_corr_s=c_float(s.resistance_error_corr_s), n_t=int(packed.shape[1]), n_s=n_s,
         n_bisect=int(math.ceil(math.log2(max(n_s - 1, 2)))) + 1,
         capacity_as=c_float(tab.capacity_as), eta_charge=c_float(tab.eta_charge), hyst_gamma=c_float(tab.hyst_gamma),
-        hyst_max_v=c_float(tab.hyst_max_v), t_min=c_float(tab.t_min), t_step=c_float(tab.t_step),
+        hyst_max_v=c_float(tab.hyst_max_v), temp_axis=", ".join(c_float(t) for t in tab.temp_grid),
         voltage_noise_v=c_float(s.voltage_noise_v), current_noise_a=c_float(s.current_noise_a),
         q_soc_per_s=c_float(s.q_soc_per_s), q_rc_v2_per_s=c_float(s.q_rc_v2_per_s),
         q_bias_a2_per_s=c_float(s.q_bias_a2_per_s), q_hyst_per_s=c_float(s.q_hyst_per_s),
@@ -570,8 +570,8 @@ def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, note
         "|---|---|",
         f"| state RAM (`sizeof(sfx_state)`) | {fp.state_bytes} bytes "
         f"({'measured by the harness' if fp.state_bytes_measured else 'computed for LP64'}) |",
-        f"| const tables | {fp.table_bytes} bytes ({su.tables.packed.shape[0]} rows x {su.tables.packed.shape[1]} "
-        f"temperatures x {su.tables.packed.shape[2]} SOC points, float) |",
+        f"| const tables | {fp.table_bytes} bytes ({su.tables.tables.shape[0]} rows x {su.tables.tables.shape[1]} "
+        f"temperatures x {su.tables.tables.shape[2]} SOC points, float, and the temperature axis) |",
         f"| floating-point operations per step | about {fp.flops_per_step} (+ - * /, worst case, counted by hand from the source) "
         f"+ {fp.transcendentals_per_step} expf/sqrtf |",
         "| worst-case stack | " + (f"{fp.stack_bytes} bytes (sum of the gcc -fstack-usage frames of the library)"
@@ -662,7 +662,7 @@ def export_c(model, settings: FilterSettings | None, out_dir, golden=None, *, fo
     gpath = write_text_replacing(out / "golden.csv", _golden_csv(frame))
     written.append(gpath)
     flops, transc = flops_per_step(su.n_rc, su.i_b >= 0, su.i_h >= 0)
-    table_bytes = int(su.tables.packed.size * 4)
+    table_bytes = int((su.tables.tables.size + su.tables.temp_grid.size) * 4)
     meas = None
     if measure and find_c_compiler() is not None:
         meas = measure_footprint(out, gpath)
