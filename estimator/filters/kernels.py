@@ -319,6 +319,12 @@ def _temp_index(tab, t_c, t_min, t_step):
     loop calls this only when the temperature changes).  At a breakpoint the weight is exactly 0,
     so that row is used as identified.  ``t_min`` and ``t_step`` are not used (kept for callers).
     """
+    return _temp_search(tab, t_c, 0)
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _temp_search(tab, t_c, i):
+    """:func:`_temp_index`, the search starting at row ``i`` (0..n_t-2; the previous sample's row)."""
     n_t = tab.shape[1]
     if n_t == 1:
         return 0, 0, 0.0
@@ -329,7 +335,8 @@ def _temp_index(tab, t_c, t_min, t_step):
         return 0, 1, 0.0
     if t_c >= tab[ax, n_t - 1, 0]:
         return n_t - 2, n_t - 1, 1.0
-    i = 0
+    while i > 0 and tab[ax, i, 0] > t_c:
+        i -= 1
     while i < n_t - 2 and tab[ax, i + 1, 0] <= t_c:
         i += 1
     t0 = tab[ax, i, 0]
@@ -799,6 +806,14 @@ def ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     bits on entry; ``ST_GATED``, ``ST_RESET`` and ``ST_FALLBACK`` are added.  Compiled once per state
     layout (:func:`specialised`).
 
+    Parameters
+    ----------
+    time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prm, x0, p0 : as :func:`ekf_run`
+    base_soc, base_sig : ndarray (N,)   the baseline's SOC and sigma (fractions; fallback and reset)
+    x_out, sig_out, vpred_out, innov_out, s_out : as :func:`ekf_run`
+    status_out : int64 (N,)   status bits (input-check bits on entry)
+    healthy_out : int64 (N,)   1 where the filter's own output is used
+
     Returns
     -------
     int
@@ -829,8 +844,12 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     trip counts and the branches on absent states fold away.
     """
     nx = layout_size(n_rc, i_b, i_h, i_e)
-    x = x0.copy()
-    p = p0.copy()
+    x = np.empty(nx)   # shapes known at compile time (a constant nx): index arithmetic folds
+    p = np.empty((nx, nx))
+    for i in range(nx):
+        x[i] = x0[i]
+        for j in range(nx):
+            p[i, j] = p0[i, j]
     xn = np.zeros(nx)
     d = np.zeros(nx)
     g = np.zeros(nx)
@@ -870,8 +889,6 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     no_h_noise = i_h >= 0 and not est_h
     gh = 0.0
     gated = 0
-    t_min = prm[P_TMIN]
-    t_step = prm[P_TSTEP]
     pt0, pt1, pwt = 0, 0, 0.0
     t_last = np.nan
     for k in range(lo, hi):
@@ -879,7 +896,7 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         if tk == t_last:
             it0, it1, wt = pt0, pt1, pwt
         else:
-            it0, it1, wt = _temp_index(tab, tk, t_min, t_step)
+            it0, it1, wt = _temp_search(tab, tk, pt0)
         if k > lo:
             dt = time_s[k] - time_s[k - 1]
             u = 0.5 * (current_a[k - 1] + current_a[k])
@@ -1106,6 +1123,16 @@ def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b,
     Recordings are concatenated; recording ``r`` occupies rows ``offsets[r]:offsets[r+1]``.
     ``cap_scale[r]`` multiplies the capacity, ``x0s[r]``/``p0s[r]`` are the priors.  Compiled once
     per state layout (:func:`specialised`).
+
+    Parameters
+    ----------
+    offsets : int64 (R + 1,)   row range of each recording in the concatenated samples
+    time_s, current_a, voltage_v, temp_c : (sum N,)   samples as :func:`ekf_run`
+    tab, n_rc, i_b, i_h, est_h, prm : as :func:`ekf_run`
+    cap_scale : (R,)   capacity multiplier per recording
+    x0s, p0s : (R, n_x), (R, n_x, n_x)   priors
+    x_out, sig_out, vpred_out, innov_out, s_out : concatenated outputs as :func:`ekf_run`
+    gated_out : int64 (R,)   gated samples per recording
 
     Returns
     -------
