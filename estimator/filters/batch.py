@@ -42,9 +42,9 @@ from numba import njit, prange
 from socfuse.estimator.filters.ekf import batch_inputs, initial_soc, prior, recording_arrays, setup
 from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_RERR, P_SE,
                                                P_SMAX, P_SMIN, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
-                                               _measure, _qdiag, _temp_index, _transition, error_index,
-                                               gap_variance, gate_rejects, resistance_factor, soc_from_voltage,
-                                               white_factor)
+                                               _measure, _qdiag, _temp_index, _transition, gap_variance,
+                                               gate_rejects, layout, resistance_factor, soc_from_voltage,
+                                               specialised, white_factor)
 from socfuse.estimator.filters.settings import FilterSettings
 
 __all__ = ["BLOCK", "CellsResult", "ekf_cells_run", "run_ekf_cells", "KEEP_FINAL", "KEEP_SOC", "KEEP_ALL"]
@@ -100,7 +100,7 @@ def _copy(out, a, n):
 
 
 @njit(cache=True, error_model="numpy")
-def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prms,
+def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms,
            x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out):
     """Cells ``c0..c1-1`` over all their samples; see :func:`ekf_cells_run`."""
     nb = c1 - c0
@@ -158,7 +158,6 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
     base = np.empty(nb, dtype=np.int64)
     lens = np.empty(nb, dtype=np.int64)
     q = np.zeros(nx)
-    i_e = error_index(nx, prm)
     _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
@@ -416,7 +415,7 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prms, x0s,
+def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms, x0s,
                   p0s, keep, block, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out):
     """The EKF over ``C`` cells, blocks of ``block`` cells in parallel (numba ``prange``).
 
@@ -425,7 +424,9 @@ def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_r
     offs : int64 (R + 1,)   recording ``r`` occupies rows ``offs[r]:offs[r+1]`` of the sample arrays
     cell_rec : int64 (C,)   recording of each cell
     time_s, current_a, voltage_v, temp_c : (sum N_r,)   samples (s, A + = discharge, V (NaN missing), degC)
-    tab, n_rc, i_b, i_h, est_h : as :func:`estimator.filters.kernels.ekf_run`
+    tab, n_rc, i_b, i_h, est_h : as :func:`estimator.filters.kernels.ekf_run`; ``i_e`` the model-error
+        state's index or -1 (the layout, from :func:`estimator.filters.kernels.layout`; compile-time
+        constants when called through :func:`estimator.filters.kernels.specialised`)
     prms : (C, N_PRM)   parameter vector per cell (they differ only in the capacity ``P_CAP``)
     x0s, p0s : (C, n_x), (C, n_x, n_x)   priors
     keep : int   :data:`KEEP_FINAL`, :data:`KEEP_SOC` or :data:`KEEP_ALL`
@@ -439,7 +440,7 @@ def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_r
     for b in prange(nblk):
         c0 = b * block
         c1 = min(nc, c0 + block)
-        _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, prms,
+        _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms,
                x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out)
 
 
@@ -572,8 +573,10 @@ def run_ekf_cells(model, recs, settings: FilterSettings | None = None, soc0s=Non
     gated = np.zeros(m, dtype=np.int64)
     if m and n_max:
         cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[recording_arrays(r) for r in order])]
-        ekf_cells_run(offs, cell_rec, *cat, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, prms, x0s, p0s,
-                      kp, int(block), soc, sig, *allo, x_out, x_fin, p_fin, gated)
+        lay = layout(nx, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm)
+        args = (offs, cell_rec, *cat, su.tables.packed, *lay, prms, x0s, p0s, kp, int(block), soc, sig, *allo, x_out,
+                x_fin, p_fin, gated)
+        specialised(ekf_cells_run, 7, args)(*args)   # compiled once per state layout
     full = kp == KEEP_ALL
     return CellsResult(lengths, soc if kp >= KEEP_SOC else None, sig if kp >= KEEP_SOC else None,
                        allo[0] if full else None, allo[1] if full else None, allo[2] if full else None,
