@@ -320,6 +320,12 @@ def ocv_temperature_rows(curve, results, ref: int, min_points: int = 3):
                  "summary": summary}
 
 
+def _pulse_socs(res) -> tuple:
+    """(lowest, highest) SOC of the pulses of one pulse test (None, None without pulses)."""
+    z = [float(pf.soc) for pf in res.pulses if pf.pulse.kind == "pulse" and np.isfinite(pf.soc)]
+    return (min(z), max(z)) if z else (None, None)
+
+
 def _build(capacity, eta, ocv, r0, rc, v_min, v_max, name, provenance, hysteresis=None) -> CellModel:
     return CellModel(capacity_ah=capacity, ocv=ocv, r0_ohm=r0, rc=rc, coulombic_efficiency=eta,
                      v_min_v=v_min, v_max_v=v_max, name=name, provenance=provenance, hysteresis=hysteresis)
@@ -547,6 +553,11 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
                            "pooled_a": offsets["pooled_a"], "pooled_sigma_a": offsets["pooled_sigma_a"],
                            "pooled_files": offsets["pooled_files"], "given": offsets["given"],
                            "note": "subtracted from the measured current before counting charge"},
+        "pulse_soc_range": {"test": "lowest and highest SOC of the pulses of each pulse test (models.validity: "
+                                    "below the lowest the tables at that temperature are extrapolated)",
+                            "file": pulse_files, "temperatures_c": [r.temperature_c for r in results],
+                            "soc_min": [_pulse_socs(r)[0] for r in results],
+                            "soc_max": [_pulse_socs(r)[1] for r in results]},
         "r0_ohm": {"file": pulse_files, "test": "pulse test, edge step (last sample before / first after each "
                                                 "edge), corrected for the RC charge in that interval",
                    "temperatures_c": [r.temperature_c for r in results],
