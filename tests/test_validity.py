@@ -46,8 +46,8 @@ def test_voltage_below_the_floor_is_outside_only_where_the_floor_is_higher():
 
 def test_settings_temperature_axis_scales_the_model_error_with_r0():
     m = tiny_model(temperature=True)  # R0 at 50 %: 35 mOhm at 5 degC, 17.5 mOhm at 25 degC
-    s = default_settings(m)
-    assert s.model_error_r0_exponent == 1.0
+    s = default_settings(m).with_(model_error_r0_exponent=1.0)
+    assert default_settings(m).model_error_r0_exponent == 0.0  # off by default (see default_settings)
     cold = at_temperature(s, m, 5.0)
     assert cold.model_error_v == pytest.approx(2.0 * s.model_error_v)
     assert at_temperature(s, m, 25.0) is s and at_temperature(s, m, None) is s
