@@ -24,7 +24,7 @@ def _filterpy_run(m, su, rec, x0, p0):
     and b = R (1 - a) exactly); Hx and HJacobian are the model's measurement through
     ``EkfSetup.measure`` (the same tabulated OCV curve).  The model-error state, when on, is a
     first-order Gauss-Markov process (F = exp(-dt/tau), Q = sigma^2 (1 - F^2)); the capacity
-    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R i_k)^2``; both white
+    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R max(|i_k|, |i_k-1|))^2``; both white
     sensor variances are multiplied by ``max(1, noise_corr_s / dt)``.
     """
     s = su.settings
@@ -70,7 +70,7 @@ def _filterpy_run(m, su, rec, x0, p0):
             kf.update(np.array([[v[k]]]), HJacobian=lambda x: su.measure(x[:, 0], ik, tk)[1].reshape(1, -1),
                       Hx=lambda x: np.array([[su.measure(x[:, 0], ik, tk)[0]]]),
                       R=np.array([[s.voltage_noise_v ** 2 * (max(1.0, s.noise_corr_s / (t[k] - t[k - 1])) if k else 1.0)
-                                   + (s.resistance_error_ohm * ik) ** 2
+                                   + (s.resistance_error_ohm * (max(abs(ik), abs(i[k - 1])) if k else ik)) ** 2
                                    * (max(1.0, s.resistance_error_corr_s / (t[k] - t[k - 1])) if k else 1.0)]]))
         xs.append(kf.x[:, 0].copy())
         ps.append(kf.P.copy())

@@ -54,12 +54,14 @@ def _by(rows):
     return out
 
 
-# The LFP target is not met yet (measured 2026-12-02 on the short drives: EKF 3.53 % RMSE with 16.5 %
-# coverage on drive_2, 2.39 % on drive_3, against 4.69 / 9.10 % for the baseline): the flat OCV gives the
-# voltage little grip and the filter's sigma does not yet cover a 6 mV OCV-table error on the plateau.
+# The LFP RMSE target is not met yet (measured 2026-12-02 on the short drives, model-error correlation time
+# 300 s, edge-current resistance term, tune refused with 7 of 7 settings at a physical bound: EKF 3.99 %
+# RMSE with 100 % coverage on drive_2, 2.44 % with 100 % on drive_3, against 4.68 / 9.10 % for the
+# baseline): the start is read from a voltage on the flat OCV, and a persistent 9-11 mV model error (the equivalent circuit against the SPMe)
+# keeps the voltage from correcting it; the filter now says so with its sigma instead of chasing it.
 # Kept as the target (not weakened); test_lfp_ekf_beats_the_baseline below guards what is achieved.
-LFP_TARGET_NOT_MET = pytest.mark.xfail(strict=False, reason="issue 11 LFP target not met yet: drive_2 3.5 % RMSE, "
-                                                           "coverage 16 % on the short drives")
+LFP_TARGET_NOT_MET = pytest.mark.xfail(strict=False, reason="issue 11 LFP target not met yet: drive_2 4.0 % RMSE "
+                                                           "on the short drives")
 
 
 @pytest.mark.parametrize("cell, limit", [("nmc", 1.0), pytest.param("lfp", 2.0, marks=LFP_TARGET_NOT_MET)])
@@ -79,9 +81,11 @@ def test_ekf_on_physics_cells(physics_rows, cell, limit, capsys):
 
 def test_lfp_ekf_beats_the_baseline(physics_rows):
     # what is achieved on the flat-OCV cell (Prada et al. 2013 parameter set): the EKF is better than
-    # plain coulomb counting with the BMS-grade sensor offset and gain, and within 4 points
+    # plain coulomb counting with the BMS-grade sensor offset and gain, within 4 points, and its sigma
+    # covers its true error (issue 11: coverage >= 90 % in the tests; measured 100 / 100 %)
     rows = _by(physics_rows["lfp"])
     for rec in ("drive_2", "drive_3"):
         ekf, base = rows[(rec, "ekf")], rows[(rec, "coulomb")]
         assert ekf["rmse_pct"] <= base["rmse_pct"], (rec, ekf["rmse_pct"], base["rmse_pct"])
         assert ekf["rmse_pct"] <= 4.0, (rec, ekf["rmse_pct"])
+        assert ekf["coverage_pct"] >= 90.0, (rec, ekf["coverage_pct"])

@@ -177,7 +177,8 @@ def test_adaptive_model_error_widens_the_sigma():
     for k in range(1, t.size):
         e[k] = a * e[k - 1] + 0.05 * np.sqrt(1 - a * a) * rng.standard_normal()
     rec = Recording(t, i, sim.voltage_v + e + rng.normal(0, 0.0015, t.size), None, sim.soc)
-    s = default_settings(m).with_(model_error_v=0.01)
+    # assumed error 10 mV over 60 s (fast against the true 300 s): the case the adaptive term is for
+    s = default_settings(m).with_(model_error_v=0.01, model_error_tau_s=60.0)
     fixed = run_ekf(m, rec, s, soc0=0.9)
     adapt = run_ekf(m, rec, s.with_(model_error_adapt_s=600.0), soc0=0.9)
     cov = lambda tr: np.mean(np.abs(tr.soc_error) <= 3 * tr.soc_sigma)  # noqa: E731

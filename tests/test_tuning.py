@@ -169,9 +169,15 @@ def test_settings_stay_inside_physical_bounds(data):
 
     model, recs, start = data
     bounds = physical_bounds(model)
-    # current noise between 0.05 % and 5 % of 1C (4.8 A), voltage noise 0.2 .. 50 mV (module docstring)
+    # current noise between 0.05 % and 5 % of 1C (4.8 A), voltage noise 1 .. 50 mV (a BMS front end has
+    # 1-2 mV of noise and a 1 mV step: common practice, no source; physical_bounds docstring)
     assert bounds["current_noise_a"] == pytest.approx((4.8 / 2000, 4.8 / 20))
-    assert bounds["voltage_noise_v"] == pytest.approx((2e-4, 0.05))
+    assert bounds["voltage_noise_v"] == pytest.approx((1e-3, 0.05))
+    # the model-error state is never tuned more optimistic than the model-derived default: the innovations
+    # of a drive cannot tell a persistent voltage error from a SOC error (physical_bounds docstring)
+    d = default_settings(model)
+    assert bounds["model_error_v"][0] == pytest.approx(d.model_error_v)
+    assert bounds["model_error_tau_s"] == pytest.approx((300.0, 3600.0))
     res = tune(model, recs, start.with_(voltage_noise_v=0.05), params=("voltage_noise_v", "current_noise_a",
                                                                        "q_soc_per_s"),
                soc0s=[0.95, 0.95], max_evaluations=40)
