@@ -86,7 +86,7 @@ from numba.core import types as _nb_types
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor", "layout", "layout_size", "specialised",
@@ -160,6 +160,31 @@ def resistance_factor(prm, dt):
     if dt > 0.0 and c > dt:
         return c / dt
     return 1.0
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def measurement_variance(vn2, re2, wf, wr, i_k, i_prev):
+    """Variance of one voltage measurement, V^2 (the one rule of the EKF kernels).
+
+    Parameters
+    ----------
+    vn2, re2 : float
+        Voltage-noise variance (V^2) and resistance-error variance (ohm^2).
+    wf, wr : float
+        Band-limit factors of the sensor and the resistance error for this interval
+        (:func:`white_factor`, :func:`resistance_factor`; 1 at the first sample).
+    i_k, i_prev : float
+        This and the previous current sample, A.  The resistance error acts on the larger of the
+        two: at a current edge the voltage and current channels are not sampled at the same
+        instant (common practice, no source).
+
+    Returns
+    -------
+    float
+        ``vn2 wf + re2 i^2 wr`` with ``i`` the larger current in magnitude.
+    """
+    ik = i_prev if abs(i_prev) > abs(i_k) else i_k
+    return vn2 * wf + re2 * ik * ik * wr
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -1007,15 +1032,10 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
         y = _measure(tab, n_rc, i_b, i_h, i_e, prm, x, current_a[k], it0, it1, wt, hrow)
         pt0, pt1, pwt = it0, it1, wt
         t_last = tk
-        ik = current_a[k]
         if k > lo:
-            # resistance error at a current edge: the larger of this and the previous current sample
-            # (the voltage and current channels are not sampled at the same instant)
-            if abs(current_a[k - 1]) > abs(ik):
-                ik = current_a[k - 1]
-            r_meas = vn2 * wf + re2 * ik * ik * wr
+            r_meas = measurement_variance(vn2, re2, wf, wr, current_a[k], current_a[k - 1])
         else:
-            r_meas = vn2 + re2 * ik * ik
+            r_meas = measurement_variance(vn2, re2, 1.0, 1.0, current_a[k], current_a[k])
         sv = r_meas
         for i in range(nx):
             acc = 0.0
