@@ -242,6 +242,14 @@ def test_cli_energy_table(tmp_path, capsys):
     row50 = next(line for line in out.splitlines() if line.split()[:1] == ["50"])
     assert float(row50.split()[1]) == pytest.approx(100 * float(soc_c_to_e(nmc_model(), 0.5)), abs=0.006)
     assert "runtime" in out and "cut-off at SOC_C" in out and "14s4p" in out
+    # usable capacity (issue 13, item 2): the charge to the cut-off at this load, (1 - z_cut) Q M Ah from full
+    # (definition of the usable capacity at a load: remaining charge above the cut-off SOC, DESIGN.md section 2)
+    full = usable_energy(nmc_model(), current_a=9.6, pack="14s4p", n_steps=1000)
+    q_pack = 4 * nmc_model().capacity_ah
+    assert f"usable capacity at 9.6 A, 25.0 degC: {(1.0 - full.cutoff_soc) * q_pack:.3f} Ah from full" in out
+    row100 = next(line for line in out.splitlines() if line.split()[:1] == ["100"])
+    assert float(row100.split()[-1]) == pytest.approx(100.0)  # usable SOC of a full cell
+    assert float(row100.split()[-2]) == pytest.approx((1.0 - full.cutoff_soc) * q_pack, abs=1e-3)
     assert main(["energy", "--model", str(path), "--load-w", "300", "--peak-a", "40", "--pack", "14s4p"]) == 0
     out = capsys.readouterr().out
     expected = usable_energy(nmc_model(), power_w=300.0, peak_current_a=40.0, pack="14s4p", n_steps=1000)

@@ -77,13 +77,17 @@ def run(args) -> int:
           f"{model.capacity_ah * pack.n_parallel:.4g} Ah)")
     head = f"{'soc_c_pct':>10} {'soc_e_pct':>10} {'rest_wh':>10}"
     if has_load:
-        head += f" {'load_wh':>10} {'soc_e_load_pct':>15}"
+        head += f" {'load_wh':>10} {'soc_e_load_pct':>15} {'usable_ah':>10} {'usable_soc_pct':>15}"
+        # charge to the cut-off at this load and temperature (SOC stays on the model's low-rate scale)
+        q_pack = model.capacity_ah * pack.n_parallel
+        usable_ah = np.array([max(float(z) - r.cutoff_soc, 0.0) * q_pack for z, r in zip(soc, at_load)])
     print(head)
     for k in range(soc.size):
         line = f"{100 * soc[k]:10.0f} {100 * soc_e[k]:10.2f} {e_rest[k]:10.2f}"
         if has_load:
             frac = e_load[k] / e_load[-1] if e_load[-1] > 0 else float("nan")
-            line += f" {e_load[k]:10.2f} {100 * frac:15.2f}"
+            ufrac = usable_ah[k] / usable_ah[-1] if usable_ah[-1] > 0 else float("nan")
+            line += f" {e_load[k]:10.2f} {100 * frac:15.2f} {usable_ah[k]:10.3f} {100 * ufrac:15.2f}"
         print(line)
     print(f"rest energy (full to empty): {e_rest[-1]:.2f} Wh")
     if has_load:
@@ -97,7 +101,19 @@ def run(args) -> int:
                              f"{model.v_min_v:.3g} V per cell",
                   "empty": "SOC 0 reached before the voltage cut-off", "rest": "no load"}[full.cutoff_reason]
         print(f"cut-off at SOC_C {100 * full.cutoff_soc:.1f} % ({reason})")
+        print(f"usable capacity at {what}, {temp:.1f} degC: {usable_ah[-1]:.3f} Ah from full "
+              f"({100 * usable_ah[-1] / q_pack:.1f} % of the {q_pack:.4g} Ah low-rate capacity)")
         if math.isfinite(full.mean_voltage_v):
             print(f"mean terminal voltage {full.mean_voltage_v:.3f} V, mean current {full.mean_current_a:.3f} A")
+    rows = ((model.provenance or {}).get("usable_capacity") or {}).get("rows") or []
+    if rows:
+        # identify's table (steady-state estimate at the tested temperatures), the nearest temperature
+        t_near = min({float(r["temperature_c"]) for r in rows}, key=lambda x: abs(x - temp))
+        print(f"usable capacity from full at {t_near:.1f} degC (identify, steady load): " + ", ".join(
+            f"{r['c_rate']:g}C {r['usable_ah'] * pack.n_parallel:.3f} Ah" for r in rows
+            if float(r["temperature_c"]) == t_near))
+    for r in ((model.provenance or {}).get("usable_capacity") or {}).get("measured") or []:
+        print(f"usable capacity measured at {r['temperature_c']:.1f} degC (identify, pulse test to the cut-off, "
+              f"about {r['mean_current_a']:.2g} A at the end): {r['usable_ah'] * pack.n_parallel:.3f} Ah from full")
     print(SAFETY_NOTE, file=sys.stderr)
     return 0

@@ -659,13 +659,38 @@ def _recording_figure(summary, rec: str, scenarios: Sequence[str], methods: Sequ
     return fig
 
 
-def _energy_figure(model, trace=None):
-    from socfuse.estimator.filters.energy import soc_c_to_e
+def _usable_temperatures(model) -> np.ndarray:
+    """Temperature axis of the usable-capacity panel: the model's own range widened to 0..40 degC."""
+    pts = [0.0, 40.0]
+    for a in (model.ocv.temperature_c, model.r0_ohm.temperature_c):
+        if a is not None:
+            pts += [float(np.min(a)), float(np.max(a))]
+    return np.linspace(min(pts), max(pts), 21)
 
-    n = 2 if trace is not None else 1
-    fig = _figure((6.2 * n, 4.4))
-    fig.subplots_adjust(left=0.08, right=0.98, bottom=0.13, top=0.9, wspace=0.25)
+
+def _energy_figure(model, trace=None, rec=None):
+    from socfuse.estimator.filters.energy import soc_c_to_e
+    from socfuse.models.identify.usable import cutoff_soc, usable_soc
+
+    n = 3 if trace is not None else 2
+    fig = _figure((5.4 * n, 4.4))
+    fig.subplots_adjust(left=0.06, right=0.98, bottom=0.13, top=0.9, wspace=0.28)
     ax = np.atleast_1d(fig.subplots(1, n))
+    # usable capacity to the cut-off at temperature and load (steady-state Thevenin estimate,
+    # models.identify.usable; SOC stays on the low-rate scale)
+    temps = _usable_temperatures(model)
+    for c_rate, ls in ((0.5, "-"), (1.0, "--"), (2.0, ":")):
+        q = [(1.0 - cutoff_soc(model, float(t), c_rate * model.capacity_ah)) * model.capacity_ah for t in temps]
+        ax[-1].plot(temps, q, ls=ls, color=METHOD_COLOURS["ekf"], label=f"{c_rate:g}C steady")
+    ax[-1].axhline(model.capacity_ah, color="0.5", lw=0.8, label="low-rate capacity")
+    meas = ((model.provenance or {}).get("usable_capacity") or {}).get("measured") or []
+    if meas:
+        ax[-1].plot([r["temperature_c"] for r in meas], [r["usable_ah"] for r in meas], "o",
+                    color=METHOD_COLOURS["reference"], label="measured (pulse tests, to cut-off)")
+    ax[-1].set(xlabel="cell temperature (degC)", ylabel="usable charge from full (Ah)",
+               title=f"usable capacity to {model.v_min_v:.3g} V")
+    ax[-1].grid(True, alpha=0.3)
+    ax[-1].legend(fontsize=8)
     z = np.linspace(0, 1, 201)
     for t_c, ls in ((25.0, "-"), (5.0, "--")):
         ze = soc_c_to_e(model, z, t_c)
@@ -684,6 +709,12 @@ def _energy_figure(model, trace=None):
         if trace.soc_ref is not None:
             ax[1].plot(th, 100 * np.asarray(trace.soc_ref)[s], color=METHOD_COLOURS["reference"], lw=0.9,
                        label="SOC_C reference")
+        if rec is not None and getattr(rec, "temperature_c", None) is not None and rec.n == trace.time_s.size:
+            i = np.asarray(rec.current_a, dtype=float)
+            load = float(np.mean(i[i > 0])) if np.any(i > 0) else 0.0
+            u = usable_soc(model, np.asarray(trace.soc)[s], np.asarray(rec.temperature_c, dtype=float)[s], load)
+            ax[1].plot(th, 100 * u, color="0.35", ls="-.", lw=0.9,
+                       label=f"usable SOC at the cell temperature, {load:.2g} A")
         ax[1].set(xlabel="time (h)", ylabel="SOC (%)", title=f"SOC_C and SOC_E side by side: {trace.name}")
         ax[1].grid(True, alpha=0.3)
         ax[1].legend(fontsize=8)
@@ -893,7 +924,7 @@ def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse 
                     tr = bench.traces[(main, sc, "ekf")]
                     break
         try:
-            fig = _energy_figure(model, tr)
+            fig = _energy_figure(model, tr, recordings.get(main) if isinstance(recordings, Mapping) else None)
         except (ImportError, ValueError) as e:
             body.append(f"<p class='note'>SOC_E figure skipped: {html.escape(str(e))}</p>")
         else:
@@ -901,8 +932,15 @@ def write_report(out_dir, bench, model, *, settings=None, title: str = "socfuse 
                         "<p>SOC_C counts charge, SOC_E counts the energy left at rest "
                         "(E(z) = Q times the integral of OCV from 0 to z). On an NMC curve SOC_E is lower mid-range "
                         "for the same charge: the upper half of the charge is delivered at a higher voltage. "
-                        "SOC_E inherits the error of the SOC_C estimate it is computed from.</p>")
-            add_figure("soc_c_vs_soc_e", fig, "SOC_E against SOC_C (left) and both over a day (right)")
+                        "SOC_E inherits the error of the SOC_C estimate it is computed from. SOC stays on the "
+                        "scale of the low-rate test (the lab convention); in the cold less of that charge is "
+                        "usable before the cut-off voltage, so the figure also shows the usable capacity over "
+                        "temperature and, where the recording has a temperature, the \"usable SOC\": the share of "
+                        "the charge usable from full that is left at the cell's present temperature and the "
+                        "recording's mean discharge current (steady-state estimate, an upper bound in the "
+                        "cold).</p>")
+            add_figure("soc_c_vs_soc_e", fig, "SOC_E against SOC_C (left), SOC_C, SOC_E and usable SOC over a day "
+                       "(middle), usable capacity over temperature (right)")
     body.append('<h2 id="setup">Model and filter settings</h2>')
     body.append(_model_summary(model))
     body.append(_settings_table(settings))

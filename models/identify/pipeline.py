@@ -17,7 +17,7 @@ from socfuse.models.recording import Recording
 from socfuse.models.thevenin import CellModel
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.identify.currentdep import current_dependence
-from socfuse.models.identify.usable import usable_capacity_table
+from socfuse.models.identify.usable import measured_usable, usable_capacity_table
 from socfuse.models.identify.curves import MIN_STEP_V, isotonic_increasing
 from socfuse.models.identify.hysteresis import fit_low_rate_hysteresis, judge_hysteresis
 from socfuse.models.identify.ocvsource import OCV_SOURCES, ocv_candidates
@@ -162,6 +162,10 @@ class IdentifyResult:
             parts = [f"{r['c_rate']:g}C {r['usable_ah']:.3f} Ah" for r in rows if r["temperature_c"] == tc]
             lines.append(f"usable capacity from full at {tc:.1f} degC (to {m.v_min_v:.2f} V, steady load): "
                          + ", ".join(parts))
+        for r in (prov.get("usable_capacity") or {}).get("measured", []):
+            lines.append(f"usable capacity measured at {r['temperature_c']:.1f} degC: {r['usable_ah']:.3f} Ah from "
+                         f"full to {m.v_min_v:.2f} V ({100 * r['usable_fraction']:.1f} %; mean "
+                         f"{r['mean_current_a']:.2f} A over the last minute; pulse test {r['file']})")
         hp = prov.get("hysteresis") or {}
         if hp:
             lines.append(f"hysteresis: {hp.get('reason', '')}")
@@ -318,6 +322,12 @@ def ocv_temperature_rows(curve, results, ref: int, min_points: int = 3):
                  "reference_c": float(results[ref].temperature_c),
                  "test": "low-rate shape + (rest-point offset at T - rest-point offset at the reference)",
                  "summary": summary}
+
+
+def _pulse_socs(res) -> tuple:
+    """(lowest, highest) SOC of the pulses of one pulse test (None, None without pulses)."""
+    z = [float(pf.soc) for pf in res.pulses if pf.pulse.kind == "pulse" and np.isfinite(pf.soc)]
+    return (min(z), max(z)) if z else (None, None)
 
 
 def _build(capacity, eta, ocv, r0, rc, v_min, v_max, name, provenance, hysteresis=None) -> CellModel:
@@ -547,6 +557,11 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
                            "pooled_a": offsets["pooled_a"], "pooled_sigma_a": offsets["pooled_sigma_a"],
                            "pooled_files": offsets["pooled_files"], "given": offsets["given"],
                            "note": "subtracted from the measured current before counting charge"},
+        "pulse_soc_range": {"test": "lowest and highest SOC of the pulses of each pulse test (models.validity: "
+                                    "below the lowest the tables at that temperature are extrapolated)",
+                            "file": pulse_files, "temperatures_c": [r.temperature_c for r in results],
+                            "soc_min": [_pulse_socs(r)[0] for r in results],
+                            "soc_max": [_pulse_socs(r)[1] for r in results]},
         "r0_ohm": {"file": pulse_files, "test": "pulse test, edge step (last sample before / first after each "
                                                 "edge), corrected for the RC charge in that interval",
                    "temperatures_c": [r.temperature_c for r in results],
@@ -594,9 +609,21 @@ def identify(ocv_test: Recording, pulse_tests, rc_pairs: int | None = None, ocv_
     # ---- usable capacity at each test temperature and load (steady-state Thevenin estimate)
     temps_tested = sorted({round(r.temperature_c, 1) for r in results})
     prov = dict(model.provenance)
+    measured = []
+    for k, (rec, res) in enumerate(zip(pulse_tests, results)):
+        mu = measured_usable(rec.time_s, rec.current_a, rec.voltage_v, v_min, offsets["used_a"][k + 1],
+                             soc=res.soc if res.soc is not None and len(res.soc) == rec.n else None,
+                             capacity_ah=o.capacity_ah)
+        if mu is not None and pulse_soc0 == 1.0:
+            measured.append({"file": pulse_files[k], "temperature_c": float(res.temperature_c), **mu,
+                             "usable_fraction": mu["usable_ah"] / o.capacity_ah})
     prov["usable_capacity"] = {"method": "models.identify.usable: SOC where OCV(z,T) - I (R0 + sum R_j) meets "
                                          "v_min; from full, on the low-rate SOC scale",
-                               "rows": usable_capacity_table(model, temps_tested)}
+                               "rows": usable_capacity_table(model, temps_tested),
+                               "measured": measured,
+                               "measured_method": "charge each pulse test delivered from its (full) start to its "
+                                                  "last touch of v_min under discharge "
+                                                  "(models.identify.usable.measured_usable)"}
     model = model.with_(provenance=prov)
     return IdentifyResult(model, o, tuple(results), n_rc, n_rc_reason, chosen, reason, cands, scores,
                           tuple(pulse_power_table(results, v_min, v_max)), ref_result, vals, tuple(notes), info)
