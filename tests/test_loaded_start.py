@@ -63,6 +63,41 @@ def test_full_cell_under_load_starts_full_with_a_small_sigma():
     assert sig < 0.03
 
 
+def _cold_like_model():
+    """tiny_model with the series resistance of a cold cell (R0 80 mOhm) and small RC pairs."""
+    from dataclasses import replace
+
+    from socfuse.models import ParamTable, RcPair
+
+    m = tiny_model(n_rc=2)
+    pairs = (RcPair(ParamTable.constant(0.010, "r1_ohm"), ParamTable.constant(30.0, "tau1_s")),
+             RcPair(ParamTable.constant(0.005, "r2_ohm"), ParamTable.constant(400.0, "tau2_s")))
+    return replace(m, r0_ohm=ParamTable.constant(0.08, "r0_ohm"), rc=pairs)
+
+
+def test_wrong_handover_under_load_is_caught_by_the_loaded_read():
+    # a hand-over 30 points off, first sample under a 7.5 A load after a long hold: the loaded
+    # read (R0 i known up to the resistance error, RC voltages in [0, sum R_j i]) disagrees beyond
+    # the combined spread, so the start sigma is widened and the start moves towards the read
+    # (covariance matching, Mehra 1972, from memory); a hand-over that agrees is left as given;
+    # the baseline keeps counting from the given SOC (it is not a filter)
+    from socfuse.estimator.filters.run import prepare
+
+    m = _cold_like_model()
+    rec = _loaded(m, 0.55, 4000.0, current_a=7.5)
+    truth = float(rec.soc_ref[0])
+    _, s, z, _ = prepare(m, rec, None, truth + 0.30)
+    assert s.p0_soc > 0.2 and abs(z - truth) < 0.25
+    _, s_ok, z_ok, _ = prepare(m, rec, None, truth)
+    assert z_ok == truth and s_ok.p0_soc == pytest.approx(0.02)
+    _, s_base, z_base, _ = prepare(m, rec, None, truth + 0.30, check_handover=False)
+    assert z_base == truth + 0.30 and s_base.p0_soc == pytest.approx(0.02)
+    ekf = estimate(m, rec, "ekf", soc0=truth + 0.30)
+    assert np.all(np.abs(ekf.soc - rec.soc_ref) <= 3.0 * ekf.soc_sigma)
+    base = estimate(m, rec, "coulomb", soc0=truth + 0.30)
+    assert base.soc[0] == pytest.approx(truth + 0.30, abs=1e-2)
+
+
 # ---------------------------------------------------------------------------- real data, 0 degC
 @pytest.fixture(scope="module")
 def cold_model(realdata):
@@ -115,3 +150,34 @@ def test_cold_drive_cycle_below_the_identified_range_counts_charge(realdata, col
     assert np.any(tr.status[tail] & ST_ENVELOPE)
     assert np.max(np.abs(err[tail])) < 0.03
     assert np.sqrt(np.mean(err ** 2)) < 0.025
+
+
+def test_cold_wrong_handover_under_load_recovers_faster(realdata, cold_model):
+    # the benchmark's wrong start (benchmarks/generalisation.py): the 0 degC US06 cut at the first
+    # sample under load (|I| >= C/5) after 40 % of its duration, handed over 30 points low.  Checked
+    # against the loaded read the hand-over's sigma is widened at once; with the filters' own read
+    # (R0-corrected, half the RC steady state as sigma) the 0.02 prior stands and the filter needs
+    # most of the drive to walk back (measured 2026-12-02: RMSE from 600 s after the hand-over
+    # 8.9 -> 5.3 points with the 25/10/0 degC model of the benchmark)
+    from socfuse.estimator.filters.ekf import run_ekf
+    from socfuse.estimator.filters.run import prepare
+    from socfuse.models.loaders import load_recording
+
+    f = sorted((realdata / "cold" / "0degC" / "drive_cycles").glob("*US06*.mat"))[0]
+    rec = load_recording(f, preset="panasonic-18650pf", ref_soc0=1.0, ref_capacity_ah=cold_model.capacity_ah)
+    t = rec.time_s - rec.time_s[0]
+    k = int(np.flatnonzero((t >= 0.4 * t[-1]) & (np.abs(rec.current_a) >= cold_model.capacity_ah / 5))[0])
+    cut = rec.slice(k, rec.n)
+    wrong = float(cut.soc_ref[0]) - 0.30
+    late = cut.time_s >= cut.time_s[0] + 600.0
+
+    def rmse(tr):
+        return 100 * float(np.sqrt(np.mean((tr.soc[late] - cut.soc_ref[late]) ** 2)))
+
+    new = estimate(cold_model, cut, "ekf", soc0=wrong)
+    r, s_old, z_old, _ = prepare(cold_model, cut, None, wrong, check_handover=False)
+    old = run_ekf(cold_model, r, s_old, z_old, monitor=True)
+    print(f"0 degC US06 wrong hand-over: RMSE after 600 s {rmse(old):.2f} -> {rmse(new):.2f} points, "
+          f"start sigma {old.soc_sigma[0]:.3f} -> {new.soc_sigma[0]:.3f}")
+    assert abs(new.soc[0] - cut.soc_ref[0]) <= 3.0 * new.soc_sigma[0]
+    assert rmse(new) < rmse(old) - 1.0
