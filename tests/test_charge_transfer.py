@@ -235,3 +235,34 @@ def test_identify_offers_the_term_but_leaves_it_out_by_default(capsys):
     with pytest.raises(SystemExit) as e:
         main(["identify", "--help"])
     assert e.value.code == 0 and "--current-dependence" in capsys.readouterr().out
+
+
+def test_c_export_matches_python_over_a_real_cold_cycle_with_the_term(tmp_path, realdata):
+    # model from the 25 degC C/20 test and the 25 and 0 degC 5-pulse HPPC tests with the term put in
+    # (two temperatures: the 0 degC cycle lies inside the model's tables); golden vectors = the whole
+    # 0 degC Cycle_2 at its native 10 Hz (Kollmeyer 2018): float32 C within 1e-4 SOC (measured 2.8e-5)
+    from socfuse.estimator.outputs.export_c import export_c, find_c_compiler
+    from socfuse.models.identify import identify
+    from socfuse.models.loaders import load_recording
+
+    if find_c_compiler() is None:
+        pytest.skip("no C compiler (cc, gcc or clang) on PATH")
+    preset = "panasonic-18650pf"
+    c20 = realdata / "c20_ocv_and_1c_start_of_tests" / "05-08-17_13.26 C20 OCV Test_C20_25dC.mat"
+    hppc25 = realdata / "hppc" / "03-11-17_08.47 25degC_5Pulse_HPPC_Pan18650PF.mat"
+    hppc = realdata / "cold" / "0degC" / "hppc" / "05-20-17_10.44 0degC_5pulse_HPPC_Pan18650PF.mat"
+    cyc = realdata / "cold" / "0degC" / "drive_cycles" / "05-30-17_20.16 0degC_Cycle_2_Pan18650PF.mat"
+    for p in (c20, hppc25, hppc, cyc):
+        if not p.is_file():
+            pytest.skip(f"{p.name} not in the real-data folder")
+    res = identify(load_recording(c20, preset=preset),
+                   [load_recording(hppc25, preset=preset), load_recording(hppc, preset=preset)],
+                   current_dependence_in_model=True)
+    model = res.model
+    ct = model.charge_transfer
+    assert ct is not None and res.model.provenance["current_dependence"]["used"]
+    assert ct.i0_a[0] < ct.i0_a[1]  # the exchange current rises with temperature (Arrhenius; common practice)
+    rec = load_recording(cyc, preset=preset)
+    out = export_c(model, None, tmp_path / "c", rec)
+    assert out.golden_rows == rec.n > 50_000
+    assert out.harness_exit == 0 and out.max_soc_diff < 1e-4, out.max_soc_diff
