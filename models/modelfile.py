@@ -13,6 +13,8 @@ Layout::
       "r0_ohm": {"soc": [...], "values": [...] or [[...]], "temperature_c": null or [...]},
       "rc_pairs": [{"r_ohm": {table}, "tau_s": {table}}, ...],
       "hysteresis": null or {"gamma": 50.0, "max_v": 0.01},
+      "current_dependence": absent/null or {"form": "butler-volmer-symmetric-excess",
+              "temperature_c": [...], "i0_a": [...], "i_ref_a": [...], "source": "..."},
       "provenance": {"ocv": {"file": ..., "test": ..., "residual_v": ...}, ...}
     }
 
@@ -31,7 +33,7 @@ import numpy as np
 from socfuse.models.fileio import JsonFileError, read_json, write_text_replacing
 from socfuse.models.ocv import OcvCurve
 from socfuse.models.tables import ParamTable
-from socfuse.models.thevenin import CellModel, Hysteresis, RcPair
+from socfuse.models.thevenin import CHARGE_TRANSFER_FORM, CellModel, ChargeTransfer, Hysteresis, RcPair
 
 __all__ = ["MODEL_SCHEMA", "ModelFileError", "model_to_dict", "model_from_dict", "save_model", "load_model"]
 
@@ -43,12 +45,13 @@ class ModelFileError(ValueError):
 
 
 _TOP = {"schema", "name", "capacity_ah", "coulombic_efficiency", "v_min_v", "v_max_v", "ocv", "r0_ohm",
-        "rc_pairs", "hysteresis", "provenance"}
+        "rc_pairs", "hysteresis", "provenance", "current_dependence"}
 _REQUIRED = {"schema", "capacity_ah", "ocv", "r0_ohm"}
 _OCV = {"soc", "ocv_v", "temperature_c", "source"}
 _TABLE = {"soc", "values", "temperature_c"}
 _PAIR = {"r_ohm", "tau_s"}
 _HYST = {"gamma", "max_v"}
+_CT = {"form", "temperature_c", "i0_a", "i_ref_a", "source"}
 
 
 def _list(a):
@@ -89,11 +92,13 @@ def model_to_dict(model: CellModel) -> dict:
     dict
         ``schema``, ``name``, ``capacity_ah`` (Ah), ``coulombic_efficiency``, ``v_min_v`` and ``v_max_v``
         (V), ``ocv`` (SOC fractions, V, degC axis or None), ``r0_ohm`` and the ``rc_pairs`` tables
-        (ohm, s), ``hysteresis`` (``gamma``, ``max_v`` in V) or None, and ``provenance``.
+        (ohm, s), ``hysteresis`` (``gamma``, ``max_v`` in V) or None, and ``provenance``; plus
+        ``current_dependence`` (degC, A; :class:`models.thevenin.ChargeTransfer`) only when the
+        model has one, so a model without it is written exactly as before.
     """
     ocv = model.ocv
     ocv_v = ocv.ocv_v[0] if ocv.temperature_c is None else ocv.ocv_v
-    return {
+    out = {
         "schema": MODEL_SCHEMA,
         "name": model.name,
         "capacity_ah": float(model.capacity_ah),
@@ -108,6 +113,9 @@ def model_to_dict(model: CellModel) -> dict:
         {"gamma": float(model.hysteresis.gamma), "max_v": float(model.hysteresis.max_v)},
         "provenance": _jsonable(model.provenance),
     }
+    if model.charge_transfer is not None:
+        out["current_dependence"] = model.charge_transfer.as_dict()
+    return out
 
 
 def _check_keys(d, allowed, where, required=()):
@@ -167,13 +175,24 @@ def model_from_dict(d: dict, where: str = "cell model") -> CellModel:
     hy = d.get("hysteresis")
     if hy is not None:
         _check_keys(hy, _HYST, f"{where}: hysteresis", required=_HYST)
+    ct = None
+    cd = d.get("current_dependence")
+    if cd is not None:
+        _check_keys(cd, _CT, f"{where}: current_dependence", required=("form", "temperature_c", "i0_a", "i_ref_a"))
+        if cd["form"] != CHARGE_TRANSFER_FORM:
+            raise ModelFileError(f"{where}: current_dependence.form is {cd['form']!r}, expected "
+                                 f"{CHARGE_TRANSFER_FORM!r}")
+        try:
+            ct = ChargeTransfer(cd["temperature_c"], cd["i0_a"], cd["i_ref_a"], str(cd.get("source", "") or ""))
+        except (ValueError, TypeError) as e:
+            raise ModelFileError(f"{where}: current_dependence: {e}") from None
     try:
         return CellModel(
             capacity_ah=float(d["capacity_ah"]), ocv=ocv, r0_ohm=r0, rc=tuple(pairs),
             coulombic_efficiency=float(d.get("coulombic_efficiency", 1.0)),
             hysteresis=None if hy is None else Hysteresis(float(hy["gamma"]), float(hy["max_v"])),
             v_min_v=float(d.get("v_min_v", 2.5)), v_max_v=float(d.get("v_max_v", 4.2)),
-            name=str(d.get("name", "") or ""), provenance=d.get("provenance") or {})
+            name=str(d.get("name", "") or ""), provenance=d.get("provenance") or {}, charge_transfer=ct)
     except (ValueError, TypeError) as e:
         raise ModelFileError(f"{where}: {e}") from None
 

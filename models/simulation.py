@@ -10,7 +10,9 @@ runs this code.  The computation is split into vectorised parts and compiled sca
 - the RC states follow the exact zero-order-hold recursion ``v' = a v + R (1 - a) u``,
   ``a = exp(-dt / tau)``, in :func:`rc_filter` (numba, scalar, also runs under
   ``NUMBA_DISABLE_JIT=1``);
-- the Plett (2004) hysteresis state likewise in :func:`hysteresis_filter`.
+- the Plett (2004) hysteresis state likewise in :func:`hysteresis_filter`;
+- a charge-transfer term (:class:`models.thevenin.ChargeTransfer`) adds ``(1 - a_1) c(u, T)`` to
+  the input of the first pair, ``c`` from :func:`charge_transfer_v` (the filter kernels' own).
 
 Checked against closed-form RC responses and ``scipy.integrate.solve_ivp`` in
 tests/test_thevenin.py, and against a plain loop of the sampling rule in
@@ -18,11 +20,13 @@ tests/test_identify_pulse.py.
 """
 from __future__ import annotations
 
+import math
+
 import numpy as np
 
 from socfuse.models.thevenin import SECONDS_PER_HOUR, CellModel, Simulation, interval_current
 
-__all__ = ["rc_filter", "hysteresis_filter", "soc_trajectory", "simulate_model", "unit_rc_response", "njit"]
+__all__ = ["charge_transfer_v", "charge_transfer_series", "rc_filter", "hysteresis_filter", "soc_trajectory", "simulate_model", "unit_rc_response", "njit"]
 
 try:
     from numba import njit
@@ -31,6 +35,31 @@ except ImportError:  # pragma: no cover
         if args and callable(args[0]):
             return args[0]
         return lambda f: f
+
+@njit(cache=True, error_model="numpy", inline="always")
+def charge_transfer_v(i, b, g, r):
+    """Charge-transfer excess voltage ``c = b asinh(g i) - r i`` (V) and ``dc/di`` (ohm).
+
+    The one copy of this arithmetic (the simulator here, the filter kernels and, ported to
+    float32, the exported C code); the form and its source are in
+    :class:`models.thevenin.ChargeTransfer` (symmetric Butler-Volmer, Bard and Faulkner 2001,
+    ch. 3).  ``i`` the current sample (A, + = discharge), ``b = 2RT/F`` (V), ``g = 1/(2 I_0)``
+    (1/A), ``r`` the chord resistance already in the linear tables (ohm).
+    """
+    x = g * i
+    return b * math.asinh(x) - r * i, b * g / math.sqrt(1.0 + x * x) - r
+
+
+@njit(cache=True, error_model="numpy")
+def charge_transfer_series(i, b, g, r):
+    """:func:`charge_transfer_v` over arrays of equal length (the excess voltage only), V."""
+    n = i.shape[0]
+    out = np.empty(n)
+    for k in range(n):
+        c, _ = charge_transfer_v(i[k], b[k], g[k], r[k])
+        out[k] = c
+    return out
+
 
 @njit(cache=True)
 def rc_filter(a, bu, v0):
@@ -141,6 +170,8 @@ def simulate_model(model: CellModel, time_s, current_a, temperature_c=None, soc0
     for j, pair in enumerate(model.rc):
         a = np.exp(-dt / np.asarray(pair.tau_s.at(z0, t0), dtype=float))
         bu = np.asarray(pair.r_ohm.at(z0, t0), dtype=float) * (1.0 - a) * u
+        if j == 0 and model.charge_transfer is not None:  # the excess drives the first pair
+            bu = bu + (1.0 - a) * model.charge_transfer.excess_v(u, t0)
         v_rc[:, j] = rc_filter(a, bu, 0.0 if v_rc0 is None else float(np.asarray(v_rc0, dtype=float)[j]))
     hy = model.hysteresis
     if hy is not None:

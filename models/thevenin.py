@@ -6,6 +6,11 @@ Model (current ``i`` positive on discharge, SOC ``z`` as a fraction)::
     dv_j/dt  = -v_j / tau_j + i / C_j,          C_j = tau_j / R_j
     v        = OCV(z, T) + M * h - sum_j v_j - R0(z, T) * i
 
+With a :class:`ChargeTransfer` term the first RC pair is driven by ``R_1 i + c(i, T)``
+(``dv_1/dt = -v_1 / tau_1 + (i + c(i, T) / R_1) / C_1``): ``c`` is the part of a Butler-Volmer
+overpotential that the linear R0/RC tables do not describe, and it builds up with the pair's
+time constant (the pulse tests show it in the 10 s resistance, not in the edge step).
+
 The equivalent-circuit form and its comparison with other orders is in Hu, Li and Peng,
 J. Power Sources 198 (2012) 359-367; the one-state hysteresis ``h`` (dimensionless, -1..1,
 scaled by ``M`` volts) is the form of Plett, J. Power Sources 134 (2004) 262-276 (part 2)::
@@ -31,11 +36,14 @@ from socfuse.models.ocv import OcvCurve
 from socfuse.models.tables import ParamTable
 
 __all__ = [
-    "RcPair", "Hysteresis", "CellModel", "Simulation", "discretise_rc", "interval_current",
+    "RcPair", "Hysteresis", "ChargeTransfer", "CellModel", "Simulation", "discretise_rc", "interval_current",
     "simulate", "SECONDS_PER_HOUR",
 ]
 
 SECONDS_PER_HOUR = 3600.0  # 1 Ah = 3600 C (common practice, no source)
+FARADAY_C_PER_MOL = 96485.33212  # CODATA 2018
+GAS_J_PER_MOL_K = 8.314462618  # CODATA 2018
+KELVIN_OFFSET = 273.15  # 0 degC in K (SI definition)
 
 
 @dataclass(frozen=True, eq=False)
@@ -69,6 +77,111 @@ class Hysteresis:
 
 
 @dataclass(frozen=True, eq=False)
+class ChargeTransfer:
+    """Current dependence of the cell resistance: a Butler-Volmer charge-transfer excess term.
+
+    The charge-transfer overpotential of the symmetric Butler-Volmer equation (transfer
+    coefficient 1/2; Bard and Faulkner, "Electrochemical Methods", 2nd ed., Wiley 2001, ch. 3, the
+    current-overpotential equation) solved for the overpotential is
+    ``eta(i) = b asinh(i / (2 I_0))`` with ``b = 2 R T / F`` (CODATA R, F; T in kelvin) and ``I_0``
+    the exchange current of the whole cell.  The linear R0/RC tables were identified as medians
+    over pulses of several amplitudes, so they already hold the chord of ``eta`` at a typical
+    amplitude ``I_ref``; the model adds only the excess over that chord::
+
+        c(i, T) = b asinh(g i) - r i,     g = 1 / (2 I_0),     r = b asinh(g I_ref) / I_ref
+
+    so ``c(I_ref) = 0`` (the tables stand as identified there), ``c`` is odd in ``i`` (charge and
+    discharge alike) and has no SOC dependence (the fits are medians over the SOC levels: no
+    SOC slope is claimed).  It is added to the steady state of the first RC pair, sampled by the
+    rule of the module docstring: ``v_1' = a_1 v_1 + (1 - a_1) (R_1 u + c(u, T_k))`` with the
+    interval-mean current ``u`` (on the Panasonic 18650PF at 0 degC the edge-step R0 does not fall
+    with the current, the 10 s pulse resistance does).  A model with the term needs at least one
+    RC pair.  ``b``, ``g`` and ``r`` are evaluated at the breakpoints and
+    interpolated linearly in temperature between them (clamped beyond, ``b`` at the clamped
+    temperature), the convention of every other table; :meth:`coefficients` is that rule and
+    :func:`models.simulation.charge_transfer_v` the arithmetic (the one copy, used by the
+    simulator and the filter kernels).
+
+    Parameters
+    ----------
+    temperature_c : array_like (n_t,)
+        Strictly increasing temperature breakpoints, degC.
+    i0_a : array_like (n_t,)
+        Exchange current at each breakpoint, A (> 0).
+    i_ref_a : array_like (n_t,)
+        Current at which the linear tables hold (the chord point), A (> 0).
+    source : str
+        Where the values come from (test files, fit).
+    """
+
+    temperature_c: np.ndarray
+    i0_a: np.ndarray
+    i_ref_a: np.ndarray
+    source: str = ""
+
+    def __post_init__(self) -> None:
+        from socfuse.models.tables import as_axis
+
+        t = as_axis(self.temperature_c, "charge transfer: temperature breakpoints")
+        cols = {}
+        for name in ("i0_a", "i_ref_a"):
+            a = np.array(getattr(self, name), dtype=float).ravel()
+            if a.shape != t.shape:
+                raise ValueError(f"charge transfer: {name} has {a.size} values for {t.size} temperatures")
+            if not np.all(np.isfinite(a) & (a > 0)):
+                k = int(np.argmax(~(np.isfinite(a) & (a > 0))))
+                raise ValueError(f"charge transfer: {name} must be positive and finite, got {a[k]} at "
+                                 f"{t[k]} degC")
+            a.setflags(write=False)
+            cols[name] = a
+        t.setflags(write=False)
+        object.__setattr__(self, "temperature_c", t)
+        object.__setattr__(self, "i0_a", cols["i0_a"])
+        object.__setattr__(self, "i_ref_a", cols["i_ref_a"])
+        object.__setattr__(self, "source", str(self.source or ""))
+
+    def node_coefficients(self):
+        """``(b, g, r)`` at the breakpoints: V, 1/A, ohm (arrays (n_t,))."""
+        b = 2.0 * GAS_J_PER_MOL_K * (self.temperature_c + KELVIN_OFFSET) / FARADAY_C_PER_MOL
+        g = 0.5 / self.i0_a
+        r = b * np.arcsinh(g * self.i_ref_a) / self.i_ref_a
+        return b, g, r
+
+    def coefficients(self, temperature_c=None):
+        """``(b, g, r)`` at ``temperature_c`` (degC, default 25; array_like): linear between the
+        breakpoints, clamped beyond."""
+        from socfuse.models.tables import clamp_weights
+
+        t = np.asarray(25.0 if temperature_c is None else temperature_c, dtype=float)
+        i0, w = clamp_weights(self.temperature_c, t)
+        i1 = np.minimum(i0 + 1, self.temperature_c.size - 1)
+        out = []
+        for c in self.node_coefficients():
+            lo, hi = c[i0], c[i1]
+            out.append(lo + w * (hi - lo))
+        return tuple(o[()] if np.ndim(o) == 0 else o for o in out)
+
+    def excess_v(self, current_a, temperature_c=None):
+        """``c(i, T)`` (V) for current samples ``current_a`` (A, + = discharge)."""
+        from socfuse.models.simulation import charge_transfer_series
+
+        i = np.asarray(current_a, dtype=float)
+        shape = np.broadcast_shapes(i.shape, np.shape(25.0 if temperature_c is None else temperature_c))
+        b, g, r = (np.ascontiguousarray(np.broadcast_to(c, shape), dtype=float).ravel()
+                   for c in self.coefficients(temperature_c))
+        out = charge_transfer_series(np.ascontiguousarray(np.broadcast_to(i, shape), dtype=float).ravel(), b, g, r)
+        out = out.reshape(shape)
+        return out[()] if out.ndim == 0 else out
+
+    def as_dict(self) -> dict:
+        return {"form": CHARGE_TRANSFER_FORM, "temperature_c": self.temperature_c.tolist(),
+                "i0_a": self.i0_a.tolist(), "i_ref_a": self.i_ref_a.tolist(), "source": self.source}
+
+
+CHARGE_TRANSFER_FORM = "butler-volmer-symmetric-excess"
+
+
+@dataclass(frozen=True, eq=False)
 class CellModel:
     """Identified or invented Thevenin model of one cell.
 
@@ -84,6 +197,8 @@ class CellModel:
     coulombic_efficiency : float
         Fraction of charge current stored (0 < eta <= 1); discharge uses 1.
     hysteresis : Hysteresis or None
+    charge_transfer : ChargeTransfer or None
+        Current dependence of the resistance (None: the linear R0/RC tables only).
     v_min_v, v_max_v : float
         Cell-maker voltage limits (cut-off on discharge, end of charge), V.
     name : str
@@ -101,6 +216,7 @@ class CellModel:
     v_max_v: float = 4.2
     name: str = ""
     provenance: Mapping[str, Any] = field(default_factory=dict)
+    charge_transfer: ChargeTransfer | None = None
 
     def __post_init__(self) -> None:
         if not (np.isfinite(self.capacity_ah) and self.capacity_ah > 0):
@@ -113,6 +229,11 @@ class CellModel:
         for j, p in enumerate(rc):
             if not isinstance(p, RcPair):
                 raise TypeError(f"rc[{j}] must be an RcPair")
+        if self.charge_transfer is not None:
+            if not isinstance(self.charge_transfer, ChargeTransfer):
+                raise TypeError("charge_transfer must be a ChargeTransfer or None")
+            if not rc:
+                raise ValueError("a charge-transfer term drives the first RC pair: the model needs at least one")
         if not (self.v_min_v < self.v_max_v):
             raise ValueError(f"v_min_v ({self.v_min_v}) must be below v_max_v ({self.v_max_v})")
         object.__setattr__(self, "rc", rc)

@@ -52,6 +52,9 @@ def register(sub) -> None:
     p.add_argument("--plots", metavar="DIR", default=None, help="write PNG plots into this folder")
     p.add_argument("--power-table", metavar="CSV", default=None,
                    help="write the DOE/INL pulse-resistance and power table to this CSV")
+    p.add_argument("--current-dependence", action="store_true",
+                   help="put the Butler-Volmer charge-transfer term fitted to pulses of several amplitudes into "
+                        "the model (resistance falling with current at cold); off by default")
     p.add_argument("--model-name", dest="model_name", default="", help="model name stored in the file")
     p.add_argument("-o", "--output", required=True, metavar="MODEL_JSON", help="cell-model file to write")
     p.add_argument("--force", action="store_true", help="overwrite existing output files")
@@ -100,7 +103,8 @@ def run(args) -> int:
                    pulse_temperatures_c=args.pulse_temperature_c, soc_mode=args.pulse_soc,
                    name=args.model_name, refine_soc0=args.soc0, validate_soc0=args.soc0,
                    refine_options={"stride": args.refine_stride}, allow_implausible=args.accept_implausible,
-                   pulse_options=None if args.current_offset_a is None else {"offset_a": args.current_offset_a})
+                   pulse_options=None if args.current_offset_a is None else {"offset_a": args.current_offset_a},
+                   current_dependence_in_model=args.current_dependence)
     save_model(res.model, args.output)
     print(f"socfuse identify: wrote {args.output}")
     print(res.summary())

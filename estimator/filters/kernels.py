@@ -16,6 +16,17 @@ parameters at ``(z_k, T_k)``::
     m'   = a_m m                                     a_m = exp(-dt / tau_m)   (model-error state)
     y_k  = OCV(z_k, T_k) + M h_k - sum_j v_j,k - R0(z_k, T_k) (i_k - b_k) + m_k
 
+Current-dependent resistance: when the packed tables carry the charge-transfer rows
+(:func:`tab_n_rc`), the first RC pair is driven by ``R_1 u + c(u, T)`` instead of ``R_1 u``::
+
+    v_1' = a_1 v_1 + (1 - a_1) (R_1 u + c(u, T_k))
+
+with ``c`` the model's charge-transfer excess (symmetric Butler-Volmer over the chord the linear
+tables hold; :class:`models.thevenin.ChargeTransfer`, Bard and Faulkner 2001, ch. 3), whose
+arithmetic is :func:`models.simulation.charge_transfer_v`, the simulator's own.  Linearisation:
+``G[1] = (1 - a_1) (R_1 + dc/du)`` (so the bias column of ``F`` carries it too); ``dc/dSOC = 0``
+(no SOC axis), so ``F`` is otherwise unchanged and ``H`` is untouched.
+
 Rate invariance (the model-error state ``m``).  The equivalent circuit's voltage error is not
 white: OCV-table error, unmodelled hysteresis and RC-dynamics mismatch stay for tens to
 thousands of seconds.  Treating it as white noise per sample gives a 10 Hz recording ten times
@@ -84,13 +95,15 @@ from numba import njit, prange
 from numba import typeof as _nb_typeof
 from numba.core import types as _nb_types
 
+from socfuse.models.simulation import charge_transfer_v
+
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
            "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor", "layout", "layout_size", "specialised",
-           "error_index", "cache_size", "NIS_ALPHA", "NIS_CAP", "NIS_HIGH", "NIS_LOW", "table_value", "ocv_lookup",
+           "error_index", "cache_size", "NIS_ALPHA", "NIS_CAP", "NIS_HIGH", "NIS_LOW", "table_value", "tab_n_rc", "ocv_lookup",
            "ocv_inverse", "measure", "transition", "linearise", "ekf_run", "ekf_run_batch", "coulomb_run"]
 
 P_VN, P_IN, P_QSOC, P_QRC, P_QB, P_QH, P_GATE, P_SMIN, P_SMAX = 0, 1, 2, 3, 4, 5, 6, 7, 8
@@ -385,6 +398,33 @@ def _bil(tab, row, it0, it1, wt, is0, ws):
     return lo + wt * (hi - lo)
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def tab_n_rc(tab):
+    """RC pairs of a packed table: ``5 + 2 n_rc`` rows (odd), or ``8 + 2 n_rc`` (even) with the
+    three charge-transfer rows (:mod:`estimator.filters.tables`)."""
+    nr = tab.shape[0]
+    if nr % 2 == 1:
+        return (nr - 5) // 2
+    return (nr - 8) // 2
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def _ct_excess(tab, n_rc, i, it0, it1, wt):
+    """Charge-transfer excess ``(c, dc/di)`` at current ``i`` (A) on temperature rows ``it0, it1``
+    (weight ``wt``); ``(0, 0)`` when the tables have no charge-transfer rows."""
+    rb = 4 + 2 * n_rc
+    if tab.shape[0] != rb + 4:
+        return 0.0, 0.0
+    b = tab[rb, it0, 0]
+    g = tab[rb + 1, it0, 0]
+    r = tab[rb + 2, it0, 0]
+    if wt != 0.0:
+        b += wt * (tab[rb, it1, 0] - b)
+        g += wt * (tab[rb + 1, it1, 0] - g)
+        r += wt * (tab[rb + 2, it1, 0] - r)
+    return charge_transfer_v(i, b, g, r)
+
+
 @njit(cache=True, error_model="numpy")
 def table_value(tab, row, z, t_c, t_min, t_step):
     """Bilinear value of packed table ``row`` at SOC ``z`` and temperature ``t_c`` (degC)."""
@@ -539,6 +579,10 @@ def _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u_meas, dt, it0, it1, wt, xn, 
         xn[1 + j] = a * x[1 + j] + b * u
         d[1 + j] = a
         g[1 + j] = b
+        if j == 0 and tab.shape[0] == 8 + 2 * n_rc:  # charge-transfer excess drives the first pair
+            c, dc = _ct_excess(tab, n_rc, u, it0, it1, wt)
+            xn[1] += (1.0 - a) * c
+            g[1] = b + (1.0 - a) * dc
     if i_b >= 0:
         xn[i_b] = x[i_b]
         d[i_b] = 1.0
@@ -1269,7 +1313,7 @@ def coulomb_run(time_s, current_a, voltage_v, temp_c, tab, prm, soc0, var0, rest
             var += c * c * s2 * white_factor(prm, dt) + qs * dt + gv
             if gv > 0.0 and voltage_v[k] == voltage_v[k]:
                 # end of a logging gap: restart the count from this voltage when it knows better
-                zv, sgv = soc_from_voltage(tab, (tab.shape[0] - 5) // 2, prm, voltage_v[k], current_a[k], temp_c[k])
+                zv, sgv = soc_from_voltage(tab, tab_n_rc(tab), prm, voltage_v[k], current_a[k], temp_c[k])
                 if sgv * sgv < var:
                     z = zv
                     var = sgv * sgv

@@ -7,7 +7,11 @@ filter loop caches while the temperature is unchanged), so a table identified at
 reproduced exactly at 0.56 degC.  All tables are packed in one array ``packed`` of shape
 ``(5 + 2 n_rc, n_t, n_s)`` with rows ``ocv, docv, r0, dr0, r_rc_1..n, tau_rc_1..n`` and a last
 row that carries the temperature axis (degC, the same value along SOC), so the kernels take one
-table argument; the named attributes are views of it.
+table argument; the named attributes are views of it.  A model with a charge-transfer term
+(:class:`models.thevenin.ChargeTransfer`) has three more rows before the temperature axis,
+``ct_b`` (V), ``ct_g`` (1/A), ``ct_r`` (ohm), constant along SOC: shape ``(8 + 2 n_rc, n_t, n_s)``.
+The row count's parity tells the two apart (odd: none, even: with the term;
+:func:`estimator.filters.kernels.tab_n_rc`), so a model without it gives the same array as before.
 """
 from __future__ import annotations
 
@@ -29,8 +33,10 @@ def _temperature_grid(model) -> np.ndarray:
     The union over the OCV, R0 and RC tables; a single 25 degC row for a temperature-free model.
     """
     pts = []
+    ct = getattr(model, "charge_transfer", None)
     for a in (model.ocv.temperature_c, model.r0_ohm.temperature_c,
-              *[p.r_ohm.temperature_c for p in model.rc], *[p.tau_s.temperature_c for p in model.rc]):
+              *[p.r_ohm.temperature_c for p in model.rc], *[p.tau_s.temperature_c for p in model.rc],
+              None if ct is None else ct.temperature_c):
         if a is not None and len(a) > 1:
             pts.extend(np.asarray(a, dtype=float).tolist())
     if not pts:
@@ -58,6 +64,7 @@ class KernelTables:
     capacity_as : float              capacity in ampere-seconds
     eta_charge : float               coulombic efficiency applied to charge
     hyst_gamma, hyst_max_v : float   hysteresis rate and magnitude (0 without hysteresis)
+    has_charge_transfer : bool       the rows ``ct_b, ct_g, ct_r`` exist (:attr:`row_ct`)
     """
 
     soc_grid: np.ndarray
@@ -69,6 +76,7 @@ class KernelTables:
     has_hysteresis: bool
     hyst_gamma: float
     hyst_max_v: float
+    has_charge_transfer: bool = False
 
     @classmethod
     def from_model(cls, model, n_soc: int = 401) -> "KernelTables":
@@ -83,13 +91,18 @@ class KernelTables:
         rows = [ocv, docv, r0, dr0]
         rows += [p.r_ohm.uniform(soc_grid, temp) for p in model.rc]
         rows += [p.tau_s.uniform(soc_grid, temp) for p in model.rc]
+        ct = getattr(model, "charge_transfer", None)
+        if ct is not None:  # b, g, r at every temperature row (linear between the model's breakpoints)
+            rows += [np.repeat(np.asarray(c, dtype=float)[:, None], soc_grid.size, axis=1)
+                     for c in ct.coefficients(temp)]
         rows.append(np.repeat(temp[:, None], soc_grid.size, axis=1))   # the temperature axis (row_temp)
         packed = np.ascontiguousarray(np.stack(rows), dtype=np.float64)
         packed.setflags(write=False)
         hy = model.hysteresis
         return cls(soc_grid, temp, packed, model.n_rc, float(model.capacity_ah) * SECONDS_PER_HOUR,
                    float(model.coulombic_efficiency), hy is not None,
-                   0.0 if hy is None else float(hy.gamma), 0.0 if hy is None else float(hy.max_v))
+                   0.0 if hy is None else float(hy.gamma), 0.0 if hy is None else float(hy.max_v),
+                   ct is not None)
 
     # views -------------------------------------------------------------------------------
     @property
@@ -117,13 +130,19 @@ class KernelTables:
         return self.packed[ROW_RC + self.n_rc:ROW_RC + 2 * self.n_rc]
 
     @property
-    def row_temp(self) -> int:
-        """Index of the packed row that carries the temperature axis (``4 + 2 n_rc``)."""
+    def row_ct(self) -> int:
+        """Index of the first charge-transfer row (``4 + 2 n_rc``; only when :attr:`has_charge_transfer`)."""
         return ROW_RC + 2 * self.n_rc
 
     @property
+    def row_temp(self) -> int:
+        """Index of the packed row that carries the temperature axis (the last: ``4 + 2 n_rc``, or
+        ``7 + 2 n_rc`` with the charge-transfer rows)."""
+        return self.packed.shape[0] - 1
+
+    @property
     def tables(self):
-        """The table rows without the temperature-axis row, (4 + 2 n_rc, n_t, n_s) (the C export's)."""
+        """The table rows without the temperature-axis row, (4 + 2 n_rc [+ 3], n_t, n_s) (the C export's)."""
         return self.packed[:self.row_temp]
 
     @property

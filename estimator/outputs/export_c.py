@@ -232,7 +232,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         generator=GENERATOR, model_comment=safe_text(model.name or "unnamed cell model"),
         safety_note=_safety_note(),
         n_rc=su.n_rc, has_bias=int(su.i_b >= 0), has_hyst=int(su.i_h >= 0), est_hyst=int(su.est_h), n_x=su.n_x,
-        i_b=su.i_b, i_h=su.i_h, has_err=int(su.i_e >= 0), i_e=su.i_e,
+        i_b=su.i_b, i_h=su.i_h, has_err=int(su.i_e >= 0), i_e=su.i_e, has_ct=int(tab.has_charge_transfer),
         model_error_v=c_float(s.model_error_v), model_error_tau_s=c_float(s.model_error_tau_s),
         capacity_error_frac=c_float(s.capacity_error_frac), resistance_error_ohm=c_float(s.resistance_error_ohm),
         noise_corr_s=c_float(s.noise_corr_s), model_error_adapt_s=c_float(s.model_error_adapt_s),
@@ -261,7 +261,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
     return {name: _template(name + ".in").substitute(subs) for name in SOURCE_FILES}
 
 
-def flops_per_step(n_rc: int, has_bias: bool, has_hyst: bool) -> tuple[int, int]:
+def flops_per_step(n_rc: int, has_bias: bool, has_hyst: bool, has_ct: bool = False) -> tuple[int, int]:
     """Worst-case floating-point operations of one ``sfx_step`` (update performed).
 
     Counted by hand from ``socfuse_ekf.c.in`` (additions, subtractions, multiplications,
@@ -276,6 +276,9 @@ def flops_per_step(n_rc: int, has_bias: bool, has_hyst: bool) -> tuple[int, int]
         The current-bias state is present.
     has_hyst : bool
         The hysteresis state is present.
+    has_ct : bool
+        The model has the charge-transfer excess (three temperature interpolations, ``asinhf``
+        and ``sqrtf`` in the transition of the first RC pair).
 
     Returns
     -------
@@ -301,8 +304,11 @@ def flops_per_step(n_rc: int, has_bias: bool, has_hyst: bool) -> tuple[int, int]
     # baseline: interval current 2, SOC change 3 + acc, variance 6, rest duration acc
     base = 2 + 3 + acc + 6 + acc
     health = 5 + 2  # NIS and its running mean; output sums
+    # charge-transfer excess: three interpolations (9), x (1), dc/du (4), c (3), 1 - a, x' and g (5)
+    trans += 22 * int(has_ct)
     total = trans + pred + meas + upd + base + health
-    transc = n_rc + int(has_hyst) + 1 + 2  # expf per pair (+ hysteresis), sqrtf gate, sigma outputs
+    transc = n_rc + int(has_hyst) + 1 + 2 + 2 * int(has_ct)  # expf per pair (+ hysteresis), sqrtf gate, sigma
+    # outputs (+ asinhf and sqrtf of the charge-transfer term)
     return int(total), int(transc)
 
 
@@ -661,7 +667,7 @@ def export_c(model, settings: FilterSettings | None, out_dir, golden=None, *, fo
         written.append(write_text_replacing(out / name, text))
     gpath = write_text_replacing(out / "golden.csv", _golden_csv(frame))
     written.append(gpath)
-    flops, transc = flops_per_step(su.n_rc, su.i_b >= 0, su.i_h >= 0)
+    flops, transc = flops_per_step(su.n_rc, su.i_b >= 0, su.i_h >= 0, su.tables.has_charge_transfer)
     table_bytes = int((su.tables.tables.size + su.tables.temp_grid.size) * 4)
     meas = None
     if measure and find_c_compiler() is not None:
