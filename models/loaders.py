@@ -58,6 +58,7 @@ import struct
 import sys
 from contextlib import contextmanager
 from dataclasses import asdict, dataclass, fields
+from itertools import repeat
 from pathlib import Path
 from typing import Any, Mapping
 
@@ -384,11 +385,17 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
         raise RecordingError(f"{path}: column(s) {', '.join(repr(m) for m in missing)} not found; the header "
                              f"(file line {hidx + 1}) has columns {', '.join(repr(n) for n in names if n)}")
     body = lines[hidx + 1:]
+    width = len(names)
+    info: dict = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul, "preamble_lines": hidx}
+    flat = _plain_fields(body, sep, width) if ends_with_newline else None
+    if flat is not None:  # every line a full data row: the fields of column c are flat[c::width]
+        return _csv_table(path, cmap, names, [flat[c::width] for c in range(width)], len(body),
+                          np.arange(hidx + 2, hidx + 2 + len(body)), info, None, None, hidx)
     reader = csv.reader(body, delimiter=sep)
     rows, line_no = [], []
-    width = len(names)
     named = max((c for c, nm in enumerate(names) if nm), default=-1) + 1  # fields up to the last named one
     units_row = None
+    units_line = None
     short: tuple[int, int, int] | None = None  # (row index, file line, fields) of the first short row
     for j, rec in enumerate(reader):
         if not "".join(rec).strip():
@@ -406,7 +413,6 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
             rec = (rec + [""] * width)[:width]
         rows.append(rec)
         line_no.append(hidx + 2 + j)
-    info: dict = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul, "preamble_lines": hidx}
     if short is not None:
         k, line, nf = short
         if k != len(rows) - 1:
@@ -426,7 +432,36 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
             line_no.pop()
     if not rows:
         raise RecordingError(f"{path}: no data rows after the header (file line {hidx + 1})")
-    columns = list(zip(*rows))
+    return _csv_table(path, cmap, names, list(zip(*rows)), len(rows), np.asarray(line_no), info, units_row,
+                      units_line, hidx)
+
+
+def _plain_fields(body: list[str], sep: str, width: int) -> list[str] | None:
+    """All fields of ``body``, row after row, when every line is a plain data row; else None.
+
+    Plain: no quote character (so the csv module would split exactly at ``sep``), exactly
+    ``width`` fields on every line, no line of blanks, no line longer than the csv module's
+    field limit, and a first line that is not a units row.  The general loop of
+    :func:`_read_csv_text` handles everything else (and gives the same table for plain lines).
+    """
+    if not body:
+        return None
+    joined = sep.join(body)
+    if '"' in joined or max(map(len, body)) > csv.field_size_limit():
+        return None
+    seps = repeat(sep)
+    if set(map(str.count, body, seps)) != {width - 1}:
+        return None
+    if not all(map(str.strip, map(str.replace, body, seps, repeat("")))):   # a line of blanks is skipped
+        return None
+    if _is_units_row(body[0].split(sep)):
+        return None
+    return joined.split(sep)
+
+
+def _csv_table(path, cmap, names, columns, n_rows, line_no, info, units_row, units_line, hidx) -> RawTable:
+    """The RawTable of a CSV's data columns (``columns[c]`` = the fields of column c)."""
+    width = len(names)
     cols: dict[str, np.ndarray] = {}
     final: dict[int, str] = {}
     used = {cmap.time_col, cmap.current_col, cmap.voltage_col, cmap.temperature, cmap.soc_ref, cmap.ah_counter,
@@ -444,7 +479,7 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
             while f"{nm}.{k}" in cols:
                 k += 1
             nm = f"{nm}.{k}"
-        col = np.empty(len(rows), dtype=object)
+        col = np.empty(n_rows, dtype=object)
         col[:] = columns[c]
         cols[nm] = col
         final[c] = nm
@@ -452,7 +487,7 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
         info["units_row"] = {final[c]: f.strip() for c, f in enumerate(units_row[:width])
                              if c in final and f.strip()}
         info["units_line"] = units_line
-    return RawTable(str(path), "csv", cols, np.asarray(line_no), info)
+    return RawTable(str(path), "csv", cols, line_no, info)
 
 
 def _is_units_row(fields: list[str]) -> bool:

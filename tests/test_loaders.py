@@ -306,3 +306,32 @@ def test_mat_cell_array_of_time_stamps(tmp_path):
                           current="Current", voltage="Voltage", discharge_negative=True)
     np.testing.assert_array_equal(rec2.time_s, [0.0, 1.0, 3.0])   # 11:59:59 AM -> 12:00:00 PM is one second
     np.testing.assert_array_equal(rec2.current_a, [1.0, 1.5, -0.5])
+
+
+@pytest.mark.parametrize("text", [
+    CANON,
+    "time_s,current_a,voltage_v,\n0,1.0,3.70,\n1,1.5,3.65,\n",                       # trailing separator
+    "time_s;current_a;voltage_v;note\n0;1,0;3,70;a\n1;1,5;3,65;b\n",                   # ; and decimal comma
+    "time_s\tcurrent_a\tvoltage_v\n0\t1.0\t3.7\n1\t1.5\t 3.65 \n",
+    "time_s,current_a,,voltage_v,x,x\n0,1.0,7,3.7,1,2\n1,1.5,8,3.65,3,4\n",           # unnamed, repeated names
+    "time_s,current_a,voltage_v\ns,A,V\n0,1.0,3.70\n1,1.5,3.65\n",                    # units row: general loop
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n,,\n1,1.5,3.65\n",                       # blank row: general loop
+    'time_s,current_a,voltage_v\n0,"1.0",3.70\n1,1.5,3.65\n',                         # quotes: general loop
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65",                             # no final line end
+    "time_s,current_a,voltage_v\n0,1.0,\u30003.70\n1,1.5,3.65\n",
+])
+def test_plain_csv_rows_read_as_the_csv_module_reads_them(text, tmp_path, monkeypatch):
+    # reference: Python's csv.reader (the general loop); the plain-row shortcut must give the same table
+    from socfuse.models import loaders as L
+    p = tmp_path / "a.csv"
+    p.write_bytes(text.encode())
+    sep = ";" if ";" in text else None
+    cm = L.make_column_map(separator=sep, decimal="," if sep == ";" else ".")
+    fast = L._read_csv_text(p, cm)
+    monkeypatch.setattr(L, "_plain_fields", lambda *a: None)
+    slow = L._read_csv_text(p, cm)
+    assert list(fast.columns) == list(slow.columns)
+    for k in fast.columns:
+        assert fast.columns[k].tolist() == slow.columns[k].tolist(), k
+    np.testing.assert_array_equal(fast.file_lines, slow.file_lines)
+    assert fast.info == slow.info
