@@ -24,10 +24,15 @@ What is timed, in one run, on the same inputs:
   in million cell-steps per CPU-second (and per wall-clock second), beside the older
   recording-parallel ``kernels.ekf_run_batch`` at 100 cells.
 
+- start-up, wall-clock: ``socfuse --help``, and a warm ``socfuse estimate -o trace.csv`` of the
+  real 10 Hz drive cycle 1 (3.0 h, a model from ``socfuse identify`` on the Panasonic C/20 and HPPC
+  files) read from a canonical CSV and from the dataset's ``.mat`` (targets: 0.3 s and 1.0 s).
+
 Clock: the process CPU clock (``time.process_time``; for the batch it sums both cores), min and
 median of ``--rounds`` rounds.  The machine has 2 cores shared with other work: the load
 average is printed, and figures move with it.  The last line is
-``ns_per_step=.. ratio_vs_filterpy=.. ratio_vs_c=.. batch_msteps_per_cpu_s=..`` (demo day;
+``ns_per_step=.. ratio_vs_filterpy=.. ratio_vs_c=.. batch_msteps_per_cpu_s=.. help_wall_s=..
+estimate_wall_s=.. estimate_mat_wall_s=..`` (demo day;
 ``ratio_vs_filterpy`` = filterpy time / ours, ``ratio_vs_c`` = exported C time / ours, above 1
 when socfuse is faster, ``nan`` when the C was skipped; batch at 10,000 cells).
 """
@@ -82,6 +87,75 @@ def real_recording():
         keep[k] = t[k] > last
         last = max(last, t[k])
     return Recording(t[keep], i[keep], v[keep], temp[keep], name="panasonic drive cycle 1 (10 Hz)")
+
+
+# ----------------------------------------------------------------------------- start-up (CLI)
+PAN_C20 = "panasonic_18650pf/c20_ocv_and_1c_start_of_tests/05-08-17_13.26 C20 OCV Test_C20_25dC.mat"
+PAN_HPPC = "panasonic_18650pf/hppc/03-11-17_08.47 25degC_5Pulse_HPPC_Pan18650PF.mat"
+
+
+def _socfuse_cmd() -> list:
+    """The installed console script ``socfuse`` when on PATH, else ``python -m`` of the CLI module."""
+    exe = shutil.which("socfuse")
+    return [exe] if exe else [sys.executable, "-m", "socfuse.estimator.cli.main"]
+
+
+def _timed_runs(argv, rounds, cwd):
+    """Wall and CPU (user + sys of the child) seconds of ``rounds`` runs of ``socfuse argv``; min, median."""
+    import resource
+    import statistics
+
+    walls, cpus = [], []
+    for _ in range(rounds):
+        r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        t0 = time.perf_counter()
+        p = subprocess.run(_socfuse_cmd() + [str(a) for a in argv], cwd=cwd, capture_output=True, text=True)
+        walls.append(time.perf_counter() - t0)
+        r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
+        cpus.append(r1.ru_utime - r0.ru_utime + r1.ru_stime - r0.ru_stime)
+        if p.returncode != 0:
+            raise RuntimeError(f"socfuse {' '.join(map(str, argv))} exited {p.returncode}: {p.stderr.strip()[-300:]}")
+    return min(walls), statistics.median(walls), min(cpus), statistics.median(cpus)
+
+
+def time_startup(rounds):
+    """``socfuse --help`` and a warm ``socfuse estimate`` of the real 10 Hz drive cycle, wall-clock.
+
+    The model comes from ``socfuse identify`` on the Panasonic C/20 and 25 degC HPPC files (the
+    README's commands); the recording is drive cycle 1 (3.0 h at 10 Hz, 109,637 samples) as the
+    dataset's ``.mat`` file and as a canonical-column CSV written here.  One untimed run first
+    (numba's on-disk cache filled, files in the page cache), then ``rounds`` timed runs.
+
+    Returns
+    -------
+    dict
+        ``help``, ``estimate_csv``, ``estimate_mat``: (wall min, wall median, CPU min, CPU median) in
+        s, or a str saying why it was skipped.
+    """
+    out: dict = {"help": _timed_runs(["--help"], rounds, REPO)}
+    root = Path(os.environ.get("SOCFUSE_REALDATA", REPO.parent / "shared" / "realdata"))
+    if not (root / DRIVE).exists():
+        out["estimate_csv"] = out["estimate_mat"] = "real drive cycle not found (set SOCFUSE_REALDATA)"
+        return out
+    import json
+
+    with tempfile.TemporaryDirectory() as tmp:
+        model = Path(tmp) / "pan.json"
+        _timed_runs(["identify", "--ocv-test", root / PAN_C20, "--pulse-test", root / PAN_HPPC,
+                     "--preset", "panasonic-18650pf", "-o", model], 1, tmp)
+        cap = json.loads(model.read_text())["capacity_ah"]
+        mat = ["--preset", "panasonic-18650pf", "--ref-soc0", "1", "--ref-capacity-ah", repr(cap), root / DRIVE]
+        rec = load_recording(root / DRIVE, preset="panasonic-18650pf", ref_soc0=1.0, ref_capacity_ah=cap)
+        csv = Path(tmp) / "cycle1.csv"
+        cols = {"time_s": rec.time_s, "current_a": rec.current_a, "voltage_v": rec.voltage_v,
+                "temperature_c": rec.temperature_c, "soc_ref": rec.soc_ref}
+        np.savetxt(csv, np.column_stack(list(cols.values())), fmt="%.17g", delimiter=",",
+                   header=",".join(cols), comments="")
+        for key, src in (("estimate_csv", [csv]), ("estimate_mat", mat)):
+            argv = ["estimate", "--model", model, *src, "-o", Path(tmp) / "trace.csv", "--force"]
+            _timed_runs(argv, 1, tmp)                       # warm-up: numba cache, page cache
+            out[key] = _timed_runs(argv, rounds, tmp)
+    return out
 
 
 # ----------------------------------------------------------------------------- socfuse
@@ -369,8 +443,19 @@ def main(argv=None):
     print(f"recording-parallel kernels.ekf_run_batch, 100 cells: {old:.1f} million cell-steps per CPU-second")
     print(f"batched: 10000 cells on {ncpu} cores: {batch[10000]:.1f} million cell-steps/s per CPU-second "
           f"(load average {os.getloadavg()[0]:.1f})")
+    st = time_startup(max(3, a.rounds // 2))
+    names = {"help": "socfuse --help", "estimate_csv": "warm socfuse estimate -o, drive cycle 1 as CSV",
+             "estimate_mat": "warm socfuse estimate -o, drive cycle 1 as the dataset's .mat"}
+    for key, what in names.items():
+        v = st[key]
+        if isinstance(v, str):
+            print(f"{what}: skipped, {v}")
+        else:
+            print(f"{what}: {v[0]:.2f} s wall (median {v[1]:.2f}), {v[2]:.2f} s CPU (median {v[3]:.2f})")
+    walls = {k: (float("nan") if isinstance(v, str) else v[0]) for k, v in st.items()}
     print(f"ns_per_step={ours:.1f} ratio_vs_filterpy={fp / ours:.0f} ratio_vs_c={ratio_c:.2f} "
-          f"batch_msteps_per_cpu_s={batch[10000]:.1f}")
+          f"batch_msteps_per_cpu_s={batch[10000]:.1f} help_wall_s={walls['help']:.2f} "
+          f"estimate_wall_s={walls['estimate_csv']:.2f} estimate_mat_wall_s={walls['estimate_mat']:.2f}")
 
 
 if __name__ == "__main__":

@@ -261,3 +261,77 @@ def test_mapping_options_refused_when_ambiguous_or_unknown(tmp_path):
 def test_missing_file_is_file_not_found(tmp_path):
     with pytest.raises(FileNotFoundError, match="nope.csv"):
         load_recording(tmp_path / "nope.csv")
+
+
+@pytest.mark.parametrize("cells", [["x", "1"], ["1", "x"], ["", "nan", "x"], ["1_000", "x"], ["inf", "x"],
+                                   ["  3 ", "4"], ["0x10", "1"], ["1d5", "2"], ["", "NA", "2"], ["-", "2"],
+                                   ["1e5", "2.5"], ["+.5", "-7"], ["1.5e", "2"]])
+def test_optional_text_column_same_as_pandas(cells, tmp_path):
+    # reference: pandas.to_numeric(errors="coerce"): an optional column is kept as an extra only when
+    # every non-blank cell is a finite number (blank words as in the loader's docstring)
+    import pandas as pd
+    n = len(cells)
+    body = "time_s,current_a,voltage_v,col\n" + "".join(f"{k},1.0,3.7,{c}\n" for k, c in enumerate(cells))
+    p = tmp_path / "a.csv"
+    p.write_text(body)
+    s = pd.Series([c.strip() for c in cells], dtype=object)
+    blank = (s == "") | s.str.lower().isin(["nan", "na", "n/a", "null", "none"])
+    vals = pd.to_numeric(s.where(~blank, None), errors="coerce").to_numpy(dtype=float)
+    plain = all(_plain_float(c) for c in cells)   # every cell parses as Python float: the loader's fast path
+    keep = plain or bool(np.all(np.isfinite(vals[~blank.to_numpy()])))
+    rec = load_recording(p)
+    assert ("col" in rec.metadata["extras"]) == (keep and not np.all(blank)), cells
+    assert rec.n == n
+
+
+def _plain_float(c: str) -> bool:
+    try:
+        return bool(np.isfinite(float(c)))
+    except ValueError:
+        return False
+
+
+def test_mat_cell_array_of_time_stamps(tmp_path):
+    # a cell array of text (the Panasonic 18650PF files log TimeStamp so, Kollmeyer 2018): unwrapped to
+    # strings, parsed with the strftime format when mapped as time, left out of the extras otherwise
+    p = tmp_path / "run.mat"
+    stamps = np.empty((3, 1), dtype=object)
+    stamps[:, 0] = ["3/18/2017 11:59:59 AM", "3/18/2017 12:00:00 PM", "3/18/2017 12:00:02 PM"]
+    sio.savemat(p, {"meas": {"TimeStamp": stamps, "Time": np.array([[0.0], [1.0], [3.0]]),
+                             "Current": np.array([[-1.0], [-1.5], [0.5]]), "Voltage": np.array([[3.7], [3.65], [3.8]])}})
+    rec = load_recording(p, time="Time", current="Current", voltage="Voltage", discharge_negative=True)
+    np.testing.assert_array_equal(rec.time_s, [0.0, 1.0, 3.0])
+    assert "TimeStamp" not in rec.metadata["extras"]
+    rec2 = load_recording(p, time="TimeStamp", time_unit="iso", time_format="%m/%d/%Y %I:%M:%S %p",
+                          current="Current", voltage="Voltage", discharge_negative=True)
+    np.testing.assert_array_equal(rec2.time_s, [0.0, 1.0, 3.0])   # 11:59:59 AM -> 12:00:00 PM is one second
+    np.testing.assert_array_equal(rec2.current_a, [1.0, 1.5, -0.5])
+
+
+@pytest.mark.parametrize("text", [
+    CANON,
+    "time_s,current_a,voltage_v,\n0,1.0,3.70,\n1,1.5,3.65,\n",                       # trailing separator
+    "time_s;current_a;voltage_v;note\n0;1,0;3,70;a\n1;1,5;3,65;b\n",                   # ; and decimal comma
+    "time_s\tcurrent_a\tvoltage_v\n0\t1.0\t3.7\n1\t1.5\t 3.65 \n",
+    "time_s,current_a,,voltage_v,x,x\n0,1.0,7,3.7,1,2\n1,1.5,8,3.65,3,4\n",           # unnamed, repeated names
+    "time_s,current_a,voltage_v\ns,A,V\n0,1.0,3.70\n1,1.5,3.65\n",                    # units row: general loop
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n,,\n1,1.5,3.65\n",                       # blank row: general loop
+    'time_s,current_a,voltage_v\n0,"1.0",3.70\n1,1.5,3.65\n',                         # quotes: general loop
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65",                             # no final line end
+    "time_s,current_a,voltage_v\n0,1.0,\u30003.70\n1,1.5,3.65\n",
+])
+def test_plain_csv_rows_read_as_the_csv_module_reads_them(text, tmp_path, monkeypatch):
+    # reference: Python's csv.reader (the general loop); the plain-row shortcut must give the same table
+    from socfuse.models import loaders as L
+    p = tmp_path / "a.csv"
+    p.write_bytes(text.encode())
+    sep = ";" if ";" in text else None
+    cm = L.make_column_map(separator=sep, decimal="," if sep == ";" else ".")
+    fast = L._read_csv_text(p, cm)
+    monkeypatch.setattr(L, "_plain_fields", lambda *a: None)
+    slow = L._read_csv_text(p, cm)
+    assert list(fast.columns) == list(slow.columns)
+    for k in fast.columns:
+        assert fast.columns[k].tolist() == slow.columns[k].tolist(), k
+    np.testing.assert_array_equal(fast.file_lines, slow.file_lines)
+    assert fast.info == slow.info

@@ -71,3 +71,42 @@ def test_cli_writes_the_same_file(tmp_path):
     back = pd.read_csv(out)
     assert list(back.columns[:6]) == DESIGN_COLUMNS
     assert len(back) == rec.n
+
+
+def test_every_float_prints_as_python_printf():
+    # reference: Python's printf-style "%.8g" (correctly rounded; ISO C99 7.19.6.1 conversion g):
+    # ties and near-ties of the 8th digit, powers of ten on both sides of the fixed/exponent switch
+    # (exponents -5/-4 and 7/8), values that round up to the next power, signed zero, subnormals
+    rng = np.random.default_rng(11)
+    edge = [0.0, -0.0, 0.5, 2.5, 1e-5, 1e-4, 9.99999995e-5, 99999999.5, 99999995.0, 12345678.5, 1e7, 1e8,
+            123456789.0, 0.1 + 0.2, 1e-300, 5e-324, 1.7976931348623157e308, -1e22, 1e23, np.inf, -np.inf, np.nan]
+    decimal_exact = rng.integers(-10 ** 9, 10 ** 9, 4000) * 10.0 ** rng.integers(-12, 12, 4000)  # ties
+    wide = rng.standard_normal(4000) * 10.0 ** rng.integers(-30, 30, 4000)
+    k = rng.integers(0, 10, 4000)
+    short = np.floor(rng.random(4000) * 10.0 ** k) / 10.0 ** k                          # trailing zeros
+    pw = np.array([s * 10.0 ** e * f for s in (1, -1) for e in range(-20, 25) for f in (1.0, 1 - 2e-16, 1 + 2e-16)])
+    x = np.concatenate([edge, decimal_exact, wide, short, pw])
+    from socfuse.estimator.outputs.trace_csv import format_columns
+    got = format_columns({"x": x}).decode().split("\n")[1:-1]
+    want = [("%.8g" % v).replace("nan", "") for v in x.tolist()]
+    assert got == want
+
+
+def test_estimate_writes_the_trace_without_pandas(tmp_path):
+    # the writer takes Trace.columns(): `socfuse estimate -o` on a canonical CSV never imports pandas
+    import subprocess
+    import sys
+    m, _ = _trace()
+    from socfuse.models.modelfile import save_model
+    rec, _ = simulated_recording(m, n=300, soc0=0.6, seed=5)
+    rec_path = tmp_path / "rec.csv"
+    pd.DataFrame({"time_s": rec.time_s, "current_a": rec.current_a, "voltage_v": rec.voltage_v}).to_csv(
+        rec_path, index=False)
+    save_model(m, tmp_path / "model.json")
+    code = ("import sys; from socfuse.estimator.cli.main import main\n"
+            f"rc = main(['estimate', '--model', {str(tmp_path / 'model.json')!r}, {str(rec_path)!r}, '-o', "
+            f"{str(tmp_path / 't.csv')!r}])\n"
+            "print(rc, 'pandas' in sys.modules)")
+    out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
+    assert out.strip().splitlines()[-1] == "0 False"
+    assert pd.read_csv(tmp_path / "t.csv").shape[0] == rec.n

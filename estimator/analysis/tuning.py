@@ -91,6 +91,7 @@ from scipy import optimize
 from socfuse.estimator.analysis.consistency import ConsistencyResult, nis_test
 from socfuse.estimator.filters.ekf import run_ekf_batch_raw
 from socfuse.estimator.filters.settings import FilterSettings, default_settings
+from socfuse.estimator.filters.tables import KernelTables
 
 __all__ = ["TUNABLE", "TuneResult", "TuningError", "default_params", "ekf_raw", "innovation_nll",
            "whitened_nll", "physical_bounds", "evaluate", "tune", "handover_index", "AlsResult", "als_noise",
@@ -365,7 +366,7 @@ class TuneResult:
 
 
 # ----------------------------------------------------------------------------- evaluation
-def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=None) -> dict:
+def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=None, tables=None) -> dict:
     """Run the compiled batched EKF and return the raw arrays (no Trace, no energy SOC).
 
     The same kernel and priors as :func:`estimator.filters.ekf.run_ekf_batch`, for loops that only
@@ -380,6 +381,9 @@ def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=N
         Initial SOC per recording, fraction.
     capacity_scales : sequence of float, optional
         Per-recording multiplier of the capacity the filter assumes.
+    tables : KernelTables, optional
+        The model's kernel tables at ``settings.n_soc_grid``, built once by the caller (a search
+        over noise settings never changes them); default: built here.
 
     Returns
     -------
@@ -387,7 +391,7 @@ def ekf_raw(model, recs, settings: FilterSettings, soc0s=None, capacity_scales=N
     (all concatenated over the recordings, total length sum N) and ``n_gated`` (M,).
     """
     try:
-        raw = run_ekf_batch_raw(model, recs, settings, soc0s, capacity_scales)
+        raw = run_ekf_batch_raw(model, recs, settings, soc0s, capacity_scales, tables)
     except ValueError as e:
         raise TuningError(str(e)) from None
     return {k: raw[k] for k in ("offsets", "soc", "soc_sigma", "innovation_v", "innovation_var_v2", "n_gated")}
@@ -809,12 +813,15 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
                    for p, a, b in zip(params, lo, hi)])
     x0 = np.clip(x0, lo, hi)
     lay = _layout(model, recs, unseen, soc0s, holdout_fraction, objective == "soc-error" and wrong_start)
+    # the tuned settings are noise figures: the kernel tables (model x n_soc_grid) are the same for
+    # every evaluation, so they are built once
+    tables = KernelTables.from_model(model, start.n_soc_grid)
 
     def to_settings(x):
         return start.with_(**{p: float(10.0 ** v) for p, v in zip(params, np.clip(x, lo, hi))})
 
     def run(st):
-        return _scores(ekf_raw(model, lay.recs, st, lay.soc0s), lay, likelihood, confidence)
+        return _scores(ekf_raw(model, lay.recs, st, lay.soc0s, tables=tables), lay, likelihood, confidence)
 
     cache: dict = {}
     history = []
@@ -860,7 +867,8 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         lay_ws = _layout(model, recs, unseen, soc0s, holdout_fraction, True)
         if lay_ws.ws_hold.size:
             for sc, st in ((sc_before, start), (sc_after, tuned)):
-                extra = _scores(ekf_raw(model, lay_ws.recs, st, lay_ws.soc0s), lay_ws, likelihood, confidence)
+                extra = _scores(ekf_raw(model, lay_ws.recs, st, lay_ws.soc0s, tables=tables), lay_ws, likelihood,
+                                confidence)
                 if "wrong_start_rmse" in extra["hold"]:
                     sc["hold"]["wrong_start_rmse"] = extra["hold"]["wrong_start_rmse"]
     reasons, warnings = [], []
@@ -922,7 +930,7 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         warnings.append("the innovations are correlated in time (whiteness test failed): the NIS mean says little "
                         "about consistency; the hold-out figures are the evidence")
 
-    transfer = _transfer(model, lay, start, tuned, recs, unseen, soc0s, holdout_fraction, likelihood)
+    transfer = _transfer(model, lay, start, tuned, recs, unseen, soc0s, holdout_fraction, likelihood, tables)
     n = sc_after["train"].get("n", 0)
     return TuneResult(
         settings=tuned, start=start, objective=objective, params=params,
@@ -938,11 +946,11 @@ def tune(model, recs, settings: FilterSettings | None = None, objective: str = "
         likelihood=likelihood)
 
 
-def _transfer(model, lay, start, tuned, recs, unseen, soc0s, holdout_fraction, likelihood) -> tuple:
+def _transfer(model, lay, start, tuned, recs, unseen, soc0s, holdout_fraction, likelihood, tables=None) -> tuple:
     """Per-recording figures of start and tuned settings (tuning window, hold-out window, unseen)."""
     base = list(recs) + list(unseen)
     z0 = list(soc0s) + [None] * len(unseen)
-    raws = [ekf_raw(model, base, st, z0) for st in (start, tuned)]
+    raws = [ekf_raw(model, base, st, z0, tables=tables) for st in (start, tuned)]
     off = raws[0]["offsets"]
     rows = []
     for j, r in enumerate(base):

@@ -10,7 +10,8 @@ def register(sub) -> None:
     p = sub.add_parser(
         "demo", help=COMMAND_HELP["demo"],
         description="Identify demo cell C48 from its lab tests, tune the filter, benchmark EKF, UKF and the "
-                    "coulomb baseline under fault scenarios on the demo delivery days, run a tolerance study, "
+                    "coulomb baseline under fault scenarios on the demo delivery days (the UKF, slow, on the first "
+                    "2 h of the lunch-break day only), run a tolerance study, "
                     "write DIR/report.html, DIR/summary.csv, DIR/model.json, DIR/filter.json and the C export "
                     "DIR/c/, and print the summary table. The fault defaults are common practice for "
                     "automotive sensors (no source): current offset 0.5 % of a 5C full scale, gain 1 %, "

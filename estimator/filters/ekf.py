@@ -457,7 +457,7 @@ def batch_inputs(recs, soc0s, capacity_scales, noun: str = "recordings"):
 
 
 def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s=None,
-                     capacity_scales=None) -> dict:
+                     capacity_scales=None, tables: KernelTables | None = None) -> dict:
     """The batched EKF (numba ``prange`` over recordings), returning the raw arrays.
 
     For loops that need only the states and innovations (tuning, Monte Carlo), without building
@@ -469,6 +469,9 @@ def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s
     soc0s : None, float or sequence of (float or None), optional  per-recording initial SOC
     capacity_scales : None or sequence of float, optional
         Per-recording multiplier of the model capacity the filter assumes (Monte Carlo).
+    tables : KernelTables, optional
+        ``KernelTables.from_model(model, settings.n_soc_grid)`` built once by a caller that runs
+        many settings over one model (tuning); default: built (or cached) here.
 
     Returns
     -------
@@ -477,7 +480,7 @@ def run_ekf_batch_raw(model, recs, settings: FilterSettings | None = None, soc0s
     recordings), ``n_gated`` (M,), ``capacity_scales`` (M,) and ``setup``.
     """
     recs, m, soc0s, scales = batch_inputs(recs, soc0s, capacity_scales, "recordings")
-    su = setup(model, settings)
+    su = setup(model, settings, tables)
     lens = np.array([r.n for r in recs], dtype=np.int64)
     offsets = np.concatenate([[0], np.cumsum(lens)]).astype(np.int64)
     nx = su.n_x

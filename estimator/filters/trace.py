@@ -61,14 +61,27 @@ class Trace:
         return int(self.time_s.size)
 
     def to_frame(self, states: bool = False):
-        """DataFrame with the DESIGN.md trace columns.
-
-        ``time_s, soc, soc_sigma, voltage_pred_v, innovation_v, soc_e, energy_wh_remaining``
-        and ``soc_ref, soc_error`` when the recording has a reference; ``states=True`` adds
-        the other state columns (``v_rc_1_v``..., ``bias_a``, ``hyst``).
-        """
+        """DataFrame with the DESIGN.md trace columns (:meth:`columns`)."""
         import pandas as pd
 
+        return pd.DataFrame(self.columns(states))
+
+    def columns(self, states: bool = False) -> dict:
+        """The DESIGN.md trace columns by name, in file order (no pandas needed).
+
+        ``time_s, soc, soc_sigma, voltage_pred_v, innovation_v, soc_e, energy_wh_remaining``
+        and ``soc_ref, soc_error`` when the recording has a reference, ``status``; ``states=True``
+        adds the other state columns (``v_rc_1_v``..., ``bias_a``, ``hyst``).
+
+        Parameters
+        ----------
+        states : bool
+            Add the state columns after SOC.
+
+        Returns
+        -------
+        dict of str to ndarray, each shape (N,)
+        """
         cols: dict[str, Any] = {"time_s": self.time_s, "soc": self.soc, "soc_sigma": self.soc_sigma,
                 "voltage_pred_v": self.voltage_pred_v, "innovation_v": self.innovation_v}
         if self.soc_e is not None:
@@ -83,7 +96,7 @@ class Trace:
         if states:
             for j, nm in enumerate(self.state_names[1:], start=1):
                 cols[nm] = self.states[:, j]
-        return pd.DataFrame(cols)
+        return cols
 
 
 def state_names(n_rc: int, bias: bool, hyst: bool, model_error: bool = False) -> tuple:
