@@ -24,7 +24,7 @@ from socfuse.estimator.filters.tables import KernelTables
 from socfuse.estimator.filters.trace import Trace, make_trace, state_names
 
 __all__ = ["EkfSetup", "batch_inputs", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
-           "run_ekf_store", "temperature_array"]
+           "run_ekf_store", "temperature_array", "envelope_c"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -130,10 +130,8 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_ADAPT] = s.model_error_adapt_s
     prm[K.P_GAP] = s.gap_s
     prm[K.P_RCORR] = s.resistance_error_corr_s
-    # operating envelope: the model's temperature tables plus a margin (NaN temperatures are 25 degC)
-    t_hi = tab.t_max
-    prm[K.P_TENV_LO] = min(tab.t_min, K.DEFAULT_TEMP_C) - K.ENVELOPE_MARGIN_C
-    prm[K.P_TENV_HI] = max(t_hi, K.DEFAULT_TEMP_C) + K.ENVELOPE_MARGIN_C
+    # operating envelope: the model's temperature tables plus a margin
+    prm[K.P_TENV_LO], prm[K.P_TENV_HI] = envelope_c(tab)
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
     v_span = float(model.v_max_v - model.v_min_v)
     prm[K.P_IMAX] = K.I_MAX_C * float(model.capacity_ah)
@@ -149,6 +147,32 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
             _SETUP_CACHE.clear()
         _SETUP_CACHE[key] = (model, out)
     return out
+
+
+def envelope_c(tab: KernelTables) -> tuple[float, float]:
+    """The operating envelope ``(lo, hi)`` in degC: where the filter uses the voltage.
+
+    A model with a temperature axis: its breakpoints widened to include 25 degC (where missing
+    temperatures are placed), plus :data:`estimator.filters.kernels.ENVELOPE_MARGIN_C` on either
+    side.  A model with one temperature row (a single-temperature model at its identified
+    temperature, or a temperature-free one at 25 degC): that temperature plus and minus the
+    margin, valid around the temperature it was identified at (a 0 degC model on a 0 degC drive
+    uses the voltage; the same model at 25 degC counts charge only).
+
+    Parameters
+    ----------
+    tab : KernelTables
+
+    Returns
+    -------
+    lo, hi : float
+        degC.
+    """
+    if tab.temp_grid.size == 1:
+        t0 = float(tab.temp_grid[0])
+        return t0 - K.ENVELOPE_MARGIN_C, t0 + K.ENVELOPE_MARGIN_C
+    return (min(tab.t_min, K.DEFAULT_TEMP_C) - K.ENVELOPE_MARGIN_C,
+            max(tab.t_max, K.DEFAULT_TEMP_C) + K.ENVELOPE_MARGIN_C)
 
 
 def temperature_array(rec) -> np.ndarray:
