@@ -112,11 +112,30 @@ def test_c_and_python_start_alike_when_the_first_voltages_are_outside_the_envelo
     assert res.max_soc_diff is not None and res.max_soc_diff < 1e-4, res.max_soc_diff
 
 
+@needs_cc
+def test_a_missing_temperature_is_the_models_own(tmp_path):
+    # no temperature column: a single-temperature model assumes the temperature it was identified at
+    # (a temperature-free model 25 degC, as before), in Python and in C
+    m = cold_single_model(axis=False)
+    rec = _cold_drive(m, n=900)
+    blind = rec.with_(temperature_c=None)
+    tr = run_ekf(m, blind, None, soc0=0.5, monitor=True)
+    assert not np.any(tr.status & K.ST_ENVELOPE)
+    assert abs(tr.soc[-1] - rec.soc_ref[-1]) < 0.05
+    assert setup(m).prm[K.P_TDEF] == 0.0 and setup(m.with_(provenance={})).prm[K.P_TDEF] == 25.0
+    temp = rec.temperature_c.copy()
+    temp[100:200] = np.nan                                # a few missing samples, through the C code too
+    res = export_c(m, None, tmp_path / "c", rec.with_(temperature_c=temp))
+    assert res.harness_exit == 0
+    assert res.max_soc_diff is not None and res.max_soc_diff < 1e-4, res.max_soc_diff
+
+
 def test_models_with_a_temperature_axis_keep_their_envelope():
     # unchanged rule for an axis: the breakpoints widened to 25 degC, plus the margin
     su = setup(tiny_model(temperature=True))                 # tables over 5..45 degC
     assert su.prm[K.P_TENV_LO] == 5.0 - K.ENVELOPE_MARGIN_C
     assert su.prm[K.P_TENV_HI] == 45.0 + K.ENVELOPE_MARGIN_C
+    assert su.prm[K.P_TDEF] == K.DEFAULT_TEMP_C             # missing temperatures: 25 degC, as before
 
 
 def test_real_0degc_hppc_model_on_the_0degc_drive(realdata):
@@ -151,3 +170,7 @@ def test_real_0degc_hppc_model_on_the_0degc_drive(realdata):
     e = tr.soc - cyc.soc_ref
     assert np.sqrt(np.mean(e ** 2)) < 0.03
     assert np.max(np.abs(e)) < 0.06
+    # the same log without its temperature column: the model's own 0.56 degC is assumed (measured:
+    # the same 12,295 samples left out; before, at 25 degC outside the centred envelope, all of them)
+    blind = estimate(m, cyc.with_(temperature_c=None), "ekf")
+    assert np.count_nonzero((blind.status & K.ST_ENVELOPE) == 0) > 0.8 * cyc.n

@@ -172,6 +172,12 @@ class KernelTables:
         """Mean spacing of the temperature rows, degC (informational: the look-up searches the axis)."""
         return (self.t_max - self.t_min) / (self.temp_grid.size - 1) if self.temp_grid.size > 1 else 1.0
 
+    @property
+    def default_temperature_c(self) -> float:
+        """Temperature assumed for a missing or implausible sample, degC: the one row's temperature
+        of a single-temperature model (where it is valid), else 25 degC (the lab convention)."""
+        return float(self.temp_grid[0]) if self.temp_grid.size == 1 else 25.0
+
     def lookup(self, row: int, soc, temperature_c=None):
         """Python-side bilinear look-up of one packed row (the kernel's rule; for tests/plots)."""
         from socfuse.estimator.filters.kernels import table_value
