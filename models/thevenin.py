@@ -243,6 +243,47 @@ class CellModel:
     def n_rc(self) -> int:
         return len(self.rc)
 
+    def table_temperatures_c(self) -> np.ndarray:
+        """Every temperature breakpoint of the OCV, R0, RC (and charge-transfer) tables, degC.
+
+        Sorted, duplicates within 1e-9 degC merged; one-point axes included; empty when no table
+        has a temperature axis.
+        """
+        pts: list = []
+        ct = self.charge_transfer
+        for a in (self.ocv.temperature_c, self.r0_ohm.temperature_c,
+                  *[p.r_ohm.temperature_c for p in self.rc], *[p.tau_s.temperature_c for p in self.rc],
+                  None if ct is None else ct.temperature_c):
+            if a is not None:
+                pts.extend(np.asarray(a, dtype=float).ravel().tolist())
+        return np.unique(np.round(pts, 9)).astype(float) if pts else np.zeros(0)
+
+    @property
+    def identified_temperature_c(self) -> float | None:
+        """The one temperature at which a single-temperature model was identified, degC (else None).
+
+        A model whose tables carry no temperature variation (no axis with two or more breakpoints)
+        holds at one temperature: the value of its one-point temperature axes when they agree, else
+        the pulse-test temperature recorded by ``identify`` in ``provenance["r0_ohm"]
+        ["temperatures_c"]`` when it lists exactly one.  None for a model with a temperature axis
+        (its breakpoints say where it holds) and for a model with no temperature information at
+        all (callers then assume 25 degC, the lab convention).
+        """
+        temps = self.table_temperatures_c()
+        if temps.size > 1:
+            return None
+        if temps.size == 1:
+            return float(temps[0])
+        rec = self.provenance.get("r0_ohm") if isinstance(self.provenance, Mapping) else None
+        vals = rec.get("temperatures_c") if isinstance(rec, Mapping) else None
+        if isinstance(vals, (list, tuple, np.ndarray)) and len(vals) == 1:
+            try:
+                t = float(np.asarray(vals, dtype=float).ravel()[0])
+            except (TypeError, ValueError):
+                return None
+            return t if np.isfinite(t) else None
+        return None
+
     def with_(self, **changes) -> "CellModel":
         """Copy with some fields replaced (the model itself is immutable)."""
         return replace(self, **changes)

@@ -24,7 +24,7 @@ from socfuse.estimator.filters.tables import KernelTables
 from socfuse.estimator.filters.trace import Trace, make_trace, state_names
 
 __all__ = ["EkfSetup", "batch_inputs", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
-           "run_ekf_store", "temperature_array"]
+           "run_ekf_store", "temperature_array", "envelope_c"]
 
 
 @dataclass(frozen=True, eq=False)
@@ -130,10 +130,9 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_ADAPT] = s.model_error_adapt_s
     prm[K.P_GAP] = s.gap_s
     prm[K.P_RCORR] = s.resistance_error_corr_s
-    # operating envelope: the model's temperature tables plus a margin (NaN temperatures are 25 degC)
-    t_hi = tab.t_max
-    prm[K.P_TENV_LO] = min(tab.t_min, K.DEFAULT_TEMP_C) - K.ENVELOPE_MARGIN_C
-    prm[K.P_TENV_HI] = max(t_hi, K.DEFAULT_TEMP_C) + K.ENVELOPE_MARGIN_C
+    # operating envelope: the model's temperature tables plus a margin
+    prm[K.P_TENV_LO], prm[K.P_TENV_HI] = envelope_c(tab)
+    prm[K.P_TDEF] = tab.default_temperature_c   # missing / implausible temperatures (25 but for one row)
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
     v_span = float(model.v_max_v - model.v_min_v)
     prm[K.P_IMAX] = K.I_MAX_C * float(model.capacity_ah)
@@ -151,22 +150,51 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     return out
 
 
-def temperature_array(rec) -> np.ndarray:
-    """Per-sample temperature (degC) with missing values at 25 degC.
+def envelope_c(tab: KernelTables) -> tuple[float, float]:
+    """The operating envelope ``(lo, hi)`` in degC: where the filter uses the voltage.
+
+    A model with a temperature axis: its breakpoints widened to include 25 degC (where missing
+    temperatures are placed), plus :data:`estimator.filters.kernels.ENVELOPE_MARGIN_C` on either
+    side.  A model with one temperature row (a single-temperature model at its identified
+    temperature, or a temperature-free one at 25 degC): that temperature plus and minus the
+    margin, valid around the temperature it was identified at (a 0 degC model on a 0 degC drive
+    uses the voltage; the same model at 25 degC counts charge only).
+
+    Parameters
+    ----------
+    tab : KernelTables
+
+    Returns
+    -------
+    lo, hi : float
+        degC.
+    """
+    if tab.temp_grid.size == 1:
+        t0 = float(tab.temp_grid[0])
+        return t0 - K.ENVELOPE_MARGIN_C, t0 + K.ENVELOPE_MARGIN_C
+    return (min(tab.t_min, K.DEFAULT_TEMP_C) - K.ENVELOPE_MARGIN_C,
+            max(tab.t_max, K.DEFAULT_TEMP_C) + K.ENVELOPE_MARGIN_C)
+
+
+def temperature_array(rec, default_c: float = K.DEFAULT_TEMP_C) -> np.ndarray:
+    """Per-sample temperature (degC) with missing values at ``default_c`` (25 degC).
 
     Parameters
     ----------
     rec : Recording
+    default_c : float
+        Temperature for a missing sample, degC (the filters pass
+        :attr:`KernelTables.default_temperature_c`: a single-temperature model's own temperature).
 
     Returns
     -------
     numpy.ndarray, shape (n,)
-        Temperature, degC (25 where the recording has none or a sample is not finite).
+        Temperature, degC (``default_c`` where the recording has none or a sample is not finite).
     """
     if rec.temperature_c is None:
-        return np.full(rec.n, K.DEFAULT_TEMP_C)
+        return np.full(rec.n, float(default_c))
     t = np.asarray(rec.temperature_c, dtype=float)
-    return np.where(np.isfinite(t), t, K.DEFAULT_TEMP_C)
+    return np.where(np.isfinite(t), t, float(default_c))
 
 
 def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True) -> tuple[float, float]:
@@ -206,7 +234,8 @@ def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True
         if not np.isfinite(soc0):
             raise ValueError(f"soc0 must be finite, got {soc0}")
         sig = s.p0_soc
-        t0 = float(temperature_array(rec)[0]) if rec.n else K.DEFAULT_TEMP_C
+        t_def = float(su.prm[K.P_TDEF])
+        t0 = float(temperature_array(rec, t_def)[0]) if rec.n else t_def
         if check and rec.n and np.isfinite(v[0]) and su.prm[K.P_TENV_LO] <= t0 <= su.prm[K.P_TENV_HI]:
             # hand-over check (inside the operating envelope): widen the given sigma to cover a
             # disagreement with the voltage
@@ -218,7 +247,7 @@ def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True
         raise ValueError(f"recording {rec.name!r}: no finite voltage sample to start from; give soc0")
     k = int(ok[0])
     z, sig = K.soc_from_voltage_start(su.tables.packed, su.n_rc, su.prm, float(v[k]), float(rec.current_a[k]),
-                                      float(temperature_array(rec)[k]))
+                                      float(temperature_array(rec, float(su.prm[K.P_TDEF]))[k]))
     return float(z), float(sig)
 
 
@@ -287,24 +316,27 @@ def prior(su: EkfSetup, z0: float, sig0: float):
     return _prior(su, z0, sig0)
 
 
-def recording_arrays(rec):
+def recording_arrays(rec, default_temperature_c: float = K.DEFAULT_TEMP_C):
     """``(time_s, current_a, voltage_v, temperature_c)`` as contiguous float arrays for the kernels.
 
     Parameters
     ----------
     rec : Recording
+    default_temperature_c : float
+        Temperature for missing samples, degC (pass ``su.prm[kernels.P_TDEF]`` of the setup, as the
+        single-run filter does).
 
     Returns
     -------
     time_s, current_a, voltage_v, temperature_c : numpy.ndarray, shape (n,)
-        s, A (positive on discharge), V and degC (missing temperatures at 25 degC).
+        s, A (positive on discharge), V and degC (missing temperatures at ``default_temperature_c``).
     """
-    return _arrays(rec)
+    return _arrays(rec, default_temperature_c)
 
 
-def _arrays(rec):
+def _arrays(rec, default_temperature_c: float = K.DEFAULT_TEMP_C):
     return (np.ascontiguousarray(rec.time_s, dtype=float), np.ascontiguousarray(rec.current_a, dtype=float),
-            np.ascontiguousarray(rec.voltage_v, dtype=float), temperature_array(rec))
+            np.ascontiguousarray(rec.voltage_v, dtype=float), temperature_array(rec, default_temperature_c))
 
 
 def checked_inputs(su: EkfSetup, rec):
@@ -313,7 +345,7 @@ def checked_inputs(su: EkfSetup, rec):
     Returns ``(recording, status)``: held currents, missing voltages and default temperatures in
     place of implausible samples, and the per-sample status bits (``ST_REJ_*``).
     """
-    t, i, v, tc = _arrays(rec)
+    t, i, v, tc = _arrays(rec, float(su.prm[K.P_TDEF]))
     n = rec.n
     ci, cv, ct, st = np.empty(n), np.empty(n), np.empty(n), np.zeros(n, dtype=np.int64)
     K.check_inputs(i, v, tc, su.prm, ci, cv, ct, st)
@@ -336,7 +368,7 @@ def _run(model, rec, settings, soc0, store, monitor=False):
     sig, vp, inn, sv = np.empty(n), np.empty(n), np.empty(n), np.empty(n)
     shape = (n, nx, nx) if store else (1, nx, nx)
     p_out, pp_out, f_out = np.empty(shape), np.empty(shape), np.empty(shape)
-    t, i, v, tc = _arrays(rec)
+    t, i, v, tc = _arrays(rec, float(su.prm[K.P_TDEF]))
     if monitor:
         healthy = np.zeros(n, dtype=np.int64)
         gated = K.ekf_run_monitored(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, x0,

@@ -99,7 +99,7 @@ from socfuse.models.simulation import charge_transfer_v
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "P_TDEF", "N_PRM", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor", "layout", "layout_size", "specialised",
@@ -111,7 +111,8 @@ P_CAP, P_ETA, P_HG, P_HM, P_TMIN, P_TSTEP, P_GREL = 9, 10, 11, 12, 13, 14, 15
 P_SE, P_TAUE, P_CAPERR, P_RERR, P_VCORR = 16, 17, 18, 19, 20
 P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC, P_ADAPT, P_GAP, P_RCORR = 21, 22, 23, 24, 25, 26, 27, 28
 P_TENV_LO, P_TENV_HI = 29, 30
-N_PRM = 31
+P_TDEF = 31  # temperature used for a missing or implausible sample, degC (estimator.filters.ekf.setup)
+N_PRM = 32
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -837,7 +838,8 @@ def check_inputs(current_a, voltage_v, temp_c, prm, cur_out, volt_out, temp_out,
     valid one (0 before any) and flagged ``ST_REJ_CURRENT``; a voltage that is not finite or
     outside ``[prm[P_VLO], prm[P_VHI]]`` becomes missing (predict only) and is flagged
     ``ST_REJ_VOLTAGE`` (a missing voltage too); a temperature outside :data:`T_LIMITS_C` is
-    flagged ``ST_REJ_TEMP`` and, like a missing one (NaN, not flagged), replaced by 25 degC.
+    flagged ``ST_REJ_TEMP`` and, like a missing one (NaN, not flagged), replaced by ``prm[P_TDEF]``
+    (25 degC; a single-temperature model's own temperature).
     Writes the cleaned arrays and the status bits (N,); returns nothing.
     """
     n = current_a.size
@@ -859,7 +861,7 @@ def check_inputs(current_a, voltage_v, temp_c, prm, cur_out, volt_out, temp_out,
         if not (_finite(tk) and T_LIMITS_C[0] <= tk <= T_LIMITS_C[1]):
             if tk == tk:
                 st |= ST_REJ_TEMP
-            tk = DEFAULT_TEMP_C
+            tk = prm[P_TDEF]
         temp_out[k] = tk
         status_out[k] = st
 

@@ -30,7 +30,9 @@ _MAX_T = 64
 def _temperature_grid(model) -> np.ndarray:
     """Every temperature breakpoint of the model's tables (sorted, duplicates within 1e-9 degC merged).
 
-    The union over the OCV, R0 and RC tables; a single 25 degC row for a temperature-free model.
+    The union over the OCV, R0 and RC tables.  A model without a temperature axis has one row: at
+    its identified temperature (:attr:`models.thevenin.CellModel.identified_temperature_c`, the
+    pulse test's) when it records one, else at 25 degC.
     """
     pts = []
     ct = getattr(model, "charge_transfer", None)
@@ -40,7 +42,8 @@ def _temperature_grid(model) -> np.ndarray:
         if a is not None and len(a) > 1:
             pts.extend(np.asarray(a, dtype=float).tolist())
     if not pts:
-        return np.array([25.0])
+        t0 = getattr(model, "identified_temperature_c", None)
+        return np.array([25.0 if t0 is None else float(t0)])
     u = np.unique(np.round(pts, 9))
     if u.size > _MAX_T:
         raise ValueError(f"the model has {u.size} distinct temperature breakpoints; the kernel tables take at "
@@ -56,7 +59,8 @@ class KernelTables:
     ----------
     soc_grid : ndarray (n_s,)  uniform over [0, 1]
     temp_grid : ndarray (n_t,)  every temperature breakpoint of the model, increasing, degC (a single
-        25 degC row for a temperature-free model)
+        row at the identified temperature for a single-temperature model, at 25 degC for a model
+        with no temperature information)
     packed : ndarray (5 + 2 n_rc, n_t, n_s)   the table rows and, last, the temperature axis
     ocv, docv : ndarray (n_t, n_s)   OCV (V) and dOCV/dSOC (V per unit SOC, the PCHIP derivative)
     r0, dr0 : ndarray (n_t, n_s)     R0 (ohm) and dR0/dSOC (ohm per unit SOC, central differences)
@@ -167,6 +171,12 @@ class KernelTables:
     def t_step(self) -> float:
         """Mean spacing of the temperature rows, degC (informational: the look-up searches the axis)."""
         return (self.t_max - self.t_min) / (self.temp_grid.size - 1) if self.temp_grid.size > 1 else 1.0
+
+    @property
+    def default_temperature_c(self) -> float:
+        """Temperature assumed for a missing or implausible sample, degC: the one row's temperature
+        of a single-temperature model (where it is valid), else 25 degC (the lab convention)."""
+        return float(self.temp_grid[0]) if self.temp_grid.size == 1 else 25.0
 
     def lookup(self, row: int, soc, temperature_c=None):
         """Python-side bilinear look-up of one packed row (the kernel's rule; for tests/plots)."""

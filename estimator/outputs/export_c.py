@@ -238,6 +238,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         noise_corr_s=c_float(s.noise_corr_s), model_error_adapt_s=c_float(s.model_error_adapt_s),
         adapt_cap=c_float(_K.ADAPT_CAP), gap_s=c_float(s.gap_s),
         tenv_lo=c_float(su.prm[_K.P_TENV_LO]), tenv_hi=c_float(su.prm[_K.P_TENV_HI]),
+        default_temp_c=c_float(su.prm[_K.P_TDEF]),
         resistance_error_corr_s=c_float(s.resistance_error_corr_s), n_t=int(packed.shape[1]), n_s=n_s,
         n_bisect=int(math.ceil(math.log2(max(n_s - 1, 2)))) + 1,
         capacity_as=c_float(tab.capacity_as), eta_charge=c_float(tab.eta_charge), hyst_gamma=c_float(tab.hyst_gamma),
@@ -596,8 +597,13 @@ def _readme(model, settings, fp: Footprint, golden_rows, golden_name, meas, note
         "",
         "- Input checks: dt not finite or <= 0 ignores the sample; a NaN or implausible current "
         f"(|i| > {100.0 * model.capacity_ah:g} A) holds the last valid current; a NaN or implausible voltage "
-        "(outside the model limits widened by half their span) is predict-only; a NaN temperature uses 25 degC "
-        f"as in Python, an implausible one (outside {T_LIMITS_C[0]:g}..{T_LIMITS_C[1]:g} degC) too. All are counted.",
+        "(outside the model limits widened by half their span) is predict-only; a NaN temperature uses "
+        f"{su.prm[_K.P_TDEF]:g} degC (25, or a single-temperature model's own) as in Python, an implausible one (outside {T_LIMITS_C[0]:g}..{T_LIMITS_C[1]:g} degC) too. All are counted.",
+        f"- Operating envelope: a voltage measured outside {su.prm[_K.P_TENV_LO]:g}..{su.prm[_K.P_TENV_HI]:g} degC "
+        "(the model's temperature rows plus a margin; a single-temperature model is valid around the "
+        "temperature it was identified at) is predict-only (`SFX_ST_ENVELOPE`). Without `soc0` the filter "
+        "starts from the first valid voltage sample even there, as Python does, and updates from the voltage "
+        "once the temperature is inside.",
         f"- Covariance: symmetrised after every update (as in Python) and its diagonal floored at {P_FLOOR:g}.",
         f"- Health: unhealthy when a value is not finite or a state leaves its physical range (|RC voltage| > "
         f"{v_span:g} V, |bias| above the current limit, |h| > 1.5; the EKF is then restarted from the baseline "
