@@ -205,7 +205,7 @@ def prepare(model, rec, settings: FilterSettings | None = None, soc0: float | No
         start = loaded_start(model, rec, s)
         if start is not None:
             soc0, s = start[0], s.with_(p0_soc=start[1])
-    elif check_handover and math.isfinite(float(soc0)):
+    elif check_handover and math.isfinite(float(soc0)) and _inside_envelope(model, rec, s):
         start = loaded_start(model, rec, s)
         if start is not None:
             from socfuse.estimator.filters.ekf import handover
@@ -224,6 +224,17 @@ def prepare(model, rec, settings: FilterSettings | None = None, soc0: float | No
     if np.any(outside):
         rec = rec.with_(voltage_v=np.where(outside, np.nan, v))
     return rec, s, soc0, outside
+
+
+def _inside_envelope(model, rec, s) -> bool:
+    """Whether the first sample's temperature is inside the filters' operating envelope (outside it
+    the voltage is not used, so it cannot check a hand-over either)."""
+    from socfuse.estimator.filters.ekf import envelope_c, setup
+
+    if rec.temperature_c is None or rec.n == 0 or not math.isfinite(float(rec.temperature_c[0])):
+        return True
+    lo, hi = envelope_c(setup(model, s).tables)
+    return lo <= float(rec.temperature_c[0]) <= hi
 
 
 def _polarisation(model, rec, soc0):
