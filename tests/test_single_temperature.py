@@ -174,3 +174,25 @@ def test_real_0degc_hppc_model_on_the_0degc_drive(realdata):
     # the same 12,295 samples left out; before, at 25 degC outside the centred envelope, all of them)
     blind = estimate(m, cyc.with_(temperature_c=None), "ekf")
     assert np.count_nonzero((blind.status & K.ST_ENVELOPE) == 0) > 0.8 * cyc.n
+
+
+def test_every_filter_fills_a_missing_temperature_the_same_way():
+    # the batch kernel, the UKF and the smoother take a missing temperature as the model's own
+    # (0.56 degC here) like run_ekf: a blind recording gives the result of the same recording with
+    # that temperature written in (a fact of the code paths, checked against run_ekf itself)
+    from socfuse.estimator.filters.batch import run_ekf_cells
+    from socfuse.estimator.filters.smoother import rts_smooth
+    from socfuse.estimator.filters.ukf import run_ukf
+
+    m = cold_single_model(axis=False)
+    rec = _cold_drive(m, n=600)
+    blind = rec.with_(temperature_c=None)
+    t_own = float(setup(m).prm[K.P_TDEF])
+    filled = rec.with_(temperature_c=np.full(rec.n, t_own))
+    ref = run_ekf(m, filled, None, soc0=0.5)
+    cells = run_ekf_cells(m, [blind], None, soc0s=[0.5])
+    np.testing.assert_allclose(cells.soc[:, 0], ref.soc, rtol=0, atol=1e-12)
+    np.testing.assert_allclose(run_ukf(m, blind, None, soc0=0.5).soc, run_ukf(m, filled, None, soc0=0.5).soc,
+                               rtol=0, atol=1e-12)
+    np.testing.assert_allclose(rts_smooth(m, blind, None, soc0=0.5).soc, rts_smooth(m, filled, None, soc0=0.5).soc,
+                               rtol=0, atol=1e-12)

@@ -283,7 +283,7 @@ def truth_states(model, rec, soc_true, settings: FilterSettings | None = None) -
         raise BoundError(f"recording {rec.name!r}: soc_true is not finite at row {int(np.argmax(~np.isfinite(z)))}")
     out = np.empty((rec.n, su.n_x))
     _reconstruct(np.ascontiguousarray(rec.time_s, dtype=float), np.ascontiguousarray(rec.current_a, dtype=float),
-                 temperature_array(rec), z, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm,
+                 temperature_array(rec, float(su.prm[K.P_TDEF])), z, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm,
                  np.zeros(su.n_x), out)
     return out
 
@@ -335,6 +335,6 @@ def pcrb_soc_sigma(model, rec, settings: FilterSettings | None = None, soc_true=
     sig = np.empty((rec.n, su.n_x))
     t = np.ascontiguousarray(rec.time_s, dtype=float)
     _model_run(t, np.ascontiguousarray(rec.current_a, dtype=float), np.ascontiguousarray(rec.voltage_v, dtype=float),
-               temperature_array(rec), np.ascontiguousarray(states), su.tables.packed, su.n_rc, su.i_b, su.i_h,
+               temperature_array(rec, float(su.prm[K.P_TDEF])), np.ascontiguousarray(states), su.tables.packed, su.n_rc, su.i_b, su.i_h,
                su.est_h, su.prm, p0, True, sig)
     return BoundResult(t, sig[:, 0].copy(), sig, along, rec.name)

@@ -41,7 +41,7 @@ from numba import njit, prange
 
 from socfuse.estimator.filters.ekf import batch_inputs, initial_soc, prior, recording_arrays, setup
 from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_RERR, P_SE,
-                                               P_SMAX, P_SMIN, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
+                                               P_SMAX, P_SMIN, P_TDEF, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
                                                _measure, _qdiag, _temp_index, _transition, gap_variance,
                                                gate_rejects, layout, measurement_variance, resistance_factor, soc_from_voltage,
                                                specialised, white_factor)
@@ -573,7 +573,7 @@ def run_ekf_cells(model, recs, settings: FilterSettings | None = None, soc0s=Non
     p_fin = np.full((m, nx, nx), np.nan)
     gated = np.zeros(m, dtype=np.int64)
     if m and n_max:
-        cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[recording_arrays(r) for r in order])]
+        cat = [np.ascontiguousarray(np.concatenate(a)) for a in zip(*[recording_arrays(r, float(su.prm[P_TDEF])) for r in order])]
         lay = layout(nx, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm)
         args = (offs, cell_rec, *cat, su.tables.packed, *lay, prms, x0s, p0s, kp, int(block), soc, sig, *allo, x_out,
                 x_fin, p_fin, gated)

@@ -15,6 +15,7 @@ from __future__ import annotations
 import numpy as np
 
 from socfuse.estimator.filters.ekf import run_ekf_store, setup, temperature_array
+from socfuse.estimator.filters.kernels import P_TDEF
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
 
@@ -92,7 +93,7 @@ def rts_smooth(model, rec, settings: FilterSettings | None = None, soc0: float |
     s = su.settings
     tr, (p_post, p_prior, f) = run_ekf_store(model, rec, settings, soc0)
     x_post = tr.states
-    tc = temperature_array(rec)
+    tc = temperature_array(rec, float(su.prm[P_TDEF]))
     t, i = rec.time_s, rec.current_a
     x_prior = x_post.copy()
     for k in range(1, rec.n):

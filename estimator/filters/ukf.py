@@ -19,8 +19,8 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
-from socfuse.estimator.filters.kernels import (ST_FALLBACK, gate_rejects, health_step, project_soc, resistance_factor,
-                                              white_factor)
+from socfuse.estimator.filters.kernels import (P_TDEF, ST_FALLBACK, gate_rejects, health_step, project_soc,
+                                              resistance_factor, white_factor)
 from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -73,7 +73,7 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
     p0[np.diag_indices(nx)] = np.maximum(d0, 1e-12)
     pts = MerweScaledSigmaPoints(nx, alpha=UKF_ALPHA, beta=UKF_BETA, kappa=UKF_KAPPA)
     t, i, v = rec.time_s, rec.current_a, rec.voltage_v
-    tc = temperature_array(rec)
+    tc = temperature_array(rec, float(su.prm[P_TDEF]))
 
     def fx(x, dt, u=0.0, t_c=25.0):
         return su.transition(x, u, dt, t_c)
