@@ -919,23 +919,40 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     trip counts and the branches on absent states fold away.
     """
     nx = layout_size(n_rc, i_b, i_h, i_e)
-    x = np.empty(nx)   # shapes known at compile time (a constant nx): index arithmetic folds
+    x = np.empty(nx)
     p = np.empty((nx, nx))
     for i in range(nx):
         x[i] = x0[i]
         for j in range(nx):
             p[i, j] = p0[i, j]
-    xn = np.zeros(nx)
-    d = np.zeros(nx)
-    g = np.zeros(nx)
-    hrow = np.zeros(nx)
-    ph = np.zeros(nx)
-    kg = np.zeros(nx)
-    cb = np.zeros(nx)
-    ub = np.zeros(nx)
-    q = np.zeros(nx)
-    qd = np.zeros(nx)
+    work = np.zeros((10, nx))   # xn, d, g, hrow, ph, kg, cb, ub, q, qd
     cache = np.full(2 * n_rc + 3, np.nan)
+    return _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, p0,
+                     x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
+                     mon, base_soc, base_sig, status_out, healthy_out, x, p, work, cache)
+
+
+@njit(cache=True, error_model="numpy", _nrt=False)
+def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, p0,
+              x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
+              mon, base_soc, base_sig, status_out, healthy_out, x, p, work, cache):
+    """The loop of :func:`_ekf_core` over the state ``x``, ``p`` and scratch ``work``, ``cache`` it allocated.
+
+    Compiled without numba's reference counting (``_nrt=False``: it allocates nothing): the
+    helpers inlined into the loop would otherwise count references to the arrays they are handed
+    with atomic operations, twenty or so per sample, most of the loop's time.
+    """
+    nx = layout_size(n_rc, i_b, i_h, i_e)
+    xn = work[0]
+    d = work[1]
+    g = work[2]
+    hrow = work[3]
+    ph = work[4]
+    kg = work[5]
+    cb = work[6]
+    ub = work[7]
+    q = work[8]
+    qd = work[9]
     _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
