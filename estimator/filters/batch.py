@@ -102,7 +102,10 @@ def _copy(out, a, n):
 @njit(cache=True, error_model="numpy")
 def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms,
            x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out):
-    """Cells ``c0..c1-1`` over all their samples; see :func:`ekf_cells_run`."""
+    """Cells ``c0..c1-1`` over all their samples; see :func:`ekf_cells_run`.
+
+    Allocates the block's state and scratch and hands them to :func:`_block_loop`.
+    """
     nb = c1 - c0
     nx = x0s.shape[1]
     nl = nx * (nx + 1) // 2
@@ -111,53 +114,76 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
         for j in range(i + 1):
             li[i, j] = i * (i + 1) // 2 + j
             li[j, i] = li[i, j]
-    prm = prms[c0]
-    pc = prm.copy()          # the parameter vector handed to the model functions (its P_CAP set per cell)
-    x = np.empty((nx, nb))   # state, structure of arrays
-    xs = np.zeros(nx)        # one cell's state, and scratch for the model functions
-    xn = np.zeros(nx)
-    d1 = np.zeros(nx)
-    g1 = np.zeros(nx)
-    h1 = np.zeros(nx)
+    pc = prms[c0].copy()      # the parameter vector handed to the model functions (its P_CAP set per cell)
     cache = np.full(2 * n_rc + 3, np.nan)   # a memo keyed by (dt, tau): shared by the cells
     p = np.empty((nl, nb))
-    hs = np.zeros((nx, nb))
-    ph = np.empty((nx, nb))
-    cb = np.zeros((nx, nb))
-    ub = np.zeros((nx, nb))
-    qd = np.zeros((nx, nb))
-    gs = np.zeros((nx, nb))
-    dd = np.zeros((nx, nb))
-    cap = np.empty(nb)
-    kgi = np.zeros(nb)
-    sv = np.empty(nb)
-    t = np.empty(nb)
-    gss = np.zeros((nx, nb))
-    pbb = np.empty(nb)
-    y = np.empty(nb)
-    inn = np.zeros(nb)
-    acc = np.zeros(nb, dtype=np.bool_)
-    gh = np.zeros(nb)
-    s2 = np.empty(nb)
-    wf = np.ones(nb)
-    run_on = np.zeros(nb, dtype=np.bool_)
-    run_s = np.zeros(nb)
-    nu2_avg = np.zeros(nb)
-    excess = np.zeros(nb)
-    pt0 = np.zeros(nb, dtype=np.int64)
-    pt1 = np.zeros(nb, dtype=np.int64)
-    pwt = np.zeros(nb)
-    gated = np.zeros(nb, dtype=np.int64)
-    i_lo = np.zeros(nb)      # current range seen so far (logging gaps)
-    i_hi = np.zeros(nb)
-    gap_k = np.zeros(nb, dtype=np.bool_)
-    skip_upd = np.zeros(nb, dtype=np.bool_)
-    vks = np.empty(nb)
-    kg1 = np.zeros(nx)
-    ph1 = np.zeros(nx)
-    base = np.empty(nb, dtype=np.int64)
-    lens = np.empty(nb, dtype=np.int64)
-    q = np.zeros(nx)
+    cols = np.zeros((9, nx, nb))             # x, hs, ph, cb, ub, qd, gs, dd, gss (structure of arrays)
+    cells = np.zeros((17, nb))               # per-cell floats (see _block_loop)
+    cells[9] = 1.0                           # wf: the first sample's band-limit factor
+    flags = np.zeros((4, nb), dtype=np.bool_)
+    ints = np.zeros((5, nb), dtype=np.int64)
+    one = np.zeros((8, nx))                  # one cell's vectors: xs, xn, d1, g1, h1, kg1, ph1, q
+    _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h,
+                prms, x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out,
+                li, pc, cache, p, cols, cells, flags, ints, one)
+
+
+@njit(cache=True, error_model="numpy", _nrt=False)
+def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h,
+                prms, x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out,
+                li, pc, cache, p, cols, cells, flags, ints, one):
+    """The time loop of :func:`_block` over the arrays it allocated.
+
+    Compiled without numba's reference counting (``_nrt=False``: it allocates nothing), as
+    :func:`estimator.filters.kernels._ekf_loop`: the model functions inlined per cell would
+    otherwise count references to their arrays with atomic operations at every cell-step.
+    """
+    nb = c1 - c0
+    nx = x0s.shape[1]
+    prm = prms[c0]
+    x = cols[0]       # state, structure of arrays
+    hs = cols[1]
+    ph = cols[2]
+    cb = cols[3]
+    ub = cols[4]
+    qd = cols[5]
+    gs = cols[6]
+    dd = cols[7]
+    gss = cols[8]
+    cap = cells[0]
+    kgi = cells[1]
+    sv = cells[2]
+    t = cells[3]
+    pbb = cells[4]
+    y = cells[5]
+    inn = cells[6]
+    gh = cells[7]
+    s2 = cells[8]
+    wf = cells[9]
+    run_s = cells[10]
+    nu2_avg = cells[11]
+    excess = cells[12]
+    pwt = cells[13]
+    i_lo = cells[14]      # current range seen so far (logging gaps)
+    i_hi = cells[15]
+    vks = cells[16]
+    acc = flags[0]
+    run_on = flags[1]
+    gap_k = flags[2]
+    skip_upd = flags[3]
+    pt0 = ints[0]
+    pt1 = ints[1]
+    gated = ints[2]
+    base = ints[3]
+    lens = ints[4]
+    xs = one[0]        # one cell's state, and scratch for the model functions
+    xn = one[1]
+    d1 = one[2]
+    g1 = one[3]
+    h1 = one[4]
+    kg1 = one[5]
+    ph1 = one[6]
+    q = one[7]
     _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
@@ -459,7 +485,7 @@ def _drop_stale_cache() -> None:
 
     try:
         digest = hashlib.sha256(Path(kernels.__file__).read_bytes()).hexdigest()
-        caches = [f._cache for f in (_block, ekf_cells_run, _mul, _mul_in, _add_in, _fma_in, _fma2_in, _fma3_in,
+        caches = [f._cache for f in (_block, _block_loop, ekf_cells_run, _mul, _mul_in, _add_in, _fma_in, _fma2_in, _fma3_in,
                                      _copy)]
         stamp = Path(caches[0]._cache_path) / "batch.kernels-digest.txt"
         if stamp.is_file() and stamp.read_text().strip() == digest:
