@@ -49,6 +49,7 @@ def test_a_cold_drive_scales_the_cold_row_only_and_recovers_it():
     rec = cold_drive(truth)
     r = refine_model(start, rec, soc0=0.95)
     assert r.rms_after_v < 0.5 * r.rms_before_v
+    assert r.fit_rms_after_v < 0.5 * r.rms_before_v and r.as_dict()["fit_rms_after_v"] == r.fit_rms_after_v
     # the 25 degC rows are the pulse test's, bit for bit: the drive never ran there
     for new, old in ((r.model.r0_ohm, start.r0_ohm), (r.model.rc[0].r_ohm, start.rc[0].r_ohm),
                      (r.model.rc[0].tau_s, start.rc[0].tau_s)):

@@ -57,7 +57,9 @@ class RefineResult:
     ``multipliers``: ``{table name: exp(m) per SOC breakpoint}`` (exactly 1 where not refined);
     ``fitted_share``: fraction of the valid samples that entered the fit (the rest lie below the
     SOC floor or the cut-off margin); ``temperature_rows``: ``{table name: temperatures (degC) of
-    the rows scaled}`` for tables with a temperature axis.
+    the rows scaled}`` for tables with a temperature axis; ``fit_rms_after_v``: open-loop voltage RMS
+    (V) of the returned model over the samples the fit may use (above the SOC floor and the cut-off
+    margin), the model error an estimator can expect on such a drive.
     """
 
     model: CellModel
@@ -73,6 +75,7 @@ class RefineResult:
     soc0: float
     fitted_share: float = 1.0
     temperature_rows: dict = None
+    fit_rms_after_v: float = float("nan")
 
     @property
     def refined(self) -> bool:
@@ -84,7 +87,7 @@ class RefineResult:
                 "message": self.message, "rms_before_v": self.rms_before_v,
                 "rms_after_v": self.rms_after_v, "max_before_v": self.max_before_v, "max_after_v": self.max_after_v,
                 "nfev": self.nfev, "success": self.success, "soc0": self.soc0,
-                "fitted_share": self.fitted_share, "temperature_rows_c": dict(self.temperature_rows or {}),
+                "fitted_share": self.fitted_share, "fit_rms_after_v": self.fit_rms_after_v, "temperature_rows_c": dict(self.temperature_rows or {}),
                 "multipliers": {k: [float(x) for x in v] for k, v in self.multipliers.items()}}
 
 
@@ -276,7 +279,8 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
                 ones[f"tau{j + 1}_s"] = np.ones(p.tau_s.soc.size)
         return RefineResult(model, rms, rms, mx, mx, ones, 0, False,
                             f"not refined: the pulse-test model's voltage RMS on the fitted samples is "
-                            f"{rms_fit * 1000:.1f} mV, below {min_rms_v * 1000:.0f} mV", str(src), float(z0), fitted_share, {})
+                            f"{rms_fit * 1000:.1f} mV, below {min_rms_v * 1000:.0f} mV", str(src), float(z0),
+                            fitted_share, {}, rms_fit)
     # time each fitted sample stands for (its stride share of the recording), for the visit counts
     dt_k = np.empty(t.size)
     dt_k[:-1] = dt
@@ -412,4 +416,5 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
     src = rec.metadata.get("source", rec.name) if rec.metadata else rec.name
     return RefineResult(new_model, float(np.sqrt(np.mean(before[g] ** 2))), float(np.sqrt(np.mean(after[g] ** 2))),
                         float(np.max(np.abs(before[g]))), float(np.max(np.abs(after[g]))), names, nfev,
-                        ok, msg, str(src), float(z0), fitted_share, rows_out)
+                        ok, msg, str(src), float(z0), fitted_share, rows_out,
+                        float(np.sqrt(np.mean(after[fit_ok & g] ** 2))))
