@@ -265,22 +265,10 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
     scale = 1.0 / np.sqrt(n_use)
     vm = rec.voltage_v[use]
     rms_fit = float(np.sqrt(np.mean((base.voltage_v[use] - vm) ** 2)))
-    if rms_fit < min_rms_v:
-        # the pulse-test model already explains this recording within what a filter's model-error
-        # allowance covers: a fit would only chase noise and effects the tables cannot hold
-        g = np.isfinite(base.voltage_v - rec.voltage_v)
-        e = base.voltage_v[g] - rec.voltage_v[g]
-        rms, mx = float(np.sqrt(np.mean(e ** 2))), float(np.max(np.abs(e)))
-        src = rec.metadata.get("source", rec.name) if rec.metadata else rec.name
-        ones = {model.r0_ohm.name: np.ones(model.r0_ohm.soc.size)}
-        for j, p in enumerate(model.rc):
-            ones[f"r{j + 1}_ohm"] = np.ones(p.r_ohm.soc.size)
-            if refine_tau:
-                ones[f"tau{j + 1}_s"] = np.ones(p.tau_s.soc.size)
-        return RefineResult(model, rms, rms, mx, mx, ones, 0, False,
-                            f"not refined: the pulse-test model's voltage RMS on the fitted samples is "
-                            f"{rms_fit * 1000:.1f} mV, below {min_rms_v * 1000:.0f} mV", str(src), float(z0),
-                            fitted_share, {}, rms_fit)
+    # below min_rms_v the pulse-test model already explains this recording within what a filter's
+    # model-error allowance covers: a fit would only chase noise and effects the tables cannot hold
+    skip = (f"not refined: the pulse-test model's voltage RMS on the fitted samples is {rms_fit * 1000:.1f} mV, "
+            f"below {min_rms_v * 1000:.0f} mV") if rms_fit < min_rms_v else ""
     # time each fitted sample stands for (its stride share of the recording), for the visit counts
     dt_k = np.empty(t.size)
     dt_k[:-1] = dt
@@ -387,14 +375,14 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
             reg.append(blk)
         return np.vstack([jd] + reg)[:, free_idx]
 
-    if free_idx.size:
+    if free_idx.size and not skip:
         # Levenberg-Marquardt (MINPACK, QR-based: fast for many residuals and few parameters); the
         # prior term keeps the problem well posed, and the multipliers are clipped afterwards
         res = least_squares(fun, np.zeros(free_idx.size), jac=jac, method="lm", max_nfev=max_nfev, x_scale="jac")
         theta = full(np.clip(res.x, -max_log_change, max_log_change))
         nfev, ok, msg = int(res.nfev), bool(res.success), str(res.message)
     else:
-        theta, nfev, ok, msg = np.zeros(n_par), 0, False, "no SOC breakpoint visited long enough to refine"
+        theta, nfev, ok, msg = np.zeros(n_par), 0, False, skip or "no SOC breakpoint visited long enough to refine"
     mults = unpack(theta)
     new_r0 = _scaled(model.r0_ohm, mults[0], row_sets[0])
     new_rc = []
@@ -403,15 +391,15 @@ def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, sm
         bt = [b for b, (k, jj, _) in enumerate(blocks) if k == "tau" and jj == j]
         new_rc.append(RcPair(_scaled(p.r_ohm, mults[br], row_sets[br]),
                              _scaled(p.tau_s, mults[bt[0]], row_sets[bt[0]]) if bt else p.tau_s))
-    new_model = model.with_(r0_ohm=new_r0, rc=tuple(new_rc))
+    new_model = model.with_(r0_ohm=new_r0, rc=tuple(new_rc)) if nfev else model
     before = base.voltage_v - rec.voltage_v
-    after = simulate_fast(new_model, t, i, temp, soc0=z0).voltage_v - rec.voltage_v
+    after = simulate_fast(new_model, t, i, temp, soc0=z0).voltage_v - rec.voltage_v if nfev else before
     g = np.isfinite(before)
     names, rows_out = {}, {}
     for b, (kind, j, tab) in enumerate(blocks):
         key = tab.name if kind == "r0" else f"{kind}{j + 1}_{'ohm' if kind == 'r' else 's'}"
         names[key] = mults[b]
-        if tab.temperature_c is not None and tab.values.shape[0] > 1:
+        if nfev and tab.temperature_c is not None and tab.values.shape[0] > 1:
             rows_out[key] = [float(x) for x in np.asarray(tab.temperature_c)[row_sets[b]]]
     src = rec.metadata.get("source", rec.name) if rec.metadata else rec.name
     return RefineResult(new_model, float(np.sqrt(np.mean(before[g] ** 2))), float(np.sqrt(np.mean(after[g] ** 2))),
