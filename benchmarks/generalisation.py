@@ -3,7 +3,7 @@
 For each case this script runs exactly what a user runs, with default options and at the
 recording's native sample rate::
 
-    socfuse identify --ocv-test C20 --pulse-test HPPC [...] -o model.json
+    socfuse identify --ocv-test C20 --pulse-test HPPC [...] --refine TUNE_REC -o model.json
     socfuse tune --model model.json TUNE_REC -o filter.json
     socfuse estimate --model model.json --filter filter.json --method ekf|coulomb REC -o trace.csv
 
@@ -153,7 +153,7 @@ def demo_case() -> Case:
     tests = [TestRec(n, d / f, "1 Hz", tuned_on=(n == "lunch")) for n, f in days]
     return Case("demo", "demo cell C48 (invented), truth SOC",
                 ["--ocv-test", d / "c48_c20_25degC.csv", "--pulse-test", d / "c48_pulse_25degC.csv",
-                 "--pulse-test", d / "c48_pulse_05degC.csv"],
+                 "--pulse-test", d / "c48_pulse_05degC.csv", "--refine", d / "c48_day_lunch.csv"],
                 [tests[0]], tests)
 
 
@@ -191,7 +191,8 @@ def pan_case(root: Path, temp: str, cache: Path) -> Case:
     tune = TestRec("Cycle_1", cyc["Cycle_1"], "10 Hz", mp, tuned_on=True)
     tests = [TestRec(n, cyc[n], "10 Hz", mp) for n in tests_names]
     case = Case(f"pan{temp}", f"Panasonic 18650PF {temp} degC (Kollmeyer 2018)",
-                _pan_ident(root, temp != "25"), [tune], tests, needs_capacity=True)
+                _pan_ident(root, temp != "25") + ["--refine", cyc["Cycle_1"], "--soc0", "1"], [tune], tests,
+                needs_capacity=True)
     if temp == "25":
         case.extra["one_hz"] = tests_names
     return case
@@ -216,7 +217,8 @@ def physics_cases(cache: Path, short: bool = False) -> tuple[list, str]:
             return [], f"PyBaMM not available ({e})"
         tests = [TestRec(d, pc.path(d), "10 Hz", tuned_on=(d == "drive_1")) for d in ("drive_1", "drive_2", "drive_3")]
         cases.append(Case(name + ("-short" if short else ""), what + (" [short]" if short else ""),
-                          ["--ocv-test", pc.path("c20"), "--pulse-test", pc.path("pulse")], [tests[0]], tests))
+                          ["--ocv-test", pc.path("c20"), "--pulse-test", pc.path("pulse"), "--refine",
+                           pc.path("drive_1")], [tests[0]], tests))
     return cases, ""
 
 
