@@ -11,7 +11,10 @@ import pytest
 
 from ekf_cases import tiny_model
 from socfuse.estimator.filters.settings import at_temperature, default_settings, settings_from_dict, settings_to_dict
-from socfuse.models.validity import identified_soc_floor, outside_identified_range
+from socfuse.models import Recording, simulate
+from socfuse.estimator.filters.kernels import ST_ENVELOPE
+from socfuse.estimator.filters.run import estimate
+from socfuse.models.validity import CUTOFF_MARGIN_V, identified_soc_floor, near_cutoff, outside_identified_range
 
 
 def _with_range(model, temps, lows):
@@ -42,6 +45,25 @@ def test_voltage_below_the_floor_is_outside_only_where_the_floor_is_higher():
     assert not outside_identified_range(m, [i], [edge - 0.005], [5.0], polarisation_v=[0.01]).any()
     # a charging current raises the voltage: nothing is put back for it
     assert outside_identified_range(m, [-i], [v5], [5.0]).all()
+
+
+def test_voltages_next_to_the_cut_off_are_left_out_by_the_estimators():
+    # near the lower voltage limit an equivalent circuit misses the diffusion-limited collapse, and a
+    # cycler or BMS may hold the voltage at the limit (common practice, no source): 0.1 V margin
+    m = tiny_model().with_(v_min_v=3.0)
+    assert CUTOFF_MARGIN_V == 0.10
+    assert near_cutoff(m, [3.05, 3.0999, 3.1, 3.5, np.nan]).tolist() == [True, True, False, False, False]
+    assert not near_cutoff(m.with_(v_min_v=2.5), [3.05]).any()
+    # a 1C discharge from 60 % SOC into the cut-off: the filter does not update on the last samples
+    t = np.arange(0.0, 1800.0)
+    i = np.full(t.size, 4.8)
+    sim = simulate(m, t, i, soc0=0.6)
+    rec = Recording(t, i, sim.voltage_v, None, sim.soc, name="into the cut-off (simulated)")
+    near = sim.voltage_v < 3.1
+    assert 50 < near.sum() < t.size - 200
+    tr = estimate(m, rec, "ekf", soc0=0.6)
+    assert np.all(tr.status[near] & ST_ENVELOPE) and not np.any(tr.status[~near] & ST_ENVELOPE)
+    assert np.all(np.isnan(tr.innovation_v[near])) and np.all(np.isfinite(tr.innovation_v[~near]))
 
 
 def test_settings_temperature_axis_scales_the_model_error_with_r0():

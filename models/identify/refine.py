@@ -26,9 +26,11 @@ the tables only where it has evidence:
   ``min_visit_s`` of interpolation weight on it; the others keep their pulse-test values
   (multiplier exactly 1, not merely pulled towards it);
 - **cut-off margin**: samples below ``soc_floor`` (on the recording's charge count) or with a
-  terminal voltage within ``cutoff_margin_v`` of the model's lower limit are simulated but not
-  fitted: near the cut-off an equivalent-circuit model misses the diffusion-limited collapse,
-  and fitting it there inflates R0 over the whole low-SOC end (common practice, no source);
+  terminal voltage within ``cutoff_margin_v`` of the model's lower limit
+  (:data:`models.validity.CUTOFF_MARGIN_V`, the margin the estimators leave out too) are
+  simulated but not fitted: near the cut-off an equivalent-circuit model misses the
+  diffusion-limited collapse, and fitting it there inflates R0 over the whole low-SOC end (common
+  practice, no source);
 - **size**: multipliers are clipped to ``e^±max_log_change`` (default a factor e = 2.7);
 - **need**: a model that already explains the recording to within ``min_rms_v`` (20 mV) is
   returned unchanged.
@@ -43,6 +45,7 @@ from scipy.optimize import least_squares
 from socfuse.models.recording import Recording
 from socfuse.models.tables import ParamTable, clamp_weights
 from socfuse.models.thevenin import CellModel, RcPair, interval_current
+from socfuse.models.validity import CUTOFF_MARGIN_V
 from socfuse.models.identify.fastsim import njit, rc_filter, simulate_fast, soc_trajectory
 from socfuse.models.identify.validate import initial_soc, recording_temperature
 
@@ -189,7 +192,7 @@ def _scaled(table: ParamTable, mult, rows) -> ParamTable:
 def refine_model(model: CellModel, rec: Recording, soc0: float | None = None, smooth_v: float = 2e-3,
                  prior_v: float = 5e-4, refine_tau: bool = True, stride: int = 1, max_nfev: int = 60,
                  max_log_change: float = 1.0, row_share: float = 0.05, min_visit_s: float = 300.0,
-                 soc_floor: float = 0.10, cutoff_margin_v: float = 0.10,
+                 soc_floor: float = 0.10, cutoff_margin_v: float = CUTOFF_MARGIN_V,
                  min_rms_v: float = 0.020) -> RefineResult:
     """Fit the R0 and RC tables of ``model`` to the voltage of a dynamic recording.
 
