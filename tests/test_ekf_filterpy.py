@@ -24,7 +24,8 @@ def _filterpy_run(m, su, rec, x0, p0):
     and b = R (1 - a) exactly); Hx and HJacobian are the model's measurement through
     ``EkfSetup.measure`` (the same tabulated OCV curve).  The model-error state, when on, is a
     first-order Gauss-Markov process (F = exp(-dt/tau), Q = sigma^2 (1 - F^2)); the capacity
-    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R max(|i_k|, |i_k-1|))^2``; both white
+    term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R max(|i_k|, |i_k-1|))^2 +
+    (sigma_P sum_j |v_j|)^2`` (``v_j`` the predicted RC voltages); both white
     sensor variances are multiplied by ``max(1, noise_corr_s / dt)``.
     """
     s = su.settings
@@ -67,18 +68,22 @@ def _filterpy_run(m, su, rec, x0, p0):
             kf.predict(u=np.array([[u]]))
         if np.isfinite(v[k]):
             ik, tk = i[k], np.nan
+            # the RC polarisation term: (rc_error_frac * sum |v_j|)^2 at the predicted state, with the
+            # resistance part's band limit
+            pv = (s.rc_error_frac * np.sum(np.abs(kf.x[1:1 + su.n_rc, 0]))) ** 2
             kf.update(np.array([[v[k]]]), HJacobian=lambda x: su.measure(x[:, 0], ik, tk)[1].reshape(1, -1),
                       Hx=lambda x: np.array([[su.measure(x[:, 0], ik, tk)[0]]]),
                       R=np.array([[s.voltage_noise_v ** 2 * (max(1.0, s.noise_corr_s / (t[k] - t[k - 1])) if k else 1.0)
                                    + (s.resistance_error_ohm * (max(abs(ik), abs(i[k - 1])) if k else ik)) ** 2
-                                   * (max(1.0, s.resistance_error_corr_s / (t[k] - t[k - 1])) if k else 1.0)]]))
+                                   * (max(1.0, s.resistance_error_corr_s / (t[k] - t[k - 1])) if k else 1.0)
+                                   + pv * (max(1.0, s.resistance_error_corr_s / (t[k] - t[k - 1])) if k else 1.0)]]))
         xs.append(kf.x[:, 0].copy())
         ps.append(kf.P.copy())
     return np.array(xs), np.array(ps)
 
 
 WHITE = dict(model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, voltage_noise_v=0.01,
-             noise_corr_s=0.0)
+             noise_corr_s=0.0, rc_error_frac=0.0)
 
 
 @pytest.mark.parametrize("n_rc,bias,uneven,new", [(2, False, False, False), (1, True, True, False),
@@ -133,7 +138,7 @@ def test_nis_inside_chi2_band():
     s = default_settings(m).with_(voltage_noise_v=sigma_v, current_noise_a=1e-6, q_soc_per_s=1e-14,
                                   q_rc_v2_per_s=1e-14, p0_soc=0.02, p0_rc_v=1e-4, gate_sigma=0.0,
                                   estimate_bias=False, model_error_v=0.0, resistance_error_ohm=0.0,
-                                  capacity_error_frac=0.0, noise_corr_s=0.0)
+                                  capacity_error_frac=0.0, noise_corr_s=0.0, rc_error_frac=0.0)
     n = 3000
     t, i = drive_profile(n, seed=7, uneven=True)
     sim = simulate(m, t, i, soc0=0.7)

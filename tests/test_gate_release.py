@@ -19,7 +19,7 @@ def _case():
     # white voltage noise only (the classic noise model, where a lock-out was seen), and no voltage at the
     # first sample, so the hand-over check (estimator.filters.ekf.handover) cannot widen the wrong start
     s = default_settings(model).with_(voltage_noise_v=0.002, p0_soc=0.01, gate_sigma=5.0, model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False,
-                                  noise_corr_s=0.0)
+                                  noise_corr_s=0.0, rc_error_frac=0.0)
     v = rec.voltage_v.copy()
     v[0] = np.nan
     return model, rec.with_(voltage_v=v), sim, s

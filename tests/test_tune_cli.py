@@ -32,7 +32,7 @@ def _white_start(files):
 
     names = {f.name for f in dataclasses.fields(FilterSettings)}
     off = {k: 0.0 for k in ("model_error_v", "capacity_error_frac", "resistance_error_ohm", "noise_corr_s",
-                            "model_error_adapt_s") if k in names}
+                            "model_error_adapt_s", "rc_error_frac") if k in names}
     path = files / "white_start.json"
     if not path.exists():
         save_settings(default_settings(load_model(files / "model.json")).with_(**off), path)

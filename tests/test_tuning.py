@@ -16,7 +16,7 @@ SIGMA_V = 0.005  # true voltage-sensor noise, V
 # the filter's model is the simulator's: no model-error state, no capacity or resistance error terms
 # and white sensor noise (no correlation time)
 EXACT_MODEL = {k: 0.0 for k in ("model_error_v", "capacity_error_frac", "resistance_error_ohm", "noise_corr_s",
-                                "model_error_adapt_s")
+                                "model_error_adapt_s", "rc_error_frac")
                if k in {f.name for f in dataclasses.fields(FilterSettings)}}
 SIGMA_I = 0.2    # true current-sensor noise, A
 

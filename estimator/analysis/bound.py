@@ -165,10 +165,12 @@ def _model_run(time_s, current_a, voltage_v, temp_c, states, tab, n_rc, i_b, i_h
     eye = np.eye(nx)
     zq = np.zeros((nx, nx))
     for k in range(n):
-        r = vn2 + re2 * current_a[k] * current_a[k]  # the EKF's R_k (kernels docstring)
+        pv = K.polarisation_variance(prm, states[k], n_rc)
+        r = vn2 + re2 * current_a[k] * current_a[k] + pv  # the EKF's R_k (kernels docstring)
         if k > 0:
             dtk = time_s[k] - time_s[k - 1]
-            r = vn2 * K.white_factor(prm, dtk) + re2 * current_a[k] * current_a[k] * K.resistance_factor(prm, dtk)
+            wr = K.resistance_factor(prm, dtk)
+            r = vn2 * K.white_factor(prm, dtk) + re2 * current_a[k] * current_a[k] * wr + pv * wr
         if k == 0:
             y, hrow = K.measure(tab, n_rc, i_b, i_h, prm, states[0], current_a[0], temp_c[0])
             _predict_update(b, eye, zq, hrow, r, first_update and voltage_v[0] == voltage_v[0], bn, fb)

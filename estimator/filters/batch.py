@@ -43,8 +43,8 @@ from socfuse.estimator.filters.ekf import batch_inputs, initial_soc, prior, reco
 from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_RERR, P_SE,
                                                P_SMAX, P_SMIN, P_TDEF, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
                                                _measure, _qdiag, _temp_index, _transition, gap_variance,
-                                               gate_rejects, layout, measurement_variance, resistance_factor, soc_from_voltage,
-                                               specialised, white_factor)
+                                               gate_rejects, layout, measurement_variance, polarisation_variance,
+                                               resistance_factor, soc_from_voltage, specialised, white_factor)
 from socfuse.estimator.filters.settings import FilterSettings
 
 __all__ = ["BLOCK", "CellsResult", "ekf_cells_run", "run_ekf_cells", "KEEP_FINAL", "KEEP_SOC", "KEEP_ALL"]
@@ -316,9 +316,9 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
             pwt[c] = wt
             if k > 0:
                 r_meas = measurement_variance(vn2, re2, wf[c], resistance_factor(pc, time_s[kk] - time_s[kk - 1]),
-                                              ik, current_a[kk - 1])
+                                              ik, current_a[kk - 1], polarisation_variance(pc, xs, n_rc))
             else:
-                r_meas = measurement_variance(vn2, re2, 1.0, 1.0, ik, ik)
+                r_meas = measurement_variance(vn2, re2, 1.0, 1.0, ik, ik, polarisation_variance(pc, xs, n_rc))
             sv[c] = r_meas
         # -- P H and S (structure of arrays)
         for i in range(nx):

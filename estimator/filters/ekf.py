@@ -130,6 +130,7 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_ADAPT] = s.model_error_adapt_s
     prm[K.P_GAP] = s.gap_s
     prm[K.P_RCORR] = s.resistance_error_corr_s
+    prm[K.P_RCERR] = s.rc_error_frac
     # operating envelope: the model's temperature tables plus a margin
     prm[K.P_TENV_LO], prm[K.P_TENV_HI] = envelope_c(tab)
     prm[K.P_TDEF] = tab.default_temperature_c   # missing / implausible temperatures (25 but for one row)

@@ -235,6 +235,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         i_b=su.i_b, i_h=su.i_h, has_err=int(su.i_e >= 0), i_e=su.i_e, has_ct=int(tab.has_charge_transfer),
         model_error_v=c_float(s.model_error_v), model_error_tau_s=c_float(s.model_error_tau_s),
         capacity_error_frac=c_float(s.capacity_error_frac), resistance_error_ohm=c_float(s.resistance_error_ohm),
+        rc_error_frac=c_float(s.rc_error_frac),
         noise_corr_s=c_float(s.noise_corr_s), model_error_adapt_s=c_float(s.model_error_adapt_s),
         adapt_cap=c_float(_K.ADAPT_CAP), gap_s=c_float(s.gap_s),
         tenv_lo=c_float(su.prm[_K.P_TENV_LO]), tenv_hi=c_float(su.prm[_K.P_TENV_HI]),
