@@ -919,10 +919,10 @@ def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = Tr
                                  "for time use the time unit 'iso'")
         return None
     else:
-        if not required and not "".join(str(x) for x in a.tolist()).strip():
-            return None  # an all-blank extra column: nothing to convert
         if not required and _first_value_is_text(a, decimal):
             return None  # a text extra column (time stamps, step names): one bad value refuses it anyway
+        if not required and not "".join(str(x) for x in a.tolist()).strip():
+            return None  # an all-blank extra column: nothing to convert (first: the cheap look at one cell)
         import pandas as pd
 
         s = pd.Series(a, dtype=object).map(lambda x: "" if x is None else str(x).strip())
