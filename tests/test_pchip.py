@@ -59,3 +59,22 @@ def test_values_slopes_and_antiderivative_equal_scipy(k):
 def test_bad_breakpoints_refused():
     with pytest.raises(ValueError):
         pchip([0.0, 0.5, 0.5], [1.0, 2.0, 3.0])
+
+
+def test_ocv_curve_equals_scipy_on_the_demo_cell():
+    # the curve the estimator evaluates: OcvCurve.voltage / slope through models.pchip, against the same
+    # expressions through scipy's PchipInterpolator on every temperature row of the demo cell's OCV table
+    from socfuse.estimator.demo.truth import truth_cell_model
+
+    ocv = truth_cell_model().ocv
+    z = np.concatenate([np.linspace(-0.05, 1.05, 3001), ocv.soc])
+    for r in range(ocv.n_temperatures):
+        ref = PchipInterpolator(ocv.soc, ocv.ocv_v[r])
+        lo, hi = ocv.soc[0], ocv.soc[-1]
+        s = np.clip(z, lo, hi)
+        want = np.where(z < lo, ref(lo) + ref(lo, 1) * (z - lo), ref(s))
+        want = np.where(z > hi, ref(hi) + ref(hi, 1) * (z - hi), want)
+        t = None if ocv.temperature_c is None else ocv.temperature_c[r]
+        _same_bits(ocv.voltage(z, t), want)
+        slope = np.where(z < lo, ref(lo, 1), np.where(z > hi, ref(hi, 1), ref(s, 1)))
+        _same_bits(ocv.slope(z, t), slope)
