@@ -68,7 +68,7 @@ from socfuse.models.recording import Recording, RecordingError
 
 __all__ = [
     "ColumnMap", "PRESETS", "make_column_map", "load_recording", "read_table", "RawTable",
-    "CANONICAL_COLUMNS", "bundled_recording_path",
+    "CANONICAL_COLUMNS", "bundled_recording_path", "gc_paused",
 ]
 
 CANONICAL_COLUMNS = ("time_s", "current_a", "voltage_v", "temperature_c", "soc_ref")
@@ -1126,24 +1126,36 @@ def load_recording(path, mapping: ColumnMap | None = None, *, preset: str | None
         No such file.
     """
     cmap = make_column_map(preset=preset, mapping=mapping, **options)
-    with _gc_paused():
+    with gc_paused():
         table = read_table(path, cmap)
         return recording_from_table(table, cmap)
 
 
 @contextmanager
-def _gc_paused():
-    """No cyclic garbage collection while a file is parsed.
+def gc_paused():
+    """No cyclic garbage collection inside the block (the previous state restored after it).
 
-    Parsing makes a list per row and a string per cell; none of them form reference cycles, but
-    every few hundred of them trigger a collection that walks the whole heap (numba's and
-    scipy's objects included): about two thirds of a 10 Hz drive cycle's CSV read time.
+    For work that makes many objects but no reference cycles worth collecting.  Parsing a file
+    makes a list per row and a string per cell; none of them form reference cycles, but every
+    few hundred of them trigger a collection that walks the whole heap (numba's and scipy's
+    objects included): about two thirds of a 10 Hz drive cycle's CSV read time.  Importing numba
+    (``socfuse estimate``'s first compiled call) makes about a million objects and so a dozen
+    full collections, 0.1 to 0.2 s of a warm run.  On leaving, the objects made inside join the
+    oldest generation (``gc.freeze`` then ``gc.unfreeze``), so the first collection after the block
+    does not walk them all as young objects; garbage cycles among them are found by the next full
+    collection, as any.
+
+    Yields
+    ------
+    None
     """
     was = gc.isenabled()
     gc.disable()
     try:
         yield
     finally:
+        gc.freeze()                 # what the block made joins the oldest generation at once: the
+        gc.unfreeze()               # next young collection does not walk it all (cycles still found)
         if was:
             gc.enable()
 

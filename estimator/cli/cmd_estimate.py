@@ -108,6 +108,19 @@ def flag_lines(tr) -> list:
 
 
 def run(args) -> int:
+    """Run ``socfuse estimate`` (see the module docstring); returns the exit code.
+
+    The cyclic garbage collector is paused for the run (``models.loaders.gc_paused``): it imports
+    numba and its registries (about a million objects, a dozen full-heap collections otherwise)
+    and then makes arrays and strings, no reference cycles worth collecting.
+    """
+    from socfuse.models.loaders import gc_paused
+
+    with gc_paused():
+        return _run(args)
+
+
+def _run(args) -> int:
     from socfuse.models.fileio import check_output_file, replacing  # here: `estimate --help` stays light
     from socfuse.models.modelfile import load_model
 
