@@ -38,7 +38,7 @@ def register(sub) -> None:
         add_mapping_options = None
     if add_mapping_options is not None:
         add_mapping_options(p)
-    p.set_defaults(func=run)
+    p.set_defaults(func=run, exit_at_once=True)  # outputs closed when run returns (cli.main._exit_at_once)
 
 
 def _load_recording(args, model):
