@@ -1145,6 +1145,10 @@ def gc_paused():
     does not walk them all as young objects; garbage cycles among them are found by the next full
     collection, as any.
 
+    Parameters
+    ----------
+    None
+
     Yields
     ------
     None
