@@ -97,9 +97,19 @@ PAN_HPPC = "panasonic_18650pf/hppc/03-11-17_08.47 25degC_5Pulse_HPPC_Pan18650PF.
 
 
 def _socfuse_cmd() -> list:
-    """The installed console script ``socfuse`` when on PATH, else ``python -m`` of the CLI module."""
-    exe = shutil.which("socfuse")
-    return [exe] if exe else [sys.executable, "-m", "socfuse.estimator.cli.main"]
+    """This checkout's command line: ``python -m`` of the CLI module (what the console script calls).
+
+    Not a ``socfuse`` found on PATH: that may be another installation (a pyenv shim of another
+    checkout, say), which would time other code and add the shim's own start-up.
+    """
+    return [sys.executable, "-m", "socfuse.estimator.cli.main"]
+
+
+def _checkout_env() -> dict:
+    """The environment with this checkout first on ``PYTHONPATH``, so the child imports its code."""
+    env = dict(os.environ)
+    env["PYTHONPATH"] = os.pathsep.join([str(REPO)] + [p for p in env.get("PYTHONPATH", "").split(os.pathsep) if p])
+    return env
 
 
 def _timed_runs(argv, rounds, cwd):
@@ -111,7 +121,8 @@ def _timed_runs(argv, rounds, cwd):
     for _ in range(rounds):
         r0 = resource.getrusage(resource.RUSAGE_CHILDREN)
         t0 = time.perf_counter()
-        p = subprocess.run(_socfuse_cmd() + [str(a) for a in argv], cwd=cwd, capture_output=True, text=True)
+        p = subprocess.run(_socfuse_cmd() + [str(a) for a in argv], cwd=cwd, capture_output=True, text=True,
+                           env=_checkout_env())
         walls.append(time.perf_counter() - t0)
         r1 = resource.getrusage(resource.RUSAGE_CHILDREN)
         cpus.append(r1.ru_utime - r0.ru_utime + r1.ru_stime - r0.ru_stime)
