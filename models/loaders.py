@@ -68,7 +68,7 @@ from socfuse.models.recording import Recording, RecordingError
 
 __all__ = [
     "ColumnMap", "PRESETS", "make_column_map", "load_recording", "read_table", "RawTable",
-    "CANONICAL_COLUMNS", "bundled_recording_path",
+    "CANONICAL_COLUMNS", "bundled_recording_path", "gc_paused",
 ]
 
 CANONICAL_COLUMNS = ("time_s", "current_a", "voltage_v", "temperature_c", "soc_ref")
@@ -575,22 +575,41 @@ def _mat_numeric(b, pos: int, dims) -> np.ndarray:
     return np.frombuffer(b, dtype=dt, count=n, offset=data).astype(dt[1:])   # a copy, native order
 
 
+def _equal_cell_words(w: np.ndarray, pos: int, end: int, n: int) -> np.ndarray | None:
+    """Word offsets of ``n`` cells of one size filling ``pos .. end`` exactly, or None.
+
+    The offsets the byte-count hop of :func:`_mat_text_cells` would find when every tag says the
+    size of the first (each checked here at once); None sends that function through the hop.
+    """
+    if pos & 7 or pos + 8 > end:
+        return None
+    size = 8 + int(w[(pos >> 2) + 1])
+    if size % 8 or pos + n * size != end:
+        return None
+    q = (pos + size * np.arange(n, dtype=np.int64)) >> 2
+    if np.any(w[q] != _MI_MATRIX) or np.any(w[q + 1] != size - 8):
+        return None
+    return q
+
+
 def _mat_text_cells(b, pos: int, end: int, n: int) -> np.ndarray:
     """A cell array of ``n`` one-line ASCII texts starting at ``pos``, as an object array of str."""
     offs = []
     u = memoryview(b)[:len(b) - len(b) % 4].cast("I") if sys.byteorder == "little" else None
     if u is None:
         raise _NotPlain
-    o = pos
-    for _ in range(n):              # hop from cell to cell by the tag's byte count
-        if o & 7 or o + 8 > end or u[o >> 2] != _MI_MATRIX:
-            raise _NotPlain
-        offs.append(o)
-        o += 8 + u[(o >> 2) + 1]
-    if o != end:
-        raise _NotPlain
     w = np.frombuffer(b, dtype="<u4", count=len(u))
-    q = np.asarray(offs, dtype=np.int64) >> 2
+    q = _equal_cell_words(w, pos, end, n)
+    if q is None:
+        o = pos
+        for _ in range(n):          # hop from cell to cell by the tag's byte count
+            if o & 7 or o + 8 > end or u[o >> 2] != _MI_MATRIX:
+                raise _NotPlain
+            offs.append(o)
+            o += 8 + u[(o >> 2) + 1]
+        if o != end:
+            raise _NotPlain
+        q = np.asarray(offs, dtype=np.int64) >> 2
     if (np.any(w[q + 2] != 6) or np.any(w[q + 3] != 8) or np.any((w[q + 4] & 0x0EFF) != _MX_CHAR)
             or np.any(w[q + 6] != 5) or np.any(w[q + 7] != 8) or np.any(w[q + 8] != 1)
             or np.any(w[q + 10] != 1) or np.any(w[q + 11] != 0)):
@@ -609,6 +628,16 @@ def _mat_text_cells(b, pos: int, end: int, n: int) -> np.ndarray:
     if np.any(nby != k * unit) or np.any(w[q + 1] != 40 + size):
         raise _NotPlain
     codec = "ascii" if unit == 1 else "utf-16-le"
+    if unit == 1:                   # one-byte texts (time stamps): all decoded at once
+        width = int(nby.max())
+        inside = np.arange(width) < nby[:, None]
+        chars = np.frombuffer(b, dtype=np.uint8)[np.minimum(start[:, None] + np.arange(width), len(b) - 1)]
+        if np.any((chars == 0) & inside) or np.any(chars >= 128, where=inside):
+            raise _NotPlain         # a NUL or a non-ASCII byte, as the decode below refuses them
+        chars[~inside] = 0          # padding, dropped by the fixed-width bytes type
+        col = np.empty(n, dtype=object)
+        col[:] = np.ascontiguousarray(chars).view(f"S{width}")[:, 0].astype(f"U{width}")
+        return col
     try:
         out = [bytes(b[a:a + m]).decode(codec) for a, m in zip(start.tolist(), nby.tolist())]
     except UnicodeDecodeError:
@@ -890,10 +919,10 @@ def _numeric(table: RawTable, name: str, decimal: str = ".", required: bool = Tr
                                  "for time use the time unit 'iso'")
         return None
     else:
-        if not required and not "".join(str(x) for x in a.tolist()).strip():
-            return None  # an all-blank extra column: nothing to convert
         if not required and _first_value_is_text(a, decimal):
             return None  # a text extra column (time stamps, step names): one bad value refuses it anyway
+        if not required and not "".join(str(x) for x in a.tolist()).strip():
+            return None  # an all-blank extra column: nothing to convert (first: the cheap look at one cell)
         import pandas as pd
 
         s = pd.Series(a, dtype=object).map(lambda x: "" if x is None else str(x).strip())
@@ -1097,24 +1126,40 @@ def load_recording(path, mapping: ColumnMap | None = None, *, preset: str | None
         No such file.
     """
     cmap = make_column_map(preset=preset, mapping=mapping, **options)
-    with _gc_paused():
+    with gc_paused():
         table = read_table(path, cmap)
         return recording_from_table(table, cmap)
 
 
 @contextmanager
-def _gc_paused():
-    """No cyclic garbage collection while a file is parsed.
+def gc_paused():
+    """No cyclic garbage collection inside the block (the previous state restored after it).
 
-    Parsing makes a list per row and a string per cell; none of them form reference cycles, but
-    every few hundred of them trigger a collection that walks the whole heap (numba's and
-    scipy's objects included): about two thirds of a 10 Hz drive cycle's CSV read time.
+    For work that makes many objects but no reference cycles worth collecting.  Parsing a file
+    makes a list per row and a string per cell; none of them form reference cycles, but every
+    few hundred of them trigger a collection that walks the whole heap (numba's and scipy's
+    objects included): about two thirds of a 10 Hz drive cycle's CSV read time.  Importing numba
+    (``socfuse estimate``'s first compiled call) makes about a million objects and so a dozen
+    full collections, 0.1 to 0.2 s of a warm run.  On leaving, the objects made inside join the
+    oldest generation (``gc.freeze`` then ``gc.unfreeze``), so the first collection after the block
+    does not walk them all as young objects; garbage cycles among them are found by the next full
+    collection, as any.
+
+    Parameters
+    ----------
+    None
+
+    Yields
+    ------
+    None
     """
     was = gc.isenabled()
     gc.disable()
     try:
         yield
     finally:
+        gc.freeze()                 # what the block made joins the oldest generation at once: the
+        gc.unfreeze()               # next young collection does not walk it all (cycles still found)
         if was:
             gc.enable()
 

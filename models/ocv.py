@@ -1,9 +1,9 @@
 """Open-circuit-voltage curve OCV(SOC), optionally per temperature.
 
 The curve is a monotone piecewise-cubic Hermite interpolant (PCHIP; Fritsch and Carlson,
-SIAM J. Numer. Anal. 17, 1980, as implemented by ``scipy.interpolate.PchipInterpolator``)
-through the breakpoints.  Outside the breakpoint range it continues linearly with the end
-slope, so an estimator that strays slightly below 0 or above 1 still sees a sensible,
+SIAM J. Numer. Anal. 17, 1980) through the breakpoints, computed by :mod:`models.pchip`, which
+gives the very doubles of ``scipy.interpolate.PchipInterpolator`` without importing scipy.
+Outside the breakpoint range it continues linearly with the end slope, so an estimator that strays slightly below 0 or above 1 still sees a sensible,
 observable voltage.  With several temperatures the curves are interpolated linearly in
 temperature (clamped at the ends of the temperature range).
 """
@@ -12,8 +12,8 @@ from __future__ import annotations
 from dataclasses import dataclass, field
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
+from socfuse.models.pchip import pchip
 from socfuse.models.tables import as_axis, clamp_weights
 
 __all__ = ["OcvCurve"]
@@ -75,7 +75,7 @@ class OcvCurve:
         object.__setattr__(self, "soc", soc)
         object.__setattr__(self, "ocv_v", ocv)
         object.__setattr__(self, "temperature_c", temp)
-        object.__setattr__(self, "_interp", tuple(PchipInterpolator(soc, ocv[r]) for r in range(ocv.shape[0])))
+        object.__setattr__(self, "_interp", tuple(pchip(soc, ocv[r]) for r in range(ocv.shape[0])))
 
     # ------------------------------------------------------------------ evaluation
     @property

@@ -54,6 +54,9 @@ BASE = {"Time": T, "Current": -np.linspace(1, 2, N).reshape(-1, 1), "Voltage": n
 @pytest.mark.parametrize("extra, plain", [
     ({}, True),
     ({"Stamp": _cells([f"3/18/2017 2:17:{k:02d} AM" for k in range(N)])}, True),     # cell of texts
+    ({"Stamp": _cells([f"3/18/2017 {k}:17:05 AM" for k in range(7, 7 + N)])}, True),  # lengths 19, 20
+    ({"Step": _cells(["ab", "rest", "discharge", "c", "charge-cv", "x", "pause"])}, True),  # cells of many sizes
+    ({"Nul": _cells(["a\x00b"] * N)}, True),   # savemat writes a NUL as a blank: both readers give "a b"
     ({"Chamber": np.full((N, 1), 23, dtype=np.uint8), "I16": np.arange(N, dtype=np.int16)[None, :]}, True),
     ({"F32": np.linspace(0, 1, N, dtype=np.float32)[:, None], "Grid": np.ones((N, 3))}, True),  # 2-D skipped
     ({"Short": np.ones((3, 1)), "One": np.array([[5.0]])}, True),                     # other lengths dropped

@@ -93,7 +93,8 @@ def test_every_float_prints_as_python_printf():
 
 
 def test_estimate_writes_the_trace_without_pandas(tmp_path):
-    # the writer takes Trace.columns(): `socfuse estimate -o` on a canonical CSV never imports pandas
+    # the writer takes Trace.columns(): `socfuse estimate -o` on a canonical CSV never imports pandas,
+    # nor scipy.interpolate (the OCV curve is models.pchip) nor matplotlib
     import subprocess
     import sys
     m, _ = _trace()
@@ -106,7 +107,25 @@ def test_estimate_writes_the_trace_without_pandas(tmp_path):
     code = ("import sys; from socfuse.estimator.cli.main import main\n"
             f"rc = main(['estimate', '--model', {str(tmp_path / 'model.json')!r}, {str(rec_path)!r}, '-o', "
             f"{str(tmp_path / 't.csv')!r}])\n"
-            "print(rc, 'pandas' in sys.modules)")
+            "print(rc, [m for m in ('pandas', 'scipy.interpolate', 'matplotlib') if m in sys.modules])")
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True).stdout
-    assert out.strip().splitlines()[-1] == "0 False"
+    assert out.strip().splitlines()[-1] == "0 []"
     assert pd.read_csv(tmp_path / "t.csv").shape[0] == rec.n
+
+
+def test_numpy_reads_back_each_value_as_its_printed_digits(tmp_path):
+    # reference: numpy's own reader (numpy.genfromtxt; an empty field reads as NaN) and Python's
+    # correctly rounded "%.8g": each number read back is exactly float("%.8g" % x), bit for bit
+    _, tr = _trace()
+    path = tmp_path / "trace.csv"
+    write_trace_csv(tr, path, states=True)
+    back = np.genfromtxt(path, delimiter=",", names=True)
+    cols = tr.columns(states=True)
+    assert list(back.dtype.names) == list(cols)
+    for name, a in cols.items():
+        a = np.asarray(a)
+        want = a.astype(float) if a.dtype.kind in "iub" else np.array([float("%.8g" % x) for x in a.tolist()])
+        got = back[name]
+        assert np.array_equal(np.isnan(got), np.isnan(want)), name
+        ok = ~np.isnan(want)
+        assert np.array_equal(got[ok].view(np.int64), want[ok].view(np.int64)), name

@@ -38,7 +38,7 @@ def register(sub) -> None:
         add_mapping_options = None
     if add_mapping_options is not None:
         add_mapping_options(p)
-    p.set_defaults(func=run)
+    p.set_defaults(func=run, exit_at_once=True)  # outputs closed when run returns (cli.main._exit_at_once)
 
 
 def _load_recording(args, model):
@@ -108,6 +108,19 @@ def flag_lines(tr) -> list:
 
 
 def run(args) -> int:
+    """Run ``socfuse estimate`` (see the module docstring); returns the exit code.
+
+    The cyclic garbage collector is paused for the run (``models.loaders.gc_paused``): it imports
+    numba and its registries (about a million objects, a dozen full-heap collections otherwise)
+    and then makes arrays and strings, no reference cycles worth collecting.
+    """
+    from socfuse.models.loaders import gc_paused
+
+    with gc_paused():
+        return _run(args)
+
+
+def _run(args) -> int:
     from socfuse.models.fileio import check_output_file, replacing  # here: `estimate --help` stays light
     from socfuse.models.modelfile import load_model
 

@@ -112,8 +112,29 @@ def _quiet_pipe() -> int:
     return 141
 
 
+def _exit_at_once(code: int) -> None:
+    """End this process now with ``code``, stdout and stderr flushed, skipping the interpreter's teardown.
+
+    Tearing down an interpreter that has loaded numba (its registries, llvmlite's LLVM, scipy.linalg)
+    takes 0.3 to 0.4 s of a 1.5 s ``socfuse estimate``: freeing about a million objects nobody needs
+    freed.  ``os._exit`` skips it (as mypy does for the same reason); it also skips ``atexit``
+    handlers, so only a command whose results are all written and closed when ``run`` returns (no
+    worker processes, no temporary folders left to a finaliser) opts in, by ``exit_at_once=True``
+    in its parser defaults, and only when ``main`` runs the process's own command line.
+
+    Parameters
+    ----------
+    code : int
+        The process exit code.
+    """
+    sys.stdout.flush()
+    sys.stderr.flush()
+    os._exit(code)
+
+
 def main(argv=None) -> int:
     """Run the ``socfuse`` command line; returns the exit code (module docstring)."""
+    whole_process = argv is None  # the console script or ``python -m``: this process ends with the command
     argv = sys.argv[1:] if argv is None else list(argv)
     debug = os.environ.get("SOCFUSE_DEBUG", "") not in ("", "0")
     name = _chosen(argv) or "socfuse"
@@ -126,6 +147,8 @@ def main(argv=None) -> int:
             return 2
         code = int(args.func(args) or 0)
         sys.stdout.flush()  # a closed pipe shows here, inside the handler, not at interpreter exit
+        if whole_process and getattr(args, "exit_at_once", False):
+            _exit_at_once(code)
         return code
     except UsageError as e:
         print(f"{prefix}: error: {e}", file=sys.stderr)

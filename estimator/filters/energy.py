@@ -9,10 +9,11 @@ the cell is full, the upper half of the charge holds more energy than the lower 
 an increasing OCV curve ``SOC_E <= SOC_C`` (equality at 0 and 1).
 
 Exactness: the OCV curve of :class:`models.ocv.OcvCurve` is a PCHIP interpolant per
-temperature row (Fritsch and Carlson, SIAM J. Numer. Anal. 17, 1980; ``scipy`` implementation)
+temperature row (Fritsch and Carlson, SIAM J. Numer. Anal. 17, 1980; :mod:`models.pchip`, the
+``scipy`` implementation's arithmetic without importing scipy)
 that continues linearly outside its breakpoints, and rows are mixed linearly in temperature.
 The integral of each row is therefore taken in closed form: the antiderivative of the very
-same piecewise cubic (``PchipInterpolator(soc, ocv_v[r]).antiderivative()``, rebuilt from the
+same piecewise cubic (``pchip(soc, ocv_v[r]).antiderivative()``, rebuilt from the
 curve's own breakpoints, so it is the identical interpolant) plus the exact integral of the
 linear end pieces; the temperature mix of the integrals is the integral of the temperature mix.
 SOC arguments outside [0, 1] are clipped to [0, 1].
@@ -72,8 +73,8 @@ class EnergyError(ValueError):
 class _RowIntegral:
     """Exact integral from 0 of one OCV row (PCHIP inside, linear outside the breakpoints)."""
 
-    f: object     # scipy PchipInterpolator of the row (the curve's own interpolant)
-    anti: object  # its antiderivative (scipy PPoly)
+    f: object     # models.pchip PCHIP of the row (the curve's own interpolant)
+    anti: object  # its antiderivative (models.pchip.PiecewisePolynomial)
     lo: float
     hi: float
     f_lo: float
@@ -86,9 +87,9 @@ class _RowIntegral:
 
     @classmethod
     def build(cls, soc: np.ndarray, ocv_v: np.ndarray) -> "_RowIntegral":
-        from scipy.interpolate import PchipInterpolator  # here: the estimate path need not import it
+        from socfuse.models.pchip import pchip
 
-        f = PchipInterpolator(soc, ocv_v)
+        f = pchip(soc, ocv_v)
         anti = f.antiderivative()
         lo, hi = float(soc[0]), float(soc[-1])
         anti_lo = float(anti(lo))
