@@ -337,6 +337,10 @@ def part_speed(work: Path) -> tuple[dict, str]:
     m = re.search(r"^(\S+): (\d+) steps\s+ours", text, re.M)
     if m:
         figs["demo_steps"] = float(m.group(2))
+    for key in ("help_wall_s", "estimate_wall_s", "estimate_mat_wall_s"):
+        m = re.search(key + r"=([\d.]+)", last)
+        if m:
+            figs[key] = float(m.group(1))
     real = re.search(r"(\d+) steps\s+ours\s+([\d.]+) ns/step.*ratio\s+(\d+)\s+\(demo model on the real", text)
     if real:
         figs.update({"real_steps": float(real.group(1)), "real_ns_per_step": float(real.group(2)),

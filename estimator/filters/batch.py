@@ -7,8 +7,9 @@ block (:data:`BLOCK` cells) advance together: at every time step each phase of t
 block's cells, and the covariance, the bulk of the arithmetic, is held as structure of arrays
 (entry ``(i, j)`` of the lower triangle of every cell contiguous, ``p[L(i, j), cell]``), so its
 loops run over cells with unit stride and no dependence on the state layout inside them.
-Speed (benchmarks/speed.py, demo cell, 6 states, 2 shared cores): about 5 M cell-steps per
-CPU-second at 100 and 10,000 cells, the same as the recording-parallel kernel; per cell-step the
+Speed (benchmarks/speed.py, demo cell, 6 states, 2 shared cores, 2026-12-03): about 10 M cell-steps
+per CPU-second at 10,000 cells (the block loop compiled without reference counting and the
+covariance prediction fused; 5 M before); per cell-step the
 scalar model functions take most of it (transition about 95 ns, measurement about 35 ns, the
 structure-of-arrays covariance algebra about 40 ns).  Reaching tens of millions needs the
 transition and measurement in structure-of-arrays form too, with an exp that vectorises (numba
