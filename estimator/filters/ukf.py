@@ -19,8 +19,8 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
-from socfuse.estimator.filters.kernels import (P_TDEF, ST_FALLBACK, gate_rejects, health_step, project_soc,
-                                              resistance_factor, white_factor)
+from socfuse.estimator.filters.kernels import (P_TDEF, ST_FALLBACK, gate_rejects, health_step, polarisation_variance,
+                                              project_soc, resistance_factor, white_factor)
 from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -106,7 +106,7 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         wf = white_factor(su.prm, float(t[k] - t[k - 1])) if k > 0 else 1.0
         wr = resistance_factor(su.prm, float(t[k] - t[k - 1])) if k > 0 else 1.0
         i_r = max(abs(i[k]), abs(i[k - 1])) if k > 0 else i[k]  # current edge (kernels._ekf_core)
-        pv = (s.rc_error_frac * float(np.sum(np.abs(ukf.x[1:1 + su.n_rc])))) ** 2  # kernels.polarisation_variance
+        pv = polarisation_variance(su.prm, np.asarray(ukf.x, dtype=float), su.n_rc)  # the EKF's rule
         r = np.array([[s.voltage_noise_v ** 2 * wf + (s.resistance_error_ohm * i_r) ** 2 * wr + pv * wr]])
         ukf.R = r
         zs = np.array([hx(sp, i[k], tc[k]) for sp in ukf.sigmas_f])
