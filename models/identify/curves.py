@@ -14,9 +14,9 @@
 from __future__ import annotations
 
 import numpy as np
-from scipy.interpolate import PchipInterpolator
 
 from socfuse.models.ocv import OcvCurve
+from socfuse.models.pchip import pchip
 
 __all__ = ["isotonic_increasing", "greedy_breakpoints", "curve_from_dense", "whittaker_gcv", "MIN_STEP_V"]
 
@@ -105,7 +105,7 @@ def greedy_breakpoints(grid, values, n_breakpoints: int, tol_v: float = 0.0, n_e
                             .tolist()) | {0, m - 1})
     while len(chosen) < n:
         idx = np.array(sorted(chosen))
-        f = PchipInterpolator(grid[idx], values[idx])
+        f = pchip(grid[idx], values[idx])
         err = np.abs(f(grid) - values)
         err[idx] = -1.0
         k = int(np.argmax(err))
