@@ -10,6 +10,8 @@ import numpy as np
 import pytest
 
 from ekf_cases import tiny_model
+from socfuse.estimator.filters.ekf import setup
+from socfuse.estimator.filters.kernels import resistance_sigma_at
 from socfuse.estimator.filters.settings import at_temperature, default_settings, settings_from_dict, settings_to_dict
 from socfuse.models import Recording, simulate
 from socfuse.estimator.filters.kernels import ST_ENVELOPE
@@ -80,18 +82,21 @@ def test_settings_temperature_axis_scales_the_model_error_with_r0():
     assert settings_from_dict(settings_to_dict(cold)).model_error_r0_exponent == 1.0
 
 
-def test_settings_temperature_axis_keeps_the_resistance_error_a_fraction_of_r0():
+def test_resistance_error_stays_a_fraction_of_r0_at_every_sample_temperature():
     m = tiny_model(temperature=True)  # R0 at 50 %: 35 mOhm at 5 degC, 17.5 mOhm at 25 degC
     s = default_settings(m)
     assert s.resistance_error_r0_exponent == 1.0 and s.model_error_r0_exponent == 0.0
     # default resistance error 0.35 R0(50 %, 25 degC) (common practice, no source: pulse-fit scatter)
     assert s.resistance_error_ohm == pytest.approx(0.35 * 0.0175)
-    cold = at_temperature(s, m, 5.0)
-    assert cold.resistance_error_ohm == pytest.approx(0.35 * 0.035)   # still 35 % of R0 at 5 degC
-    assert cold.model_error_v == s.model_error_v                      # that axis stays off
-    assert at_temperature(s, m, 25.0) is s
-    assert at_temperature(s.with_(resistance_error_r0_exponent=0.0), m, 5.0).resistance_error_ohm == \
-        s.resistance_error_ohm
+    su = setup(m, s)
+    tab = su.tables.packed
+    assert resistance_sigma_at(tab, su.prm, 25.0) == pytest.approx(0.35 * 0.0175, rel=1e-12)
+    assert resistance_sigma_at(tab, su.prm, 5.0) == pytest.approx(0.35 * 0.035, rel=1e-12)  # still 35 % of R0
+    assert resistance_sigma_at(tab, su.prm, np.nan) == pytest.approx(0.35 * 0.0175, rel=1e-12)  # missing: 25 degC
+    off = setup(m, s.with_(resistance_error_r0_exponent=0.0))
+    assert resistance_sigma_at(tab, off.prm, 5.0) == s.resistance_error_ohm
+    # not a per-recording scale: at_temperature leaves it to the filters' per-sample rule
+    assert at_temperature(s, m, 5.0).resistance_error_ohm == s.resistance_error_ohm
     # a filter file written before the setting existed loads with it off (its old meaning)
     d = settings_to_dict(s)
     del d["resistance_error_r0_exponent"]

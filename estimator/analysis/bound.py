@@ -161,11 +161,12 @@ def _model_run(time_s, current_a, voltage_v, temp_c, states, tab, n_rc, i_b, i_h
     bn = np.zeros((nx, nx))
     fb = np.zeros((nx, nx))
     vn2 = prm[K.P_VN] * prm[K.P_VN]
-    re2 = prm[K.P_RERR] * prm[K.P_RERR]
     eye = np.eye(nx)
     zq = np.zeros((nx, nx))
     for k in range(n):
         pv = K.polarisation_variance(prm, states[k], n_rc)
+        sr = K.resistance_sigma_at(tab, prm, temp_c[k])
+        re2 = sr * sr
         r = vn2 + re2 * current_a[k] * current_a[k] + pv  # the EKF's R_k (kernels docstring)
         if k > 0:
             dtk = time_s[k] - time_s[k - 1]

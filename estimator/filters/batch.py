@@ -41,11 +41,11 @@ import numpy as np
 from numba import njit, prange
 
 from socfuse.estimator.filters.ekf import batch_inputs, initial_soc, prior, recording_arrays, setup
-from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_RERR, P_SE,
+from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_SE,
                                                P_SMAX, P_SMIN, P_TDEF, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
                                                _measure, _qdiag, _temp_index, _transition, gap_variance,
                                                gate_rejects, layout, measurement_variance, polarisation_variance,
-                                               resistance_factor, soc_from_voltage, specialised, white_factor)
+                                               resistance_factor, resistance_sigma, soc_from_voltage, specialised, white_factor)
 from socfuse.estimator.filters.settings import FilterSettings
 
 __all__ = ["BLOCK", "CellsResult", "ekf_cells_run", "run_ekf_cells", "KEEP_FINAL", "KEEP_SOC", "KEEP_ALL"]
@@ -187,7 +187,6 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
     adapt = prm[P_ADAPT] if i_e >= 0 else 0.0
     s2i = prm[P_IN] * prm[P_IN]
     vn2 = prm[P_VN] * prm[P_VN]
-    re2 = prm[P_RERR] * prm[P_RERR]
     gate = prm[P_GATE]
     grel = prm[P_GREL]
     smin = prm[P_SMIN]
@@ -315,6 +314,8 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
             pt0[c] = it0
             pt1[c] = it1
             pwt[c] = wt
+            sr = resistance_sigma(tab, prm, it0, it1, wt)
+            re2 = sr * sr
             if k > 0:
                 r_meas = measurement_variance(vn2, re2, wf[c], resistance_factor(pc, time_s[kk] - time_s[kk - 1]),
                                               ik, current_a[kk - 1], polarisation_variance(pc, xs, n_rc))

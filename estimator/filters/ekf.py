@@ -131,6 +131,9 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_GAP] = s.gap_s
     prm[K.P_RCORR] = s.resistance_error_corr_s
     prm[K.P_RCERR] = s.rc_error_frac
+    # temperature axis of the resistance error (kernels.resistance_sigma): R0 at 50 %, 25 degC
+    prm[K.P_RERRX] = s.resistance_error_r0_exponent
+    prm[K.P_R0REF] = float(K.table_value(tab.packed, 2, 0.5, 25.0, tab.t_min, tab.t_step))
     # operating envelope: the model's temperature tables plus a margin
     prm[K.P_TENV_LO], prm[K.P_TENV_HI] = envelope_c(tab)
     prm[K.P_TDEF] = tab.default_temperature_c   # missing / implausible temperatures (25 but for one row)

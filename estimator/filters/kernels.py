@@ -44,7 +44,7 @@ The state exists when ``prm[P_SE] > 0`` and is always the last one (:func:`error
 
 Resistance uncertainty: the white measurement variance of sample ``k`` is ``R_k = sigma_v^2 +
 (sigma_R i_r)^2`` with ``i_r`` the larger in magnitude of ``i_k`` and ``i_k-1`` (``sigma_R`` =
-``prm[P_RERR]``, ohm): an error in R0 (and in the fast part of the RC response) shows at once when
+``prm[P_RERR]``, ohm, at 25 degC, scaled with R0 over temperature by :func:`resistance_sigma`): an error in R0 (and in the fast part of the RC response) shows at once when
 the current steps, in proportion to the current, so a voltage under heavy load says less about the
 OCV than one near rest (heteroscedastic noise, common practice, no source).  The previous current
 counts because a BMS does not sample current and voltage at the same instant: at the first
@@ -112,7 +112,7 @@ from socfuse.models.simulation import charge_transfer_v
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "P_TDEF", "P_RCERR", "N_PRM", "polarisation_variance", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "P_TDEF", "P_RCERR", "P_RERRX", "P_R0REF", "N_PRM", "polarisation_variance", "resistance_sigma", "resistance_sigma_at", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor", "layout", "layout_size", "specialised",
@@ -126,7 +126,9 @@ P_IMAX, P_VLO, P_VHI, P_VRCMAX, P_P0SOC, P_ADAPT, P_GAP, P_RCORR = 21, 22, 23, 2
 P_TENV_LO, P_TENV_HI = 29, 30
 P_TDEF = 31  # temperature used for a missing or implausible sample, degC (estimator.filters.ekf.setup)
 P_RCERR = 32  # relative sigma of the RC polarisation (measurement_variance)
-N_PRM = 33
+P_RERRX = 33  # exponent of the resistance error's temperature axis (resistance_sigma)
+P_R0REF = 34  # R0 of the kernel tables at 50 % SOC, 25 degC, ohm (resistance_sigma)
+N_PRM = 35
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -215,6 +217,53 @@ def measurement_variance(vn2, re2, wf, wr, i_k, i_prev, pv):
     """
     ik = i_prev if abs(i_prev) > abs(i_k) else i_k
     return vn2 * wf + re2 * ik * ik * wr + pv * wr
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def resistance_sigma(tab, prm, it0, it1, wt):
+    """Sigma of the series-resistance error at a temperature, ohm (the one rule of the kernels).
+
+    ``prm[P_RERR] * (R0(50 %, T) / prm[P_R0REF]) ** prm[P_RERRX]`` with ``R0(50 %, T)`` from the
+    kernel tables on temperature rows ``it0``, ``it1`` with weight ``wt`` (:func:`_temp_search`)
+    and ``prm[P_R0REF]`` the same at 25 degC: with exponent 1 the error stays the same fraction of
+    the resistance at every temperature (the pulse resistances scatter by a fraction of their
+    value; R0 at 0 degC is about 2.7 times its 25 degC value on the Panasonic 18650PF).  Exponent 0
+    (or no temperature axis) gives ``prm[P_RERR]``.  The filters call it when the temperature
+    changes.
+
+    Parameters
+    ----------
+    tab : ndarray
+        Kernel tables.
+    prm : ndarray (N_PRM,)
+    it0, it1 : int
+        Temperature rows.
+    wt : float
+        Weight of row ``it1``.
+
+    Returns
+    -------
+    float
+        Resistance sigma, ohm.
+    """
+    sr = prm[P_RERR]
+    e = prm[P_RERRX]
+    if e == 0.0 or sr == 0.0 or not (prm[P_R0REF] > 0.0):
+        return sr
+    is0, ws = _soc_index(tab, 0.5)
+    ratio = _bil(tab, 2, it0, it1, wt, is0, ws) / prm[P_R0REF]
+    if not (ratio > 0.0):
+        return sr
+    if e == 1.0:
+        return sr * ratio
+    return sr * ratio ** e
+
+
+@njit(cache=True, error_model="numpy")
+def resistance_sigma_at(tab, prm, t_c):
+    """:func:`resistance_sigma` at temperature ``t_c`` (degC; NaN = 25 degC), ohm."""
+    it0, it1, wt = _temp_search(tab, t_c, 0)
+    return resistance_sigma(tab, prm, it0, it1, wt)
 
 
 @njit(cache=True, error_model="numpy", inline="always")
@@ -533,7 +582,8 @@ def soc_from_voltage(tab, n_rc, prm, v, i, t_c):
     check and at the end of a logging gap.
     """
     z, r0, r_rc, slope = _voltage_read(tab, n_rc, prm, v, i, t_c)
-    sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (prm[P_RERR] * i) * (prm[P_RERR] * i)
+    sr = resistance_sigma_at(tab, prm, t_c)
+    sv2 = (prm[P_VN] * prm[P_VN] + prm[P_SE] * prm[P_SE] + (sr * i) * (sr * i)
            + (0.5 * r_rc * i) * (0.5 * r_rc * i) + prm[P_HM] * prm[P_HM])
     return _read_sigma(z, sv2, slope)
 
@@ -1025,6 +1075,8 @@ def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             it0, it1, wt = pt0, pt1, pwt
         else:
             it0, it1, wt = _temp_search(tab, tk, pt0)
+            sr = resistance_sigma(tab, prm, it0, it1, wt)
+            re2 = sr * sr
         if k > lo:
             dt = time_s[k] - time_s[k - 1]
             u = 0.5 * (current_a[k - 1] + current_a[k])

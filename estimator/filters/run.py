@@ -47,7 +47,8 @@ def loaded_start(model, rec, settings: FilterSettings | None = None) -> tuple[fl
         temperature (degC; 25 when the recording has none).
     settings : FilterSettings, optional
         ``rest_current_a`` (A) decides "under load"; ``voltage_noise_v``, ``model_error_v`` and
-        ``resistance_error_ohm`` (V, V, ohm) give the voltage part of the sigma.  Default: from
+        ``resistance_error_ohm`` (V, V, ohm; at that temperature by
+        :func:`estimator.filters.kernels.resistance_sigma`) give the voltage part of the sigma.  Default: from
         the model.
 
     Returns
@@ -85,7 +86,12 @@ def loaded_start(model, rec, settings: FilterSettings | None = None) -> tuple[fl
         z_a, z_b = read(v + r0_a * i), read(v + (r0_b + rrc_b) * i)
     z = 0.5 * (z_a + z_b)
     m = 0.0 if model.hysteresis is None else float(model.hysteresis.max_v)
-    sv = math.sqrt(s.voltage_noise_v ** 2 + s.model_error_v ** 2 + (s.resistance_error_ohm * i) ** 2 + m * m)
+    from socfuse.estimator.filters.ekf import setup
+    from socfuse.estimator.filters.kernels import resistance_sigma_at
+
+    su = setup(model, s)
+    sr = float(resistance_sigma_at(su.tables.packed, su.prm, t))  # the filters' rule at this temperature
+    sv = math.sqrt(s.voltage_noise_v ** 2 + s.model_error_v ** 2 + (sr * i) ** 2 + m * m)
     # the voltage part as the SOC span of OCV(z) +- sv (half of it): no slope at a point, so the flat
     # ends of a curve (PCHIP slope 0 at SOC 1) and the clip at 0..1 are handled
     v_mid = float(ocv.voltage(z, t))

@@ -143,11 +143,13 @@ class FilterSettings:
         the overpotentials it describes, which scale with the resistance.  0 = no temperature
         dependence.
     resistance_error_r0_exponent : float
-        The same temperature axis for the resistance error: a run at ``T`` uses
-        ``resistance_error_ohm * (R0(50 %, T) / R0(50 %, 25 degC)) ** resistance_error_r0_exponent``.
-        1 keeps the error the same fraction of the resistance at every temperature (the pulse
-        resistances scatter by a fraction of their value, not by a fixed number of ohms).  0 = the
-        value as given at every temperature.
+        Temperature axis of the resistance error: a sample at cell temperature ``T`` uses
+        ``resistance_error_ohm * (R0(50 %, T) / R0(50 %, 25 degC)) ** resistance_error_r0_exponent``
+        (``resistance_error_ohm`` is the 25 degC value; applied per sample by
+        :func:`estimator.filters.kernels.resistance_sigma` in the EKF, the UKF, the batch kernels
+        and the exported C step).  1 keeps the error the same fraction of the resistance at every
+        temperature (the pulse resistances scatter by a fraction of their value, not by a fixed
+        number of ohms).  0 = the value as given at every temperature.
     """
 
     voltage_noise_v: float = 0.01
@@ -263,8 +265,8 @@ def default_settings(model) -> FilterSettings:
       0 degC is about 2.7 times the 25 degC value on the Panasonic 18650PF).  Checked with
       ``benchmarks/generalisation.py`` on every reference case (against 0): the 0 degC US06 SOC
       RMSE 1.72 -> 1.60 %, the 10 degC HWFET 1.30 -> 1.09 % (its true SOC inside +-3 sigma 95.1 ->
-      99.2 %), the 25 degC, demo and physics cases unchanged to 0.01 point.  Applied per recording
-      at its median temperature (:func:`at_temperature`), like ``model_error_r0_exponent``.
+      99.2 %), the 25 degC, demo and physics cases unchanged to 0.01 point (figures of the scale at
+      the recording's median temperature; now applied at each sample's own temperature).
     - ``current_noise_a`` = C/100: a Hall-effect sensor of about 1 % of the 1C current.
     - ``q_soc_per_s`` = 0.01^2 / 3600: a random walk of 1 % SOC per hour.
     - ``q_rc_v2_per_s`` = (0.1 R_rc I_1C)^2 / tau: 10 % of the 1C polarisation per time
@@ -335,24 +337,18 @@ def at_temperature(settings: FilterSettings, model, temperature_c: float | None)
     Returns
     -------
     FilterSettings
-        ``model_error_v`` scaled by ``(R0(0.5, T) / R0(0.5, 25)) ** model_error_r0_exponent`` and
-        ``resistance_error_ohm`` by the same ratio to the power ``resistance_error_r0_exponent``
-        (the same object when nothing changes).
+        ``model_error_v`` scaled by ``(R0(0.5, T) / R0(0.5, 25)) ** model_error_r0_exponent``
+        (the same object when nothing changes).  The resistance error's temperature axis
+        (``resistance_error_r0_exponent``) is not applied here: the filters apply it at every
+        sample's own temperature (:func:`estimator.filters.kernels.resistance_sigma`).
     """
-    e_m, e_r = settings.model_error_r0_exponent, settings.resistance_error_r0_exponent
-    scale_m = e_m != 0.0 and settings.model_error_v != 0.0
-    scale_r = e_r != 0.0 and settings.resistance_error_ohm != 0.0
-    if not (scale_m or scale_r) or temperature_c is None or not math.isfinite(temperature_c):
+    e = settings.model_error_r0_exponent
+    if e == 0.0 or settings.model_error_v == 0.0 or temperature_c is None or not math.isfinite(temperature_c):
         return settings
     ratio = float(model.r0_ohm.at(0.5, float(temperature_c))) / float(model.r0_ohm.at(0.5, 25.0))
     if not (math.isfinite(ratio) and ratio > 0.0) or ratio == 1.0:
         return settings
-    changes = {}
-    if scale_m:
-        changes["model_error_v"] = settings.model_error_v * ratio ** e_m
-    if scale_r:
-        changes["resistance_error_ohm"] = settings.resistance_error_ohm * ratio ** e_r
-    return settings.with_(**changes)
+    return settings.with_(model_error_v=settings.model_error_v * ratio ** e)
 
 
 def settings_to_dict(s: FilterSettings) -> dict:

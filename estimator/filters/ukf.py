@@ -20,7 +20,7 @@ import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
 from socfuse.estimator.filters.kernels import (P_TDEF, ST_FALLBACK, gate_rejects, health_step, polarisation_variance,
-                                              project_soc, resistance_factor, white_factor)
+                                              project_soc, resistance_factor, resistance_sigma_at, white_factor)
 from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -107,7 +107,8 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         wr = resistance_factor(su.prm, float(t[k] - t[k - 1])) if k > 0 else 1.0
         i_r = max(abs(i[k]), abs(i[k - 1])) if k > 0 else i[k]  # current edge (kernels._ekf_core)
         pv = polarisation_variance(su.prm, np.asarray(ukf.x, dtype=float), su.n_rc)  # the EKF's rule
-        r = np.array([[s.voltage_noise_v ** 2 * wf + (s.resistance_error_ohm * i_r) ** 2 * wr + pv * wr]])
+        sr = resistance_sigma_at(su.tables.packed, su.prm, float(tc[k]))  # the EKF's rule over temperature
+        r = np.array([[s.voltage_noise_v ** 2 * wf + (sr * i_r) ** 2 * wr + pv * wr]])
         ukf.R = r
         zs = np.array([hx(sp, i[k], tc[k]) for sp in ukf.sigmas_f])
         zp, smat = unscented_transform(zs, pts.Wm, pts.Wc, r)

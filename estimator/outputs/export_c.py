@@ -236,6 +236,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         model_error_v=c_float(s.model_error_v), model_error_tau_s=c_float(s.model_error_tau_s),
         capacity_error_frac=c_float(s.capacity_error_frac), resistance_error_ohm=c_float(s.resistance_error_ohm),
         rc_error_frac=c_float(s.rc_error_frac),
+        resistance_error_r0_exponent=c_float(s.resistance_error_r0_exponent), r0_ref_ohm=c_float(su.prm[_K.P_R0REF]),
         noise_corr_s=c_float(s.noise_corr_s), model_error_adapt_s=c_float(s.model_error_adapt_s),
         adapt_cap=c_float(_K.ADAPT_CAP), gap_s=c_float(s.gap_s),
         tenv_lo=c_float(su.prm[_K.P_TENV_LO]), tenv_hi=c_float(su.prm[_K.P_TENV_HI]),
