@@ -262,11 +262,11 @@ def default_settings(model) -> FilterSettings:
       3.14 -> 3.49 points on that Cycle_1); until ``tune`` records the temperature its settings
       refer to, the axis is there to be switched on, not on by default.
     - ``resistance_error_r0_exponent`` 1: the resistance error stays 35 % of R0 in the cold (R0 at
-      0 degC is about 2.7 times the 25 degC value on the Panasonic 18650PF).  Checked with
-      ``benchmarks/generalisation.py`` on every reference case (against 0): the 0 degC US06 SOC
-      RMSE 1.72 -> 1.60 %, the 10 degC HWFET 1.30 -> 1.09 % (its true SOC inside +-3 sigma 95.1 ->
-      99.2 %), the 25 degC, demo and physics cases unchanged to 0.01 point (figures of the scale at
-      the recording's median temperature; now applied at each sample's own temperature).
+      0 degC is about 2.7 times the 25 degC value on the Panasonic 18650PF), at each sample's
+      temperature.  Checked with ``benchmarks/generalisation.py`` on every reference case (against
+      0): the 0 degC US06 SOC RMSE 1.72 -> 1.59 %, the 10 degC HWFET 1.30 -> 1.13 % (its true SOC
+      inside +-3 sigma 95.1 -> 98.7 %), the 25 degC and physics cases unchanged; on the demo, whose
+      temperature moves around 25 degC, ``tune`` then accepted its result (long day 0.37 -> 0.24 %).
     - ``current_noise_a`` = C/100: a Hall-effect sensor of about 1 % of the 1C current.
     - ``q_soc_per_s`` = 0.01^2 / 3600: a random walk of 1 % SOC per hour.
     - ``q_rc_v2_per_s`` = (0.1 R_rc I_1C)^2 / tau: 10 % of the 1C polarisation per time
