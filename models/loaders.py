@@ -280,8 +280,9 @@ def make_column_map(preset: str | None = None, mapping: ColumnMap | None = None,
 class RawTable:
     """Columns as read from a file, before mapping.
 
-    ``columns`` maps each source name to a 1-D array (strings for CSV, the stored dtype
-    otherwise); ``row_labels(k)`` says how to name data row ``k`` (0-based) in messages.
+    ``columns`` maps each source name to a 1-D array (for CSV: strings, or float64 when every
+    field of a plain file is a finite number, see ``_plain_numbers``; the stored dtype otherwise);
+    ``where(k)`` says how to name data row ``k`` (0-based) in messages.
     """
 
     path: str
@@ -389,8 +390,10 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
     info: dict = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul, "preamble_lines": hidx}
     flat = _plain_fields(body, sep, width) if ends_with_newline else None
     if flat is not None:  # every line a full data row: the fields of column c are flat[c::width]
-        return _csv_table(path, cmap, names, [flat[c::width] for c in range(width)], len(body),
-                          np.arange(hidx + 2, hidx + 2 + len(body)), info, None, None, hidx)
+        nums = _plain_numbers(flat, body, width, cmap)
+        columns = [flat[c::width] for c in range(width)] if nums is None else [nums[c::width] for c in range(width)]
+        return _csv_table(path, cmap, names, columns, len(body), np.arange(hidx + 2, hidx + 2 + len(body)), info,
+                          None, None, hidx)
     reader = csv.reader(body, delimiter=sep)
     rows, line_no = [], []
     named = max((c for c, nm in enumerate(names) if nm), default=-1) + 1  # fields up to the last named one
@@ -459,16 +462,61 @@ def _plain_fields(body: list[str], sep: str, width: int) -> list[str] | None:
     return joined.split(sep)
 
 
+def _plain_numbers(flat: list[str], body: list[str], width: int, cmap: ColumnMap) -> np.ndarray | None:
+    """The fields of a plain CSV body (:func:`_plain_fields`) as floats, when every one is a finite number.
+
+    The fast path of :func:`_read_csv_text` for the usual file (a logger's or a script's numbers
+    and nothing else): one conversion of all fields instead of a text column per source column
+    converted later, by :func:`_numeric`.  It converts exactly as :func:`_numeric` would (Python's
+    ``float`` of each field, through ``np.array(..., dtype=float)``), so the recording is the same.
+    None (and the text columns, with every check and message of :func:`_numeric`) when a field is
+    not a finite ASCII number (a blank, ``nan``, text, a digit of another script), when the decimal
+    mark is ``,`` or when the time column is a date or an elapsed ``hh:mm:ss`` (read as text).
+
+    Parameters
+    ----------
+    flat : list of str
+        All fields of the body, row after row (``width`` per row).
+    body : list of str
+        The data lines the fields come from.
+    width : int
+        Fields per row.
+    cmap : ColumnMap
+        The reader options (decimal mark, time unit).
+
+    Returns
+    -------
+    numpy.ndarray or None
+        Shape ``(len(flat),)`` float64, the fields in the order of ``flat``; or None.
+    """
+    if cmap.decimal != "." or cmap.time_unit.lower() in ("iso", "hms") or not width:
+        return None
+    if not all(map(str.isascii, body)):
+        return None
+    try:
+        vals = np.array(flat, dtype=float)
+    except ValueError:
+        return None
+    if not np.isfinite(vals).all():
+        return None
+    return vals
+
+
 def _csv_table(path, cmap, names, columns, n_rows, line_no, info, units_row, units_line, hidx) -> RawTable:
-    """The RawTable of a CSV's data columns (``columns[c]`` = the fields of column c)."""
+    """The RawTable of a CSV's data columns (``columns[c]`` = the fields of column c).
+
+    A column given as a float array (:func:`_plain_numbers`) is kept as it is (a copy); a list of
+    fields becomes an object array of str.
+    """
     width = len(names)
     cols: dict[str, np.ndarray] = {}
     final: dict[int, str] = {}
     used = {cmap.time_col, cmap.current_col, cmap.voltage_col, cmap.temperature, cmap.soc_ref, cmap.ah_counter,
             "temperature_c", "soc_ref"}
     for c, nm in enumerate(names):
+        numbers = isinstance(columns[c], np.ndarray)
         if not nm:
-            if not "".join(columns[c]).strip():
+            if not numbers and not "".join(columns[c]).strip():
                 continue  # trailing separator
             nm = f"column_{c + 1}"
         if nm in cols:
@@ -479,8 +527,11 @@ def _csv_table(path, cmap, names, columns, n_rows, line_no, info, units_row, uni
             while f"{nm}.{k}" in cols:
                 k += 1
             nm = f"{nm}.{k}"
-        col = np.empty(n_rows, dtype=object)
-        col[:] = columns[c]
+        if numbers:
+            col = columns[c].copy()
+        else:
+            col = np.empty(n_rows, dtype=object)
+            col[:] = columns[c]
         cols[nm] = col
         final[c] = nm
     if units_row is not None:
