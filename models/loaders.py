@@ -388,10 +388,10 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
     body = lines[hidx + 1:]
     width = len(names)
     info: dict = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul, "preamble_lines": hidx}
-    flat = _plain_fields(body, sep, width) if ends_with_newline else None
-    if flat is not None:  # every line a full data row: the fields of column c are flat[c::width]
-        nums = _plain_numbers(flat, body, width, cmap)
-        columns = [flat[c::width] for c in range(width)] if nums is None else [nums[c::width] for c in range(width)]
+    nums = _plain_numbers(body, sep, width, cmap) if ends_with_newline else None
+    flat = _plain_fields(body, sep, width) if ends_with_newline and nums is None else None
+    if nums is not None or flat is not None:  # every line a full data row
+        columns = [nums[:, c] for c in range(width)] if nums is not None else [flat[c::width] for c in range(width)]
         return _csv_table(path, cmap, names, columns, len(body), np.arange(hidx + 2, hidx + 2 + len(body)), info,
                           None, None, hidx)
     reader = csv.reader(body, delimiter=sep)
@@ -462,42 +462,56 @@ def _plain_fields(body: list[str], sep: str, width: int) -> list[str] | None:
     return joined.split(sep)
 
 
-def _plain_numbers(flat: list[str], body: list[str], width: int, cmap: ColumnMap) -> np.ndarray | None:
-    """The fields of a plain CSV body (:func:`_plain_fields`) as floats, when every one is a finite number.
+# ASCII characters numpy's reader strips around a number as white space and Python's float() does not
+# (Py_UNICODE_ISSPACE against Py_ISSPACE): a file holding one is left to the text path
+_SPACE_NOT_FOR_FLOAT = ("\x1c", "\x1d", "\x1e", "\x1f")
+
+
+def _plain_numbers(body: list[str], sep: str, width: int, cmap: ColumnMap) -> np.ndarray | None:
+    """The data lines of a CSV as a float table, when every line is ``width`` finite ASCII numbers; else None.
 
     The fast path of :func:`_read_csv_text` for the usual file (a logger's or a script's numbers
-    and nothing else): one conversion of all fields instead of a text column per source column
-    converted later, by :func:`_numeric`.  It converts exactly as :func:`_numeric` would (Python's
-    ``float`` of each field, through ``np.array(..., dtype=float)``), so the recording is the same.
-    None (and the text columns, with every check and message of :func:`_numeric`) when a field is
-    not a finite ASCII number (a blank, ``nan``, text, a digit of another script), when the decimal
-    mark is ``,`` or when the time column is a date or an elapsed ``hh:mm:ss`` (read as text).
+    and nothing else): numpy's text reader (``np.loadtxt``, no comments, no quotes) converts every
+    field without making a string of it, where the text path (:func:`_plain_fields` or the csv
+    module, then :func:`_numeric`) makes one per field and converts it with Python's ``float``.
+    Both round the decimal text correctly (``PyOS_string_to_double``), so the numbers are the
+    same.  None, and the text path with every check and message of :func:`_numeric`, for anything
+    else: a field that is not a finite ASCII number (a blank, ``nan``, text, quotes, a digit of
+    another script, an ASCII separator control that numpy would strip as white space and Python's
+    ``float`` would not), a line of another width or a blank line (the row count would differ), a
+    line over the csv module's field limit, a first line that is a units row, the decimal mark ``,``, or a
+    time column read as text (dates, ``hh:mm:ss``).
 
     Parameters
     ----------
-    flat : list of str
-        All fields of the body, row after row (``width`` per row).
     body : list of str
-        The data lines the fields come from.
+        The lines after the header (each without its line end).
+    sep : str
+        The field separator.
     width : int
-        Fields per row.
+        Fields per row (the header's).
     cmap : ColumnMap
         The reader options (decimal mark, time unit).
 
     Returns
     -------
     numpy.ndarray or None
-        Shape ``(len(flat),)`` float64, the fields in the order of ``flat``; or None.
+        Shape ``(len(body), width)`` float64, or None.
     """
-    if cmap.decimal != "." or cmap.time_unit.lower() in ("iso", "hms") or not width:
+    if cmap.decimal != "." or cmap.time_unit.lower() in ("iso", "hms") or not body or width < 2:
         return None
-    if not all(map(str.isascii, body)):
+    if max(map(len, body)) > csv.field_size_limit():
+        return None
+    joined = "\n".join(body)
+    if not joined.isascii() or any(c in joined for c in _SPACE_NOT_FOR_FLOAT):
+        return None
+    if _is_units_row(body[0].split(sep)):
         return None
     try:
-        vals = np.array(flat, dtype=float)
-    except ValueError:
+        vals = np.loadtxt(body, dtype=float, delimiter=sep, comments=None, quotechar=None, ndmin=2)
+    except (ValueError, TypeError):
         return None
-    if not np.isfinite(vals).all():
+    if vals.shape != (len(body), width) or not np.isfinite(vals).all():
         return None
     return vals
 

@@ -354,6 +354,16 @@ _NUMERIC_CASES = [
     "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.6x\n2,-0.5,3.80\n",
     "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\u0663.65\n2,-0.5,3.80\n",   # Arabic-Indic digit
     "time_s,current_a,voltage_v\n1,1,1\n0,1.0,3.70\n1,1.5,3.65\n",           # a first row of 1s: a units row
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\x1f3.65\n2,-0.5,3.80\n",   # numpy strips \x1f, float() not
+    "time_s,current_a,voltage_v\n0,1_0,3.70\n1,1.5,3.65\n2,-0.5,3.80\n",     # float() reads 1_0, numpy not
+    "time_s\tcurrent_a\tvoltage_v\n0\t1.0\t3.7\n1\t1.5\t 3.65 \n",
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n\n1,1.5,3.65\n",                 # blank line: skipped, rows renumbered
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65,\n2,-0.5,3.80\n",    # a row one field longer
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5\n2,-0.5,3.80\n",          # a short row (not the last)
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n2,-0.5\n",          # a short last row: dropped
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n2,-0.5,3.8",         # no final line end
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\"3.65\"\n2,-0.5,3.80\n",  # quotes
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65 # note\n2,-0.5,3.80\n",   # no comments in a CSV
 ]
 
 
