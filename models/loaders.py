@@ -479,8 +479,8 @@ def _plain_numbers(body: list[str], sep: str, width: int, cmap: ColumnMap) -> np
     else: a field that is not a finite ASCII number (a blank, ``nan``, text, quotes, a digit of
     another script, an ASCII separator control that numpy would strip as white space and Python's
     ``float`` would not), a line of another width or a blank line (the row count would differ), a
-    line over the csv module's field limit, a first line that is a units row, the decimal mark ``,``, or a
-    time column read as text (dates, ``hh:mm:ss``).
+    line over the csv module's field limit, a first line that is a units row, the decimal mark
+    ``,``, or a time column read as text (dates, ``hh:mm:ss``).
 
     Parameters
     ----------
