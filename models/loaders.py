@@ -280,8 +280,9 @@ def make_column_map(preset: str | None = None, mapping: ColumnMap | None = None,
 class RawTable:
     """Columns as read from a file, before mapping.
 
-    ``columns`` maps each source name to a 1-D array (strings for CSV, the stored dtype
-    otherwise); ``row_labels(k)`` says how to name data row ``k`` (0-based) in messages.
+    ``columns`` maps each source name to a 1-D array (for CSV: strings, or float64 when every
+    field of a plain file is a finite number, see ``_plain_numbers``; the stored dtype otherwise);
+    ``where(k)`` says how to name data row ``k`` (0-based) in messages.
     """
 
     path: str
@@ -387,10 +388,12 @@ def _read_csv_text(path: Path, cmap: ColumnMap) -> RawTable:
     body = lines[hidx + 1:]
     width = len(names)
     info: dict = {"header_line": hidx + 1, "separator": sep, "nul_bytes_removed": nul, "preamble_lines": hidx}
-    flat = _plain_fields(body, sep, width) if ends_with_newline else None
-    if flat is not None:  # every line a full data row: the fields of column c are flat[c::width]
-        return _csv_table(path, cmap, names, [flat[c::width] for c in range(width)], len(body),
-                          np.arange(hidx + 2, hidx + 2 + len(body)), info, None, None, hidx)
+    nums = _plain_numbers(body, sep, width, cmap) if ends_with_newline else None
+    flat = _plain_fields(body, sep, width) if ends_with_newline and nums is None else None
+    if nums is not None or flat is not None:  # every line a full data row
+        columns = [nums[:, c] for c in range(width)] if nums is not None else [flat[c::width] for c in range(width)]
+        return _csv_table(path, cmap, names, columns, len(body), np.arange(hidx + 2, hidx + 2 + len(body)), info,
+                          None, None, hidx)
     reader = csv.reader(body, delimiter=sep)
     rows, line_no = [], []
     named = max((c for c, nm in enumerate(names) if nm), default=-1) + 1  # fields up to the last named one
@@ -459,16 +462,75 @@ def _plain_fields(body: list[str], sep: str, width: int) -> list[str] | None:
     return joined.split(sep)
 
 
+# ASCII characters numpy's reader strips around a number as white space and Python's float() does not
+# (Py_UNICODE_ISSPACE against Py_ISSPACE): a file holding one is left to the text path
+_SPACE_NOT_FOR_FLOAT = ("\x1c", "\x1d", "\x1e", "\x1f")
+
+
+def _plain_numbers(body: list[str], sep: str, width: int, cmap: ColumnMap) -> np.ndarray | None:
+    """The data lines of a CSV as a float table, when every line is ``width`` finite ASCII numbers; else None.
+
+    The fast path of :func:`_read_csv_text` for the usual file (a logger's or a script's numbers
+    and nothing else): numpy's text reader (``np.loadtxt``, no comments, no quotes) converts every
+    field without making a string of it, where the text path (:func:`_plain_fields` or the csv
+    module, then :func:`_numeric`) makes one per field and converts it with Python's ``float``.
+    Both round the decimal text correctly (``PyOS_string_to_double``), so the numbers are the
+    same.  None, and the text path with every check and message of :func:`_numeric`, for anything
+    else: a field that is not a finite ASCII number (a blank, ``nan``, text, quotes, a digit of
+    another script, an ASCII separator control that numpy would strip as white space and Python's
+    ``float`` would not), a line of another width or a blank line (the row count would differ), a
+    line over the csv module's field limit, a first line that is a units row, the decimal mark
+    ``,``, or a time column read as text (dates, ``hh:mm:ss``).
+
+    Parameters
+    ----------
+    body : list of str
+        The lines after the header (each without its line end).
+    sep : str
+        The field separator.
+    width : int
+        Fields per row (the header's).
+    cmap : ColumnMap
+        The reader options (decimal mark, time unit).
+
+    Returns
+    -------
+    numpy.ndarray or None
+        Shape ``(len(body), width)`` float64, or None.
+    """
+    if cmap.decimal != "." or cmap.time_unit.lower() in ("iso", "hms") or not body or width < 2:
+        return None
+    if max(map(len, body)) > csv.field_size_limit():
+        return None
+    joined = "\n".join(body)
+    if not joined.isascii() or any(c in joined for c in _SPACE_NOT_FOR_FLOAT):
+        return None
+    if _is_units_row(body[0].split(sep)):
+        return None
+    try:
+        vals = np.loadtxt(body, dtype=float, delimiter=sep, comments=None, quotechar=None, ndmin=2)
+    except (ValueError, TypeError):
+        return None
+    if vals.shape != (len(body), width) or not np.isfinite(vals).all():
+        return None
+    return vals
+
+
 def _csv_table(path, cmap, names, columns, n_rows, line_no, info, units_row, units_line, hidx) -> RawTable:
-    """The RawTable of a CSV's data columns (``columns[c]`` = the fields of column c)."""
+    """The RawTable of a CSV's data columns (``columns[c]`` = the fields of column c).
+
+    A column given as a float array (:func:`_plain_numbers`) is kept as it is (a copy); a list of
+    fields becomes an object array of str.
+    """
     width = len(names)
     cols: dict[str, np.ndarray] = {}
     final: dict[int, str] = {}
     used = {cmap.time_col, cmap.current_col, cmap.voltage_col, cmap.temperature, cmap.soc_ref, cmap.ah_counter,
             "temperature_c", "soc_ref"}
     for c, nm in enumerate(names):
+        numbers = isinstance(columns[c], np.ndarray)
         if not nm:
-            if not "".join(columns[c]).strip():
+            if not numbers and not "".join(columns[c]).strip():
                 continue  # trailing separator
             nm = f"column_{c + 1}"
         if nm in cols:
@@ -479,8 +541,11 @@ def _csv_table(path, cmap, names, columns, n_rows, line_no, info, units_row, uni
             while f"{nm}.{k}" in cols:
                 k += 1
             nm = f"{nm}.{k}"
-        col = np.empty(n_rows, dtype=object)
-        col[:] = columns[c]
+        if numbers:
+            col = columns[c].copy()
+        else:
+            col = np.empty(n_rows, dtype=object)
+            col[:] = columns[c]
         cols[nm] = col
         final[c] = nm
     if units_row is not None:

@@ -322,7 +322,9 @@ def test_mat_cell_array_of_time_stamps(tmp_path):
 ])
 def test_plain_csv_rows_read_as_the_csv_module_reads_them(text, tmp_path, monkeypatch):
     # reference: Python's csv.reader (the general loop); the plain-row shortcut must give the same table
+    # (as text: the numeric fast path, compared with the text columns below, is off here)
     from socfuse.models import loaders as L
+    monkeypatch.setattr(L, "_plain_numbers", lambda *a: None)
     p = tmp_path / "a.csv"
     p.write_bytes(text.encode())
     sep = ";" if ";" in text else None
@@ -335,3 +337,75 @@ def test_plain_csv_rows_read_as_the_csv_module_reads_them(text, tmp_path, monkey
         assert fast.columns[k].tolist() == slow.columns[k].tolist(), k
     np.testing.assert_array_equal(fast.file_lines, slow.file_lines)
     assert fast.info == slow.info
+
+
+_NUMERIC_CASES = [
+    CANON,
+    # the benchmark's layout (%.17g of the Panasonic drive cycle), an extra column, an amp-hour counter
+    "time_s,current_a,voltage_v,temperature_c,soc_ref,ah\n0,1.8129,4.1458500000000003,21.781980999999998,1,0\n"
+    "0.095996260643005371,1.83249,4.1053199999999999,21.781980999999998,0.99998331885095482,-5e-05\n",
+    "time_s,current_a,voltage_v,,x,x\n0,+1.0,.5e1,7,1,2\n1,1.5, 3.65 ,8,3,4\n2,-0,5.,9,5,6\n",   # forms float() reads
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\n2,-0.5,3.80\n",        # blank voltage: text path
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,nan,3.65\n2,-0.5,3.80\n",    # NaN current: refused
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,inf,3.65\n2,-0.5,3.80\n",
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,2e9\n2,-0.5,3.80\n",     # beyond any measurement
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n2,1.5,3.65\n1,-0.5,3.80\n",    # time goes backwards
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n1,-0.5,3.80\n",    # repeated time: dropped
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.6x\n2,-0.5,3.80\n",
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\u0663.65\n2,-0.5,3.80\n",   # Arabic-Indic digit
+    "time_s,current_a,voltage_v\n1,1,1\n0,1.0,3.70\n1,1.5,3.65\n",           # a first row of 1s: a units row
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\x1f3.65\n2,-0.5,3.80\n",   # numpy strips \x1f, float() not
+    "time_s,current_a,voltage_v\n0,1_0,3.70\n1,1.5,3.65\n2,-0.5,3.80\n",     # float() reads 1_0, numpy not
+    "time_s\tcurrent_a\tvoltage_v\n0\t1.0\t3.7\n1\t1.5\t 3.65 \n",
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n\n1,1.5,3.65\n",                 # blank line: skipped, rows renumbered
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65,\n2,-0.5,3.80\n",    # a row one field longer
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5\n2,-0.5,3.80\n",          # a short row (not the last)
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n2,-0.5\n",          # a short last row: dropped
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65\n2,-0.5,3.8",         # no final line end
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,\"3.65\"\n2,-0.5,3.80\n",  # quotes
+    "time_s,current_a,voltage_v\n0,1.0,3.70\n1,1.5,3.65 # note\n2,-0.5,3.80\n",   # no comments in a CSV
+]
+
+
+def _load_or_message(path, **kw):
+    try:
+        return load_recording(path, **kw)
+    except RecordingError as e:
+        return str(e)
+
+
+@pytest.mark.parametrize("text", _NUMERIC_CASES)
+def test_numeric_csv_fast_path_gives_the_text_path_recording(text, tmp_path, monkeypatch):
+    # reference: the text columns converted by _numeric (float() of each field, then every check);
+    # the fast path must give the same recording, or the same refusal
+    from socfuse.models import loaders as L
+    p = tmp_path / "a.csv"
+    p.write_text(text)
+    fast = _load_or_message(p)
+    monkeypatch.setattr(L, "_plain_numbers", lambda *a: None)
+    slow = _load_or_message(p)
+    if isinstance(slow, str):
+        assert fast == slow
+        return
+    for attr in ("time_s", "current_a", "voltage_v", "temperature_c", "soc_ref"):
+        a, b = getattr(fast, attr), getattr(slow, attr)
+        assert (a is None) == (b is None), attr
+        if a is not None:
+            assert a.tobytes() == b.tobytes(), attr       # bit for bit (the sign of zero too)
+    fx, sx = fast.metadata.pop("extras"), slow.metadata.pop("extras")
+    assert list(fx) == list(sx) and all(fx[k].tobytes() == sx[k].tobytes() for k in fx)
+    assert fast.metadata == slow.metadata
+
+
+def test_numeric_csv_fast_path_values(tmp_path):
+    from socfuse.models import loaders as L
+    p = tmp_path / "a.csv"
+    p.write_text(_NUMERIC_CASES[1])
+    table = L.read_table(p)
+    assert all(a.dtype == np.float64 for a in table.columns.values())   # the fast path was taken
+    rec = load_recording(p)
+    # the file's digits, correctly rounded (Python's float of the same text)
+    np.testing.assert_array_equal(rec.voltage_v, [4.1458500000000003, 4.1053199999999999])
+    np.testing.assert_array_equal(rec.time_s, [0.0, 0.095996260643005371])
+    np.testing.assert_array_equal(rec.metadata["extras"]["ah"], [0.0, -5e-05])
+    assert load_recording(tmp_path / "a.csv").metadata["rows_read"] == 2
