@@ -167,11 +167,13 @@ def _model_run(time_s, current_a, voltage_v, temp_c, states, tab, n_rc, i_b, i_h
         pv = K.polarisation_variance(prm, states[k], n_rc)
         sr = K.resistance_sigma_at(tab, prm, temp_c[k])
         re2 = sr * sr
-        r = vn2 + re2 * current_a[k] * current_a[k] + pv  # the EKF's R_k (kernels docstring)
+        # the EKF's R_k, by its own rule (kernels.measurement_variance: the larger current at an edge)
         if k > 0:
             dtk = time_s[k] - time_s[k - 1]
-            wr = K.resistance_factor(prm, dtk)
-            r = vn2 * K.white_factor(prm, dtk) + re2 * current_a[k] * current_a[k] * wr + pv * wr
+            r = K.measurement_variance(vn2, re2, K.white_factor(prm, dtk), K.resistance_factor(prm, dtk),
+                                       current_a[k], current_a[k - 1], pv)
+        else:
+            r = K.measurement_variance(vn2, re2, 1.0, 1.0, current_a[k], current_a[k], pv)
         if k == 0:
             y, hrow = K.measure(tab, n_rc, i_b, i_h, prm, states[0], current_a[0], temp_c[0])
             _predict_update(b, eye, zq, hrow, r, first_update and voltage_v[0] == voltage_v[0], bn, fb)
