@@ -17,7 +17,7 @@ from __future__ import annotations
 
 import numpy as np
 
-__all__ = ["CUTOFF_MARGIN_V", "identified_soc_floor", "near_cutoff", "outside_identified_range"]
+__all__ = ["CUTOFF_MARGIN_V", "identified_soc_floor", "outside_identified_range"]
 
 # Within this much of the lower voltage limit an equivalent-circuit model misses the
 # diffusion-limited collapse of the voltage (and a cycler or BMS may hold the voltage at the limit
@@ -52,30 +52,6 @@ def identified_soc_floor(model, temperature_c):
     if not (np.all(np.isfinite(t)) and np.all(np.isfinite(z))):
         return None
     return np.interp(np.asarray(temperature_c, dtype=float), t, z)
-
-
-def near_cutoff(model, voltage_v, margin_v: float = CUTOFF_MARGIN_V):
-    """Samples whose terminal voltage lies within ``margin_v`` of the model's lower limit.
-
-    Parameters
-    ----------
-    model : CellModel
-        Its ``v_min_v`` (V) is the discharge cut-off; a model without a finite one marks nothing.
-    voltage_v : array_like, shape (n,)
-        Terminal voltage, V (NaN samples are never marked).
-    margin_v : float
-        Margin above ``v_min_v``, V (default :data:`CUTOFF_MARGIN_V`).
-
-    Returns
-    -------
-    numpy.ndarray of bool, shape (n,)
-    """
-    v = np.asarray(voltage_v, dtype=float)
-    v_min = float(getattr(model, "v_min_v", float("nan")))
-    if not np.isfinite(v_min):
-        return np.zeros(v.shape, dtype=bool)
-    with np.errstate(invalid="ignore"):
-        return np.isfinite(v) & (v < v_min + margin_v)
 
 
 def outside_identified_range(model, current_a, voltage_v, temperature_c=None, polarisation_v=None):

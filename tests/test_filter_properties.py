@@ -42,10 +42,11 @@ def test_ekf_stays_finite_spd_and_in_range(rec, key, bias, soc0, gate):
     # no NaN leaves the filter (innovation is NaN only where the voltage is missing)
     assert np.all(np.isfinite(tr.states)) and np.all(np.isfinite(tr.soc_sigma))
     assert np.all(np.isfinite(tr.voltage_pred_v)) and np.all(np.isfinite(tr.innovation_var_v2))
-    # (a voltage outside the operating envelope, kernels.ST_ENVELOPE, is not used either)
+    # (a voltage outside the operating envelope, kernels.ST_ENVELOPE: a temperature outside the
+    # tables' margin, or within 0.1 V of the cut-off, is not used either)
     prm = setup(m, s).prm
     temp = temperature_array(rec)
-    outside = ~((temp >= prm[K.P_TENV_LO]) & (temp <= prm[K.P_TENV_HI]))
+    outside = ~((temp >= prm[K.P_TENV_LO]) & (temp <= prm[K.P_TENV_HI])) | (rec.voltage_v < m.v_min_v + 0.1)
     assert np.array_equal(np.isnan(tr.innovation_v), np.isnan(rec.voltage_v) | outside)
     assert np.all((tr.soc >= s.soc_min) & (tr.soc <= s.soc_max))
     p = tr.covariance

@@ -73,6 +73,7 @@ def _bad_log(model):
     temp[2000:2100] = 60.0                     # plausible but outside the model's tables: voltage not used
     i_log[500:520] = 450.0                     # within 100 C but the RC state leaves its range: reset
     v[900:1300] += 0.4                         # voltage sensor stuck high: fallback, then recovery
+    v[1400:1420] = 2.55                        # within 0.1 V of the 2.5 V cut-off: voltage not used
     keep = np.ones(n, bool)
     keep[1600:1900] = False                    # a 5 min logging gap while working
     return Recording(t[keep], i_log[keep], v[keep], temp[keep], name="bad log")
@@ -114,3 +115,5 @@ def test_python_and_c_take_the_same_decisions(tmp_path, soc0, adapt):          #
     assert np.max(np.abs(tr.states[:, 0] - c[:, 2])) < 1e-3
     # recovered after the sensor was repaired
     assert healthy_py[-100:].all()
+    # the voltages next to the cut-off are left out by both (kernels.voltage_outside_envelope, sfx_step)
+    assert np.all(py_status[1400:1420] & K.ST_ENVELOPE) and np.all(c_status[1400:1420] & K.ST_ENVELOPE)

@@ -10,13 +10,13 @@ import numpy as np
 import pytest
 
 from ekf_cases import tiny_model
-from socfuse.estimator.filters.ekf import setup
-from socfuse.estimator.filters.kernels import resistance_sigma_at
+from socfuse.estimator.filters.ekf import run_ekf, setup
+from socfuse.estimator.filters.kernels import resistance_sigma_at, voltage_outside_envelope
 from socfuse.estimator.filters.settings import at_temperature, default_settings, settings_from_dict, settings_to_dict
 from socfuse.models import Recording, simulate
 from socfuse.estimator.filters.kernels import ST_ENVELOPE
 from socfuse.estimator.filters.run import estimate
-from socfuse.models.validity import CUTOFF_MARGIN_V, identified_soc_floor, near_cutoff, outside_identified_range
+from socfuse.models.validity import CUTOFF_MARGIN_V, identified_soc_floor, outside_identified_range
 
 
 def _with_range(model, temps, lows):
@@ -54,8 +54,10 @@ def test_voltages_next_to_the_cut_off_are_left_out_by_the_estimators():
     # cycler or BMS may hold the voltage at the limit (common practice, no source): 0.1 V margin
     m = tiny_model().with_(v_min_v=3.0)
     assert CUTOFF_MARGIN_V == 0.10
-    assert near_cutoff(m, [3.05, 3.0999, 3.1, 3.5, np.nan]).tolist() == [True, True, False, False, False]
-    assert not near_cutoff(m.with_(v_min_v=2.5), [3.05]).any()
+    prm = setup(m).prm
+    assert [voltage_outside_envelope(prm, v, 25.0) for v in (3.05, 3.0999, 3.1, 3.5, np.nan)] == \
+        [True, True, False, False, False]
+    assert not voltage_outside_envelope(setup(m.with_(v_min_v=2.5)).prm, 3.05, 25.0)
     # a 1C discharge from 60 % SOC into the cut-off: the filter does not update on the last samples
     t = np.arange(0.0, 1800.0)
     i = np.full(t.size, 4.8)
@@ -63,9 +65,12 @@ def test_voltages_next_to_the_cut_off_are_left_out_by_the_estimators():
     rec = Recording(t, i, sim.voltage_v, None, sim.soc, name="into the cut-off (simulated)")
     near = sim.voltage_v < 3.1
     assert 50 < near.sum() < t.size - 200
-    tr = estimate(m, rec, "ekf", soc0=0.6)
-    assert np.all(tr.status[near] & ST_ENVELOPE) and not np.any(tr.status[~near] & ST_ENVELOPE)
-    assert np.all(np.isnan(tr.innovation_v[near])) and np.all(np.isfinite(tr.innovation_v[~near]))
+    # the filter step's own rule: estimate, the bare monitored EKF and the UKF alike
+    for tr in (estimate(m, rec, "ekf", soc0=0.6), run_ekf(m, rec, soc0=0.6, monitor=True),
+               estimate(m, rec.slice(1000, 1800), "ukf", soc0=float(sim.soc[1000]))):
+        nr = near[-tr.time_s.size:]
+        assert np.all(tr.status[nr] & ST_ENVELOPE) and not np.any(tr.status[~nr] & ST_ENVELOPE)
+        assert np.all(np.isnan(tr.innovation_v[nr])) and np.all(np.isfinite(tr.innovation_v[~nr]))
 
 
 def test_settings_temperature_axis_scales_the_model_error_with_r0():

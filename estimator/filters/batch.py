@@ -42,10 +42,11 @@ from numba import njit, prange
 
 from socfuse.estimator.filters.ekf import batch_inputs, initial_soc, prior, recording_arrays, setup
 from socfuse.estimator.filters.kernels import (ADAPT_CAP, P_ADAPT, P_CAP, P_CAPERR, P_GATE, P_GREL, P_IN, P_SE,
-                                               P_SMAX, P_SMIN, P_TDEF, P_TENV_HI, P_TENV_LO, P_TMIN, P_TSTEP, P_VN,
+                                               P_SMAX, P_SMIN, P_TDEF, P_TMIN, P_TSTEP, P_VN,
                                                _measure, _qdiag, _temp_index, _transition, gap_variance,
                                                gate_rejects, layout, measurement_variance, polarisation_variance,
-                                               resistance_factor, resistance_sigma, soc_from_voltage, specialised, white_factor)
+                                               resistance_factor, resistance_sigma, soc_from_voltage, specialised,
+                                               voltage_outside_envelope, white_factor)
 from socfuse.estimator.filters.settings import FilterSettings
 
 __all__ = ["BLOCK", "CellsResult", "ekf_cells_run", "run_ekf_cells", "KEEP_FINAL", "KEEP_SOC", "KEEP_ALL"]
@@ -285,7 +286,7 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
             tk = temp_c[kk]
             skip_upd[c] = False
             vk = voltage_v[kk]
-            if vk == vk and not (prm[P_TENV_LO] <= tk <= prm[P_TENV_HI]):
+            if voltage_outside_envelope(prm, vk, tk):
                 vk = np.nan  # outside the operating envelope: predict only
             vks[c] = vk
             if gap_k[c] and vk == vk:

@@ -22,6 +22,7 @@ from socfuse.estimator.filters import kernels as K
 from socfuse.estimator.filters.settings import FilterSettings, default_settings
 from socfuse.estimator.filters.tables import KernelTables
 from socfuse.estimator.filters.trace import Trace, make_trace, state_names
+from socfuse.models.validity import CUTOFF_MARGIN_V
 
 __all__ = ["EkfSetup", "batch_inputs", "setup", "initial_soc", "prior", "recording_arrays", "run_ekf", "run_ekf_batch",
            "run_ekf_store", "temperature_array", "envelope_c"]
@@ -136,6 +137,7 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_R0REF] = float(K.table_value(tab.packed, 2, 0.5, 25.0, tab.t_min, tab.t_step))
     # operating envelope: the model's temperature tables plus a margin
     prm[K.P_TENV_LO], prm[K.P_TENV_HI] = envelope_c(tab)
+    prm[K.P_VCUT] = float(model.v_min_v) + CUTOFF_MARGIN_V   # voltages next to the cut-off are not used
     prm[K.P_TDEF] = tab.default_temperature_c   # missing / implausible temperatures (25 but for one row)
     # input plausibility and health limits (kernels: check_inputs, ekf_run_monitored; the C code)
     v_span = float(model.v_max_v - model.v_min_v)

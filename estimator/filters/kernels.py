@@ -112,7 +112,7 @@ from socfuse.models.simulation import charge_transfer_v
 
 __all__ = ["P_VN", "P_IN", "P_QSOC", "P_QRC", "P_QB", "P_QH", "P_GATE", "P_SMIN", "P_SMAX", "P_CAP",
            "P_ETA", "P_HG", "P_HM", "P_TMIN", "P_TSTEP", "P_GREL", "P_SE", "P_TAUE", "P_CAPERR", "P_RERR", "P_VCORR", "P_IMAX", "P_VLO", "P_VHI",
-           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "P_TDEF", "P_RCERR", "P_RERRX", "P_R0REF", "N_PRM", "polarisation_variance", "resistance_sigma", "resistance_sigma_at", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
+           "P_VRCMAX", "P_P0SOC", "P_ADAPT", "P_GAP", "P_RCORR", "P_TENV_LO", "P_TENV_HI", "P_TDEF", "P_RCERR", "P_RERRX", "P_R0REF", "P_VCUT", "N_PRM", "voltage_outside_envelope", "polarisation_variance", "resistance_sigma", "resistance_sigma_at", "ST_ENVELOPE", "ENVELOPE_MARGIN_C", "resistance_factor", "measurement_variance", "gap_variance", "ST_GAP", "check_inputs", "gate_rejects", "project_soc", "health_step", "ekf_run_monitored", "STATUS_BITS", "ST_REJ_DT",
            "ST_REJ_CURRENT", "ST_REJ_VOLTAGE", "ST_REJ_TEMP", "ST_GATED", "ST_FALLBACK", "ST_RESET",
            "ST_WAITING", "ST_RESEED", "P_FLOOR", "H_MAX", "BIG", "I_MAX_C", "V_MARGIN", "T_LIMITS_C",
            "white_factor", "layout", "layout_size", "specialised",
@@ -128,7 +128,8 @@ P_TDEF = 31  # temperature used for a missing or implausible sample, degC (estim
 P_RCERR = 32  # relative sigma of the RC polarisation (measurement_variance)
 P_RERRX = 33  # exponent of the resistance error's temperature axis (resistance_sigma)
 P_R0REF = 34  # R0 of the kernel tables at 50 % SOC, 25 degC, ohm (resistance_sigma)
-N_PRM = 35
+P_VCUT = 35   # voltages below this are not used (V): the cut-off plus models.validity.CUTOFF_MARGIN_V
+N_PRM = 36
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -160,7 +161,8 @@ ST_RESET = 0x40         # filter re-initialised from the baseline (non-finite or
 ST_WAITING = 0x80       # not started: no valid voltage yet and no initial SOC given (C API)
 ST_RESEED = 0x100       # baseline reseeded from the OCV after a rest
 ST_GAP = 0x200          # a logging gap ended here: the current in it was unknown, SOC variance widened
-ST_ENVELOPE = 0x400     # temperature outside the model's tables (beyond a margin): voltage not used
+ST_ENVELOPE = 0x400     # temperature outside the model's tables (beyond a margin), or a voltage next to the
+#                         cut-off (voltage_outside_envelope): voltage not used
 # operating envelope: a voltage measured more than this far outside the model's temperature tables
 # is not used (counting only, sigma grows) rather than extrapolated with confidence (common
 # practice, no source)
@@ -257,6 +259,20 @@ def resistance_sigma(tab, prm, it0, it1, wt):
     if e == 1.0:
         return sr * ratio
     return sr * ratio ** e
+
+
+@njit(cache=True, error_model="numpy", inline="always")
+def voltage_outside_envelope(prm, v, t_c):
+    """Whether a finite voltage sample ``v`` (V) at temperature ``t_c`` (degC) is left out (predict only).
+
+    Outside the operating envelope: a temperature outside ``[prm[P_TENV_LO], prm[P_TENV_HI]]``
+    (the model's tables plus :data:`ENVELOPE_MARGIN_C`), or a voltage below ``prm[P_VCUT]``, the
+    discharge cut-off plus :data:`socfuse.models.validity.CUTOFF_MARGIN_V` (there the cell's
+    voltage collapses faster than an equivalent circuit says, or is held at the limit; the
+    identification's refinement leaves the same samples out).  The one rule of the EKF, the batch
+    kernel, the UKF and the exported C step; the trace marks such samples ``envelope``.
+    """
+    return v == v and (not (prm[P_TENV_LO] <= t_c <= prm[P_TENV_HI]) or v < prm[P_VCUT])
 
 
 @njit(cache=True, error_model="numpy")
@@ -1157,7 +1173,7 @@ def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                     ppred_out[k, i, j] = p[i, j]
         skip_upd = False
         vk = voltage_v[k]
-        env_k = vk == vk and not (prm[P_TENV_LO] <= tk <= prm[P_TENV_HI])
+        env_k = voltage_outside_envelope(prm, vk, tk)
         if env_k:
             vk = np.nan  # outside the operating envelope: predict only
         if gap_k and vk == vk:

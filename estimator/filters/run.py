@@ -182,11 +182,10 @@ def prepare(model, rec, settings: FilterSettings | None = None, soc0: float | No
        unknown-history read is too wide to (Panasonic 0 degC US06, 30 points handed over wrong:
        RMSE from 600 s after the hand-over 8.9 -> 5.3 points).
     3. Voltage samples below the model's identified SOC range at their temperature
-       (:func:`socfuse.models.validity.outside_identified_range`), and those within
-       :data:`socfuse.models.validity.CUTOFF_MARGIN_V` of the model's lower voltage limit
-       (:func:`socfuse.models.validity.near_cutoff`: the collapse an equivalent circuit misses,
-       or a voltage held at the limit), are left out (NaN: the filters predict through them, the
-       baseline does not reseed from them).
+       (:func:`socfuse.models.validity.outside_identified_range`) are left out (NaN: the filters
+       predict through them, the baseline does not reseed from them).  Voltages next to the
+       cut-off are the filter step's own rule
+       (:func:`estimator.filters.kernels.voltage_outside_envelope`, in the exported C too).
 
     Parameters
     ----------
@@ -206,7 +205,7 @@ def prepare(model, rec, settings: FilterSettings | None = None, soc0: float | No
         filters' own rule) and the mask of the samples whose voltage was left out.
     """
     from socfuse.estimator.filters.settings import at_temperature
-    from socfuse.models.validity import identified_soc_floor, near_cutoff, outside_identified_range
+    from socfuse.models.validity import identified_soc_floor, outside_identified_range
 
     s = at_temperature(default_settings(model) if settings is None else settings, model,
                        representative_temperature(rec))
@@ -227,7 +226,6 @@ def prepare(model, rec, settings: FilterSettings | None = None, soc0: float | No
     if identified_soc_floor(model, 25.0) is not None and np.any(np.isfinite(v)):
         outside = outside_identified_range(model, rec.current_a, v, rec.temperature_c,
                                            _polarisation(model, rec, soc0))
-    outside |= near_cutoff(model, v)
     if soc0 is None and np.any(outside):
         # the filters' own start reads the first finite voltage: the only SOC information there is
         outside[: int(np.argmax(np.isfinite(v))) + 1] = False

@@ -19,8 +19,9 @@ from __future__ import annotations
 import numpy as np
 from filterpy.kalman import MerweScaledSigmaPoints, UnscentedKalmanFilter, unscented_transform
 
-from socfuse.estimator.filters.kernels import (P_TDEF, ST_FALLBACK, gate_rejects, health_step, polarisation_variance,
-                                              project_soc, resistance_factor, resistance_sigma_at, white_factor)
+from socfuse.estimator.filters.kernels import (P_TDEF, ST_ENVELOPE, ST_FALLBACK, gate_rejects, health_step,
+                                              polarisation_variance, project_soc, resistance_factor,
+                                              resistance_sigma_at, voltage_outside_envelope, white_factor)
 from socfuse.estimator.filters.ekf import _prior, checked_inputs, initial_soc, setup, temperature_array
 from socfuse.estimator.filters.settings import FilterSettings
 from socfuse.estimator.filters.trace import Trace, make_trace
@@ -114,7 +115,10 @@ def run_ukf(model, rec, settings: FilterSettings | None = None, soc0: float | No
         zp, smat = unscented_transform(zs, pts.Wm, pts.Wc, r)
         vp[k] = zp[0]
         sv[k] = smat[0, 0]
-        if np.isfinite(v[k]):
+        outside = voltage_outside_envelope(su.prm, float(v[k]), float(tc[k]))  # the EKF kernel's rule
+        if outside:
+            status[k] |= ST_ENVELOPE
+        if np.isfinite(v[k]) and not outside:
             inn[k] = v[k] - zp[0]
             nis_avg, healthy = health_step(nis_avg, healthy, inn[k], sv[k])
             if gate_rejects(inn[k], sv[k], s.gate_sigma, run_on, run_s, s.gate_release_s):

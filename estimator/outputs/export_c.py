@@ -239,7 +239,7 @@ def render_sources(model, settings: FilterSettings | None = None) -> dict:
         resistance_error_r0_exponent=c_float(s.resistance_error_r0_exponent), r0_ref_ohm=c_float(su.prm[_K.P_R0REF]),
         noise_corr_s=c_float(s.noise_corr_s), model_error_adapt_s=c_float(s.model_error_adapt_s),
         adapt_cap=c_float(_K.ADAPT_CAP), gap_s=c_float(s.gap_s),
-        tenv_lo=c_float(su.prm[_K.P_TENV_LO]), tenv_hi=c_float(su.prm[_K.P_TENV_HI]),
+        tenv_lo=c_float(su.prm[_K.P_TENV_LO]), tenv_hi=c_float(su.prm[_K.P_TENV_HI]), vcut_v=c_float(su.prm[_K.P_VCUT]),
         default_temp_c=c_float(su.prm[_K.P_TDEF]),
         resistance_error_corr_s=c_float(s.resistance_error_corr_s), n_t=int(packed.shape[1]), n_s=n_s,
         n_bisect=int(math.ceil(math.log2(max(n_s - 1, 2)))) + 1,
