@@ -242,9 +242,9 @@ def initial_soc(su: EkfSetup, rec, soc0: float | None = None, check: bool = True
         sig = s.p0_soc
         t_def = float(su.prm[K.P_TDEF])
         t0 = float(temperature_array(rec, t_def)[0]) if rec.n else t_def
-        if check and rec.n and np.isfinite(v[0]) and su.prm[K.P_TENV_LO] <= t0 <= su.prm[K.P_TENV_HI]:
-            # hand-over check (inside the operating envelope): widen the given sigma to cover a
-            # disagreement with the voltage
+        if check and rec.n and np.isfinite(v[0]) and not K.voltage_outside_envelope(su.prm, float(v[0]), t0):
+            # hand-over check (a voltage the step uses, kernels.voltage_outside_envelope, as the C
+            # step's v_env): widen the given sigma to cover a disagreement with the voltage
             zv, sv = _soc_from_voltage(su, v[0], float(rec.current_a[0]), t0)
             return handover(soc0, sig, zv, sv)
         return soc0, sig

@@ -235,14 +235,20 @@ def prepare(model, rec, settings: FilterSettings | None = None, soc0: float | No
 
 
 def _inside_envelope(model, rec, s) -> bool:
-    """Whether the first sample's temperature is inside the filters' operating envelope (outside it
-    the voltage is not used, so it cannot check a hand-over either)."""
-    from socfuse.estimator.filters.ekf import envelope_c, setup
+    """Whether the first finite voltage (the one :func:`loaded_start` reads) is one the filter step
+    uses (:func:`estimator.filters.kernels.voltage_outside_envelope`: temperature inside the
+    operating envelope, voltage clear of the cut-off); outside it that voltage cannot check a
+    hand-over either."""
+    from socfuse.estimator.filters.ekf import setup, temperature_array
+    from socfuse.estimator.filters.kernels import P_TDEF, voltage_outside_envelope
 
-    if rec.temperature_c is None or rec.n == 0 or not math.isfinite(float(rec.temperature_c[0])):
+    v = np.asarray(rec.voltage_v, dtype=float)
+    ok = np.flatnonzero(np.isfinite(v))
+    if ok.size == 0:
         return True
-    lo, hi = envelope_c(setup(model, s).tables)
-    return lo <= float(rec.temperature_c[0]) <= hi
+    k = int(ok[0])
+    su = setup(model, s)
+    return not voltage_outside_envelope(su.prm, float(v[k]), float(temperature_array(rec, float(su.prm[P_TDEF]))[k]))
 
 
 def _polarisation(model, rec, soc0):
