@@ -289,7 +289,7 @@ def time_filterpy(model, rec, s, max_steps, rounds=3):
     x0, p0 = prior(su, *initial_soc(su, rec, 0.9))
     t, i, v, tc = recording_arrays(rec)
     grid, tg = tab.soc_grid, tab.temp_grid
-    nx, n_rc, i_b, i_h, i_e = su.n_x, su.n_rc, su.i_b, su.i_h, su.i_e
+    nx, n_rc, i_b, i_h, i_r, i_e = su.n_x, su.n_rc, su.i_b, su.i_h, su.i_r, su.i_e
     cap, eta_c, gam, hm = tab.capacity_as, tab.eta_charge, tab.hyst_gamma, tab.hyst_max_v
 
     def rows_at(temp):
@@ -319,6 +319,8 @@ def time_filterpy(model, rec, s, max_steps, rounds=3):
             f[i_b, i_b] = 1.0
         q = np.outer(g, g) * s.current_noise_a ** 2 + np.eye(nx) * s.q_rc_v2_per_s * dt
         q[0, 0] = s.q_soc_per_s * dt + g[0] ** 2 * s.current_noise_a ** 2
+        if i_r >= 0:
+            q[i_r, i_r] = s.q_resistance_per_s * dt
         if i_e >= 0:
             q[i_e, i_e] = s.model_error_v ** 2 * (1 - f[i_e, i_e] ** 2)
         return f, g, q
@@ -342,7 +344,8 @@ def time_filterpy(model, rec, s, max_steps, rounds=3):
     def hx(x, ik, rows):
         z = x[0]
         ie = ik - x[i_b] if i_b >= 0 else ik
-        y = np.interp(z, grid, rows[0]) - np.interp(z, grid, rows[2]) * ie - sum(x[1 + j] for j in range(n_rc))
+        r0 = np.interp(z, grid, rows[2]) * (1 + x[i_r] if i_r >= 0 else 1.0)
+        y = np.interp(z, grid, rows[0]) - r0 * ie - sum(x[1 + j] for j in range(n_rc))
         if i_h >= 0:
             y += hm * x[i_h]
         if i_e >= 0:
@@ -353,8 +356,11 @@ def time_filterpy(model, rec, s, max_steps, rounds=3):
         h = np.zeros((1, nx))
         h[0, 0] = np.interp(x[0], grid, rows[1])
         h[0, 1:1 + n_rc] = -1.0
+        r0 = np.interp(x[0], grid, rows[2])
         if i_b >= 0:
-            h[0, i_b] = np.interp(x[0], grid, rows[2])
+            h[0, i_b] = r0 * (1 + x[i_r] if i_r >= 0 else 1.0)
+        if i_r >= 0:
+            h[0, i_r] = -r0 * (ik - x[i_b] if i_b >= 0 else ik)
         if i_h >= 0:
             h[0, i_h] = hm
         if i_e >= 0:

@@ -23,7 +23,8 @@ def _filterpy_run(m, su, rec, x0, p0):
     F, B and Q are built here from the model constants (constant RC tables, so a = exp(-dt/tau)
     and b = R (1 - a) exactly); Hx and HJacobian are the model's measurement through
     ``EkfSetup.measure`` (the same tabulated OCV curve).  The model-error state, when on, is a
-    first-order Gauss-Markov process (F = exp(-dt/tau), Q = sigma^2 (1 - F^2)); the capacity
+    first-order Gauss-Markov process (F = exp(-dt/tau), Q = sigma^2 (1 - F^2)); the resistance-scale
+    state, when on, a random walk (F = 1, Q = q_r dt) whose H entry ``-R0 i`` the measurement gives; the capacity
     term adds ``c^2 |dSOC|`` to Q[0, 0]; R of sample k is ``sigma_v^2 + (sigma_R max(|i_k|, |i_k-1|))^2 +
     (sigma_P sum_j |v_j|)^2`` (``v_j`` the predicted RC voltages); both white
     sensor variances are multiplied by ``max(1, noise_corr_s / dt)``.
@@ -58,6 +59,8 @@ def _filterpy_run(m, su, rec, x0, p0):
             wf = max(1.0, s.noise_corr_s / dt)  # band-limited sensor noise (kernels docstring)
             qm = np.outer(g, g) * s.current_noise_a ** 2 * wf + np.diag(qd) * dt
             qm[0, 0] += s.capacity_error_frac ** 2 * abs(g[0] * (u - b))
+            if su.i_r >= 0:  # resistance scale: a random walk (its H entry -R0 i comes from measure)
+                qm[su.i_r, su.i_r] += s.q_resistance_per_s * dt
             if su.i_e >= 0:
                 ae = np.exp(-dt / s.model_error_tau_s)
                 f[su.i_e, su.i_e] = ae
@@ -83,7 +86,7 @@ def _filterpy_run(m, su, rec, x0, p0):
 
 
 WHITE = dict(model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, voltage_noise_v=0.01,
-             noise_corr_s=0.0, rc_error_frac=0.0)
+             noise_corr_s=0.0, rc_error_frac=0.0, estimate_resistance=False)
 
 
 @pytest.mark.parametrize("n_rc,bias,uneven,new", [(2, False, False, False), (1, True, True, False),

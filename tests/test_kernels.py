@@ -78,32 +78,33 @@ def test_ekf_tracks_simulation_and_batch_equals_single():
 def test_linearise_matches_finite_differences():
     m = tiny_model(n_rc=2, hysteresis=True)
     su = setup(m, default_settings(m).with_(estimate_bias=True, model_error_v=0.0))
-    x = np.array([0.6, 0.01, 0.02, 0.1, 0.3])
+    assert su.names == ("soc", "v_rc_1_v", "v_rc_2_v", "bias_a", "hyst", "r0_scale")
+    x = np.array([0.6, 0.01, 0.02, 0.1, 0.3, 0.15])
     xp, f, g, q, h, y = su.linearise(x, 2.0, 3.0, 1.5)
     # central differences (textbook numerical Jacobian) of the same transition
     eps = 1e-6
-    for j in range(1, 5):  # soc column omitted: F ignores the SOC dependence of the RC parameters
-        dx = np.zeros(5)
+    for j in range(1, 6):  # soc column omitted: F ignores the SOC dependence of the RC parameters
+        dx = np.zeros(6)
         dx[j] = eps
         fd = (su.linearise(x + dx, 2.0, 3.0, 1.5)[0] - su.linearise(x - dx, 2.0, 3.0, 1.5)[0]) / (2 * eps)
         np.testing.assert_allclose(f[:, j], fd, atol=1e-8)
-    for j in range(1, 5):
-        dx = np.zeros(5)
+    for j in range(1, 6):
+        dx = np.zeros(6)
         dx[j] = eps
         fd = (su.measure(xp + dx, 3.0)[0] - su.measure(xp - dx, 3.0)[0]) / (2 * eps)
         assert h[j] == pytest.approx(fd, abs=1e-6)
     # SOC column: the PCHIP slope (scipy PchipInterpolator derivative) only; the -i dR0/dSOC term of
     # the exact derivative is left out by design (kernels docstring, "Jacobian choice"): here
-    # R0 = 0.02 - 0.005 soc, so the exact derivative would be larger by 0.005 * (i - bias)
+    # R0 = 0.02 - 0.005 soc, so the exact derivative would be larger by 0.005 * (1 + r) (i - bias)
     assert h[0] == pytest.approx(float(m.ocv.slope(xp[0])), abs=1e-4)
-    fd0 = (su.measure(xp + [eps, 0, 0, 0, 0], 3.0)[0] - su.measure(xp - [eps, 0, 0, 0, 0], 3.0)[0]) / (2 * eps)
-    assert fd0 - h[0] == pytest.approx(0.005 * (3.0 - xp[3]), abs=1e-3)  # table slope vs PCHIP slope
+    fd0 = (su.measure(xp + [eps, 0, 0, 0, 0, 0], 3.0)[0] - su.measure(xp - [eps, 0, 0, 0, 0, 0], 3.0)[0]) / (2 * eps)
+    assert fd0 - h[0] == pytest.approx(0.005 * (1 + xp[5]) * (3.0 - xp[3]), abs=1e-3)  # table vs PCHIP slope
 
 
 def test_model_error_state_exact_discretisation():
     m = tiny_model(n_rc=1)
     s = default_settings(m).with_(model_error_v=0.01, model_error_tau_s=50.0, estimate_bias=False,
-                                  capacity_error_frac=0.0)
+                                  capacity_error_frac=0.0, estimate_resistance=False)
     su = setup(m, s)
     assert su.n_x == 3 and su.i_e == 2 and su.names[-1] == "model_error_v"
     x = np.array([0.5, 0.01, 0.004])

@@ -17,7 +17,7 @@ def test_rts_pass_matches_filterpy_on_a_rest():
     m = tiny_model(n_rc=2, linear=True)
     s = default_settings(m).with_(gate_sigma=0.0, q_rc_v2_per_s=1e-6, soc_min=-1.0, soc_max=2.0, voltage_noise_v=0.01,
                                   model_error_v=0.0, resistance_error_ohm=0.0, capacity_error_frac=0.0, estimate_bias=False,
-                                  noise_corr_s=0.0)
+                                  noise_corr_s=0.0, estimate_resistance=False)
     t = np.arange(600.0)
     i = np.zeros(t.size)
     sim = simulate(m, t, i, soc0=0.5, v_rc0=[0.05, 0.03])

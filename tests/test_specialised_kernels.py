@@ -32,7 +32,7 @@ def _both(model, rec, settings):
         if generic:
             if not hasattr(K._ekf_run, "compile"):
                 pytest.skip("NUMBA_DISABLE_JIT: no compiled variants to compare")
-            g = K._ekf_run(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.i_e, int(su.est_h), su.prm,
+            g = K._ekf_run(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.i_r, su.i_e, int(su.est_h), su.prm,
                            x0, p0, *outs, False, d, d, d)
         else:
             g = K.ekf_run(t, i, v, tc, su.tables.packed, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm, x0, p0, *outs,
@@ -49,7 +49,7 @@ def _assert_same(res):
 
 
 def test_demo_day_specialised_equals_generic(repo):
-    m = truth_cell_model()   # 6 states: 2 RC, bias, hysteresis, model error
+    m = truth_cell_model()   # 7 states: 2 RC, bias, hysteresis, resistance scale, model error
     rec = load_recording(repo / "datasets" / "c48_day_lunch.csv")
     _assert_same(_both(m, rec, default_settings(m)))
 
@@ -65,5 +65,6 @@ def test_real_10hz_specialised_equals_generic(realdata):
 
 def test_layout_mismatch_is_refused():
     su = setup(tiny_model())
-    with pytest.raises(ValueError, match="state size 5 does not match"):
-        K.layout(5, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm)
+    assert su.n_x == 5   # soc, one RC pair, bias, resistance scale, model error
+    with pytest.raises(ValueError, match="state size 6 does not match"):
+        K.layout(6, su.n_rc, su.i_b, su.i_h, su.est_h, su.prm)

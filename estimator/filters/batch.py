@@ -98,7 +98,7 @@ def _pred_bias_diag(pii, di, ui, ci, pbb, gsi, gi, qi, n):
 
 
 @njit(cache=True, error_model="numpy")
-def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms,
+def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prms,
            x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out):
     """Cells ``c0..c1-1`` over all their samples; see :func:`ekf_cells_run`.
 
@@ -121,13 +121,13 @@ def _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_
     flags = np.zeros((4, nb), dtype=np.bool_)
     ints = np.zeros((5, nb), dtype=np.int64)
     one = np.zeros((8, nx))                  # one cell's vectors: xs, xn, d1, g1, h1, kg1, ph1, q
-    _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h,
+    _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h,
                 prms, x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out,
                 li, pc, cache, p, cols, cells, flags, ints, one)
 
 
 @njit(cache=True, error_model="numpy", _nrt=False)
-def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h,
+def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h,
                 prms, x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out,
                 li, pc, cache, p, cols, cells, flags, ints, one):
     """The time loop of :func:`_block` over the arrays it allocated.
@@ -181,7 +181,7 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
     kg1 = one[5]
     ph1 = one[6]
     q = one[7]
-    _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
+    _qdiag(n_rc, i_b, i_h, i_r, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
     se2 = prm[P_SE] * prm[P_SE]
@@ -224,7 +224,7 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
                     xs[i] = x[i, c]
                 ue = u - xs[i_b] if i_b >= 0 else u
                 pc[P_CAP] = cap[c]
-                _transition(tab, n_rc, i_b, i_h, i_e, pc, xs, u, dt, pt0[c], pt1[c], pwt[c], xn, d1, g1, cache)
+                _transition(tab, n_rc, i_b, i_h, i_r, i_e, pc, xs, u, dt, pt0[c], pt1[c], pwt[c], xn, d1, g1, cache)
                 for i in range(nx):
                     x[i, c] = xn[i]
                     qd[i, c] = q[i] * dt
@@ -309,7 +309,7 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
             for i in range(nx):
                 xs[i] = x[i, c]
             ik = current_a[kk]
-            y[c] = _measure(tab, n_rc, i_b, i_h, i_e, pc, xs, ik, it0, it1, wt, h1)
+            y[c] = _measure(tab, n_rc, i_b, i_h, i_r, i_e, pc, xs, ik, it0, it1, wt, h1)
             for i in range(nx):
                 hs[i, c] = h1[i]
             pt0[c] = it0
@@ -420,7 +420,7 @@ def _block_loop(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, ta
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms, x0s,
+def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prms, x0s,
                   p0s, keep, block, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out):
     """The EKF over ``C`` cells, blocks of ``block`` cells in parallel (numba ``prange``).
 
@@ -429,8 +429,8 @@ def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_r
     offs : int64 (R + 1,)   recording ``r`` occupies rows ``offs[r]:offs[r+1]`` of the sample arrays
     cell_rec : int64 (C,)   recording of each cell
     time_s, current_a, voltage_v, temp_c : (sum N_r,)   samples (s, A + = discharge, V (NaN missing), degC)
-    tab, n_rc, i_b, i_h, est_h : as :func:`estimator.filters.kernels.ekf_run`; ``i_e`` the model-error
-        state's index or -1 (the layout, from :func:`estimator.filters.kernels.layout`; compile-time
+    tab, n_rc, i_b, i_h, est_h : as :func:`estimator.filters.kernels.ekf_run`; ``i_r``, ``i_e`` the
+        resistance-scale and model-error states' indices or -1 (the layout, from :func:`estimator.filters.kernels.layout`; compile-time
         constants when called through :func:`estimator.filters.kernels.specialised`)
     prms : (C, N_PRM)   parameter vector per cell (they differ only in the capacity ``P_CAP``)
     x0s, p0s : (C, n_x), (C, n_x, n_x)   priors
@@ -445,7 +445,7 @@ def ekf_cells_run(offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_r
     for b in prange(nblk):
         c0 = b * block
         c1 = min(nc, c0 + block)
-        _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prms,
+        _block(c0, c1, offs, cell_rec, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prms,
                x0s, p0s, keep, soc_out, sig_out, vpred_out, innov_out, s_out, x_out, x_fin, p_fin, gated_out)
 
 

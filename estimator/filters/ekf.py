@@ -42,6 +42,7 @@ class EkfSetup:
     names: tuple
     settings: FilterSettings
     i_e: int = -1
+    i_r: int = -1
 
     def linearise(self, x, i_prev, i_next, dt_s, t_prev=np.nan, t_next=np.nan):
         """``(x_pred, F, G, Q, H, y_pred)`` of one step; see :func:`estimator.kernels.linearise`."""
@@ -102,6 +103,10 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     if tab.has_hysteresis:
         i_h = nx
         nx += 1
+    i_r = -1
+    if s.estimate_resistance:
+        i_r = nx
+        nx += 1
     i_e = -1
     if s.model_error_v > 0.0:
         i_e = nx
@@ -146,9 +151,11 @@ def setup(model, settings: FilterSettings | None = None, tables: KernelTables | 
     prm[K.P_VHI] = float(model.v_max_v) + K.V_MARGIN * v_span
     prm[K.P_VRCMAX] = v_span
     prm[K.P_P0SOC] = s.p0_soc
+    prm[K.P_RSTATE] = 1.0 if i_r >= 0 else 0.0
+    prm[K.P_QR] = s.q_resistance_per_s
     prm.setflags(write=False)
     out = EkfSetup(tab, prm, n_rc, i_b, i_h, bool(s.estimate_hysteresis) and tab.has_hysteresis, nx,
-                   state_names(n_rc, i_b >= 0, i_h >= 0, i_e >= 0), s, i_e)
+                   state_names(n_rc, i_b >= 0, i_h >= 0, i_e >= 0, i_r >= 0), s, i_e, i_r)
     if tables is None:
         if len(_SETUP_CACHE) > 32:
             _SETUP_CACHE.clear()
@@ -294,6 +301,8 @@ def _prior(su: EkfSetup, z0: float, sig0: float):
         p0[su.i_b, su.i_b] = s.p0_bias_a ** 2
     if su.i_h >= 0:
         p0[su.i_h, su.i_h] = s.p0_hyst ** 2 if su.est_h else 0.0
+    if su.i_r >= 0:
+        p0[su.i_r, su.i_r] = s.p0_resistance ** 2
     if su.i_e >= 0:
         p0[su.i_e, su.i_e] = s.model_error_v ** 2
     return x0, p0

@@ -13,8 +13,20 @@ parameters at ``(z_k, T_k)``::
     v_j' = a_j v_j + R_j (1 - a_j) u                 a_j = exp(-dt / tau_j)   (exact ZOH)
     b'   = b
     h'   = e h - (1 - e) sgn(u)                      e = exp(-|eta u gamma dt / Q|)  (Plett 2004, part 2)
+    r'   = r                                         (resistance-scale state)
     m'   = a_m m                                     a_m = exp(-dt / tau_m)   (model-error state)
-    y_k  = OCV(z_k, T_k) + M h_k - sum_j v_j,k - R0(z_k, T_k) (i_k - b_k) + m_k
+    y_k  = OCV(z_k, T_k) + M h_k - sum_j v_j,k - R0(z_k, T_k) (1 + r_k) (i_k - b_k) + m_k
+
+Resistance scale (the state ``r``, when ``prm[P_RSTATE] > 0``): the series resistance the filter
+uses is the table's times ``1 + r``, ``r`` a random walk (density ``prm[P_QR]``, 1/s) with
+``H[r] = -R0 (i_k - b_k)``.  Joint estimation of a model parameter in the state vector (Plett, J.
+Power Sources 134 (2004) 277-292, part 3, sec. on joint estimation, cited from memory): the
+identified R0 is that of the pulse test's temperature and age, and on a cold drive the cell's core
+runs ahead of its case sensor while its resistance falls by a third; an R0 that is too high reads
+as a SOC too high (the voltage under load looks higher than the model expects).  Such an error is
+proportional to the current, so a dynamic drive tells it apart from a SOC error (a constant
+offset); benchmarks/generalisation.py gives the effect on every reference case (the README table).  Its ``F`` entry is 1 and its ``G`` entry 0, so the covariance algebra is
+unchanged.
 
 Current-dependent resistance: when the packed tables carry the charge-transfer rows
 (:func:`tab_n_rc`), the first RC pair is driven by ``R_1 u + c(u, T)`` instead of ``R_1 u``::
@@ -43,7 +55,7 @@ vanishes and the filter counts charge with a growing sigma instead of chasing th
 The state exists when ``prm[P_SE] > 0`` and is always the last one (:func:`error_index`).
 
 Resistance uncertainty: the white measurement variance of sample ``k`` is ``R_k = sigma_v^2 +
-(sigma_R i_r)^2`` with ``i_r`` the larger in magnitude of ``i_k`` and ``i_k-1`` (``sigma_R`` =
+(sigma_R i_x)^2`` with ``i_x`` the larger in magnitude of ``i_k`` and ``i_k-1`` (``sigma_R`` =
 ``prm[P_RERR]``, ohm, at 25 degC, scaled with R0 over temperature by :func:`resistance_sigma`): an error in R0 (and in the fast part of the RC response) shows at once when
 the current steps, in proportion to the current, so a voltage under heavy load says less about the
 OCV than one near rest (heteroscedastic noise, common practice, no source).  The previous current
@@ -95,8 +107,9 @@ arithmetic; in float64 the two agree to rounding (tests compare with filterpy's 
 update at 1e-9) at a third of the cost.  The single-precision C export keeps the Joseph form.
 
 Layout of the parameter vector ``prm`` (float64): see the ``P_*`` constants.  The state
-layout is ``[soc, v_rc_1..n, (bias), (h), (m)]`` with ``i_b`` / ``i_h`` the indices of the
-optional states (-1 when absent) and the model-error state ``m`` last when ``prm[P_SE] > 0``.
+layout is ``[soc, v_rc_1..n, (bias), (h), (r), (m)]`` with ``i_b`` / ``i_h`` / ``i_r`` the indices of
+the optional states (-1 when absent), the resistance scale ``r`` before the model-error state and
+the model-error state ``m`` last when ``prm[P_SE] > 0``.
 The exponential cache of the kernels has ``2 n_rc + 3`` entries (``cache_size``).
 """
 from __future__ import annotations
@@ -129,7 +142,9 @@ P_RCERR = 32  # relative sigma of the RC polarisation (measurement_variance)
 P_RERRX = 33  # exponent of the resistance error's temperature axis (resistance_sigma)
 P_R0REF = 34  # R0 of the kernel tables at 50 % SOC, 25 degC, ohm (resistance_sigma)
 P_VCUT = 35   # voltages below this are not used (V): the cut-off plus models.validity.CUTOFF_MARGIN_V
-N_PRM = 36
+P_RSTATE = 36  # 1: the series-resistance scale state r exists (resistance_index), 0: it does not
+P_QR = 37      # random-walk density of r, 1/s
+N_PRM = 38
 DEFAULT_TEMP_C = 25.0
 
 # Consistency monitor (shared by the EKF kernel, the UKF and the exported C code): a running mean
@@ -143,6 +158,9 @@ NIS_LOW = 4.0            # ... healthy again below this (hysteresis of the healt
 ADAPT_CAP = 8.0          # adaptive model-error variance: at most this many times sigma_m^2 added (3 sigma_m)
 P_FLOOR = 1e-12          # diagonal floor of P for estimated states (monitored runs)
 H_MAX = 1.5              # |hysteresis state| above this is not physical (it lives in -1..1)
+R_SCALE_LIMITS = (-0.5, 1.0)  # the resistance-scale state is held to R0 between half and twice its table
+#                               (a voltage fault must not drive it to a negative resistance; common practice,
+#                               no source)
 BIG = 1e30               # |value| at or above this counts as not finite (the C code's float range check)
 # input plausibility (common practice, no source): current within 100 C, voltage within half the
 # model's voltage window beyond either limit, temperature within -60..150 degC
@@ -327,6 +345,15 @@ def error_index(nx, prm):
     return nx - 1 if prm[P_SE] > 0.0 else -1
 
 
+@njit(cache=True, error_model="numpy", inline="always")
+def resistance_index(nx, prm):
+    """Index of the resistance-scale state (just before the model-error state, else last) or -1
+    when it is off (``prm[P_RSTATE] == 0``)."""
+    if not (prm[P_RSTATE] > 0.0):
+        return -1
+    return nx - 2 if prm[P_SE] > 0.0 else nx - 1
+
+
 def cache_size(n_rc: int) -> int:
     """Length of the kernels' exponential cache for ``n_rc`` RC pairs.
 
@@ -344,13 +371,14 @@ def cache_size(n_rc: int) -> int:
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def layout_size(n_rc, i_b, i_h, i_e):
-    """State size of the layout ``[soc, v_rc_1..n_rc, (bias), (h), (m)]`` (absent states have index -1)."""
-    return 1 + n_rc + (1 if i_b >= 0 else 0) + (1 if i_h >= 0 else 0) + (1 if i_e >= 0 else 0)
+def layout_size(n_rc, i_b, i_h, i_r, i_e):
+    """State size of the layout ``[soc, v_rc_1..n_rc, (bias), (h), (r), (m)]`` (absent states have index -1)."""
+    return (1 + n_rc + (1 if i_b >= 0 else 0) + (1 if i_h >= 0 else 0) + (1 if i_r >= 0 else 0)
+            + (1 if i_e >= 0 else 0))
 
 
 def layout(n_x: int, n_rc: int, i_b: int, i_h: int, est_h: bool, prm) -> tuple:
-    """The state layout ``(n_rc, i_b, i_h, i_e, est_h)`` as plain ints, checked against the state size.
+    """The state layout ``(n_rc, i_b, i_h, i_r, i_e, est_h)`` as plain ints, checked against the state size.
 
     Parameters
     ----------
@@ -366,7 +394,8 @@ def layout(n_x: int, n_rc: int, i_b: int, i_h: int, est_h: bool, prm) -> tuple:
     Returns
     -------
     tuple of int
-        ``(n_rc, i_b, i_h, i_e, est_h)`` with ``est_h`` as 0/1.
+        ``(n_rc, i_b, i_h, i_r, i_e, est_h)`` with ``est_h`` as 0/1; the resistance-scale state
+        ``i_r`` exists when ``prm[P_RSTATE] > 0`` (:func:`resistance_index`).
 
     Raises
     ------
@@ -375,10 +404,14 @@ def layout(n_x: int, n_rc: int, i_b: int, i_h: int, est_h: bool, prm) -> tuple:
     """
     n_x, n_rc, i_b, i_h = int(n_x), int(n_rc), int(i_b), int(i_h)
     i_e = n_x - 1 if prm[P_SE] > 0.0 else -1
-    if n_rc < 0 or layout_size(n_rc, i_b, i_h, i_e) != n_x or max(i_b, i_h, i_e) >= n_x:
+    i_r = -1
+    if prm[P_RSTATE] > 0.0:
+        i_r = n_x - 2 if i_e >= 0 else n_x - 1
+    if (n_rc < 0 or layout_size(n_rc, i_b, i_h, i_r, i_e) != n_x or max(i_b, i_h, i_r, i_e) >= n_x
+            or (i_r >= 0 and max(i_b, i_h) >= i_r)):
         raise ValueError(f"state size {n_x} does not match the layout n_rc={n_rc}, i_b={i_b}, i_h={i_h}, "
-                         f"model error {'on' if i_e >= 0 else 'off'}")
-    return n_rc, i_b, i_h, i_e, int(bool(est_h))
+                         f"resistance scale {'on' if i_r >= 0 else 'off'}, model error {'on' if i_e >= 0 else 'off'}")
+    return n_rc, i_b, i_h, i_r, i_e, int(bool(est_h))
 
 
 _SPECIALISED: dict = {}
@@ -397,7 +430,7 @@ def _nb_type(a):
 def specialised(fn, first: int, args: tuple):
     """The compiled ``fn`` for ``args`` with the state layout as compile-time constants.
 
-    ``args[first:first + 5]`` is the layout ``(n_rc, i_b, i_h, i_e, est_h)`` (plain ints, from
+    ``args[first:first + 6]`` is the layout ``(n_rc, i_b, i_h, i_r, i_e, est_h)`` (plain ints, from
     :func:`layout`).  They are typed as numba literals, so every layout gets its own machine code
     (loops over the state with fixed trip counts, branches on absent states folded away) from the
     one source; each is compiled once and kept in numba's on-disk cache (``cache=True``: the literal
@@ -420,7 +453,7 @@ def specialised(fn, first: int, args: tuple):
     compile_ = getattr(fn, "compile", None)
     if compile_ is None:
         return fn
-    lay = args[first:first + 5]
+    lay = args[first:first + 6]
     key = (fn, lay, tuple(_nb_type(a) for a in args))
     hit = _SPECIALISED.get(key)
     if hit is None:
@@ -433,7 +466,7 @@ def specialised(fn, first: int, args: tuple):
 
 
 def _call(fn, head: tuple, n_x: int, n_rc, i_b, i_h, est_h, prm, tail: tuple):
-    """``fn(*head, n_rc, i_b, i_h, i_e, est_h, prm, *tail)`` compiled for this layout (:func:`specialised`)."""
+    """``fn(*head, n_rc, i_b, i_h, i_r, i_e, est_h, prm, *tail)`` compiled for this layout (:func:`specialised`)."""
     args = (*head, *layout(n_x, n_rc, i_b, i_h, est_h, prm), prm, *tail)
     return specialised(fn, len(head), args)(*args)
 
@@ -648,7 +681,7 @@ def ocv_inverse(tab, v, t_c, t_min, t_step):
 
 # ----------------------------------------------------------------------------- model pieces
 @njit(cache=True, error_model="numpy", inline="always")
-def _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache):
+def _transition(tab, n_rc, i_b, i_h, i_r, i_e, prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache):
     """One interval of the sampling rule.
 
     Writes the next state ``xn``, the diagonal ``d`` of ``F`` and the input Jacobian
@@ -702,6 +735,10 @@ def _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u_meas, dt, it0, it1, wt, xn, 
         xn[i_h] = e * h - (1.0 - e) * sg
         d[i_h] = e
         g[i_h] = -(h + sg) * e * k * sg
+    if i_r >= 0:
+        xn[i_r] = min(max(x[i_r], R_SCALE_LIMITS[0]), R_SCALE_LIMITS[1])
+        d[i_r] = 1.0
+        g[i_r] = 0.0
     if i_e >= 0:
         ke = 2 * n_rc + 1
         if same_dt and cache[ke] == cache[ke]:
@@ -716,7 +753,7 @@ def _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u_meas, dt, it0, it1, wt, xn, 
 
 
 @njit(cache=True, error_model="numpy", inline="always")
-def _measure(tab, n_rc, i_b, i_h, i_e, prm, x, i_k, it0, it1, wt, hrow):
+def _measure(tab, n_rc, i_b, i_h, i_r, i_e, prm, x, i_k, it0, it1, wt, hrow):
     """Predicted terminal voltage at state ``x`` and current sample ``i_k``; writes ``H``."""
     z = x[0]
     is0, ws = _soc_index(tab, z)
@@ -730,13 +767,17 @@ def _measure(tab, n_rc, i_b, i_h, i_e, prm, x, i_k, it0, it1, wt, hrow):
     ie = i_k
     if i_b >= 0:
         ie = i_k - x[i_b]
-    y = ocv - r0 * ie
+    rs = r0
+    if i_r >= 0:  # the series resistance R0 (1 + r)
+        rs = r0 * (1.0 + x[i_r])
+        hrow[i_r] = -r0 * ie
+    y = ocv - rs * ie
     hrow[0] = docv  # no -i dR0/dSOC: see the module docstring (Jacobian choice)
     for j in range(n_rc):
         y -= x[1 + j]
         hrow[1 + j] = -1.0
     if i_b >= 0:
-        hrow[i_b] = r0
+        hrow[i_b] = rs
     if i_h >= 0:
         y += prm[P_HM] * x[i_h]
         hrow[i_h] = prm[P_HM]
@@ -747,7 +788,7 @@ def _measure(tab, n_rc, i_b, i_h, i_e, prm, x, i_k, it0, it1, wt, hrow):
 
 
 @njit(cache=True, error_model="numpy")
-def _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q):
+def _qdiag(n_rc, i_b, i_h, i_r, i_e, est_h, prm, q):
     q[0] = prm[P_QSOC]
     for j in range(n_rc):
         q[1 + j] = prm[P_QRC]
@@ -755,6 +796,8 @@ def _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q):
         q[i_b] = prm[P_QB]
     if i_h >= 0:
         q[i_h] = prm[P_QH] if est_h else 0.0
+    if i_r >= 0:
+        q[i_r] = prm[P_QR]
     if i_e >= 0:
         q[i_e] = 0.0  # its noise sigma_m^2 (1 - a_m^2) is not a density: added per interval
 
@@ -812,7 +855,8 @@ def measure(tab, n_rc, i_b, i_h, prm, x, i_k, t_c):
     """Python-callable measurement model: ``(y_pred_v, H)`` at state ``x`` (n_x,)."""
     hrow = np.zeros(x.size)
     it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
-    y = _measure(tab, n_rc, i_b, i_h, error_index(x.size, prm), prm, x, i_k, it0, it1, wt, hrow)
+    y = _measure(tab, n_rc, i_b, i_h, resistance_index(x.size, prm), error_index(x.size, prm), prm, x, i_k,
+                 it0, it1, wt, hrow)
     return y, hrow
 
 
@@ -825,7 +869,8 @@ def transition(tab, n_rc, i_b, i_h, prm, x, u_meas, dt, t_c):
     g = np.zeros(nx)
     cache = np.full(2 * n_rc + 3, np.nan)
     it0, it1, wt = _temp_index(tab, t_c, prm[P_TMIN], prm[P_TSTEP])
-    _transition(tab, n_rc, i_b, i_h, error_index(nx, prm), prm, x, u_meas, dt, it0, it1, wt, xn, d, g, cache)
+    _transition(tab, n_rc, i_b, i_h, resistance_index(nx, prm), error_index(nx, prm), prm, x, u_meas, dt,
+                it0, it1, wt, xn, d, g, cache)
     return xn
 
 
@@ -859,14 +904,15 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
     u = 0.5 * (i_prev + i_next)
     ue = u - x[i_b] if i_b >= 0 else u
     i_e = error_index(nx, prm)
-    _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u, dt, it0, it1, wt, xn, d, g, cache)
+    i_r = resistance_index(nx, prm)
+    _transition(tab, n_rc, i_b, i_h, i_r, i_e, prm, x, u, dt, it0, it1, wt, xn, d, g, cache)
     f = np.zeros((nx, nx))
     for i in range(nx):
         f[i, i] = d[i]
         if i_b >= 0 and i != i_b:
             f[i, i_b] = -g[i]
     q = np.zeros(nx)
-    _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
+    _qdiag(n_rc, i_b, i_h, i_r, i_e, est_h, prm, q)
     gq = g.copy()
     if i_h >= 0 and not est_h:
         gq[i_h] = 0.0
@@ -881,7 +927,7 @@ def linearise(tab, n_rc, i_b, i_h, est_h, prm, x, i_prev, i_next, dt, t_prev, t_
         qm[i_e, i_e] += cache[2 * n_rc + 2]
     hrow = np.zeros(nx)
     it0, it1, wt = _temp_index(tab, t_next, prm[P_TMIN], prm[P_TSTEP])
-    y = _measure(tab, n_rc, i_b, i_h, i_e, prm, xn, i_next, it0, it1, wt, hrow)
+    y = _measure(tab, n_rc, i_b, i_h, i_r, i_e, prm, xn, i_next, it0, it1, wt, hrow)
     return xn, f, g, qm, hrow, y
 
 
@@ -918,11 +964,11 @@ def ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, est_h, pr
 
 
 @njit(cache=True, error_model="numpy")
-def _ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, x0, p0,
+def _ekf_run(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm, x0, p0,
              x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out):
     dummy = np.zeros(1)
     idummy = np.zeros(1, dtype=np.int64)
-    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm,
+    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm,
                      x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
                      False, dummy, dummy, idummy, idummy)
 
@@ -1002,25 +1048,25 @@ def ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
 
 
 @njit(cache=True, error_model="numpy")
-def _ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, x0, p0,
+def _ekf_run_monitored(time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm, x0, p0,
                        base_soc, base_sig, x_out, sig_out, vpred_out, innov_out, s_out, status_out, healthy_out):
     dummy = np.zeros((1, x0.size, x0.size))
-    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm,
+    return _ekf_core(0, time_s.size, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm,
                      x0, p0, x_out, sig_out, vpred_out, innov_out, s_out, False, dummy, dummy, dummy,
                      True, base_soc, base_sig, status_out, healthy_out)
 
 
 @njit(cache=True, error_model="numpy")
-def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, x0, p0,
+def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm, x0, p0,
               x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
               mon, base_soc, base_sig, status_out, healthy_out):
     """The EKF loop over rows ``lo..hi-1`` of the (possibly concatenated) arrays; see :func:`ekf_run`.
 
-    The layout ints ``n_rc, i_b, i_h, i_e, est_h`` are compile-time constants when called through
+    The layout ints ``n_rc, i_b, i_h, i_r, i_e, est_h`` are compile-time constants when called through
     :func:`ekf_run` and its siblings (:func:`specialised`), so the loops over the state have fixed
     trip counts and the branches on absent states fold away.
     """
-    nx = layout_size(n_rc, i_b, i_h, i_e)
+    nx = layout_size(n_rc, i_b, i_h, i_r, i_e)
     x = np.empty(nx)
     p = np.empty((nx, nx))
     for i in range(nx):
@@ -1029,13 +1075,13 @@ def _ekf_core(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             p[i, j] = p0[i, j]
     work = np.zeros((10, nx))   # xn, d, g, hrow, ph, kg, cb, ub, q, qd
     cache = np.full(2 * n_rc + 3, np.nan)
-    return _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, p0,
+    return _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm, p0,
                      x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
                      mon, base_soc, base_sig, status_out, healthy_out, x, p, work, cache)
 
 
 @njit(cache=True, error_model="numpy", _nrt=False)
-def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm, p0,
+def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm, p0,
               x_out, sig_out, vpred_out, innov_out, s_out, store, p_out, ppred_out, f_out,
               mon, base_soc, base_sig, status_out, healthy_out, x, p, work, cache):
     """The loop of :func:`_ekf_core` over the state ``x``, ``p`` and scratch ``work``, ``cache`` it allocated.
@@ -1044,7 +1090,7 @@ def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     helpers inlined into the loop would otherwise count references to the arrays they are handed
     with atomic operations, twenty or so per sample, most of the loop's time.
     """
-    nx = layout_size(n_rc, i_b, i_h, i_e)
+    nx = layout_size(n_rc, i_b, i_h, i_r, i_e)
     xn = work[0]
     d = work[1]
     g = work[2]
@@ -1055,7 +1101,7 @@ def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
     ub = work[7]
     q = work[8]
     qd = work[9]
-    _qdiag(n_rc, i_b, i_h, i_e, est_h, prm, q)
+    _qdiag(n_rc, i_b, i_h, i_r, i_e, est_h, prm, q)
     ke = 2 * n_rc + 2
     ce2 = prm[P_CAPERR] * prm[P_CAPERR]
     se2 = prm[P_SE] * prm[P_SE]
@@ -1099,7 +1145,7 @@ def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
             if run_on:
                 run_s += dt
             ue = u - x[i_b] if i_b >= 0 else u
-            _transition(tab, n_rc, i_b, i_h, i_e, prm, x, u, dt, pt0, pt1, pwt, xn, d, g, cache)
+            _transition(tab, n_rc, i_b, i_h, i_r, i_e, prm, x, u, dt, pt0, pt1, pwt, xn, d, g, cache)
             for i in range(nx):
                 x[i] = xn[i]
                 qd[i] = q[i] * dt
@@ -1196,7 +1242,7 @@ def _ekf_loop(lo, hi, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h,
                     p[j, i] = v
             skip_upd = True
         # measurement
-        y = _measure(tab, n_rc, i_b, i_h, i_e, prm, x, current_a[k], it0, it1, wt, hrow)
+        y = _measure(tab, n_rc, i_b, i_h, i_r, i_e, prm, x, current_a[k], it0, it1, wt, hrow)
         pt0, pt1, pwt = it0, it1, wt
         t_last = tk
         if k > lo:
@@ -1341,7 +1387,7 @@ def ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b,
 
 
 @njit(cache=True, parallel=True, error_model="numpy")
-def _ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, prm,
+def _ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, prm,
                    cap_scale, x0s, p0s, x_out, sig_out, vpred_out, innov_out, s_out, gated_out):
     nrec = offsets.size - 1
     nx = x0s.shape[1]
@@ -1353,7 +1399,7 @@ def _ekf_run_batch(offsets, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b
         b = offsets[r + 1]
         pr = prm.copy()
         pr[P_CAP] = prm[P_CAP] * cap_scale[r]
-        gated_out[r] = _ekf_core(a, b, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_e, est_h, pr,
+        gated_out[r] = _ekf_core(a, b, time_s, current_a, voltage_v, temp_c, tab, n_rc, i_b, i_h, i_r, i_e, est_h, pr,
                                  x0s[r], p0s[r], x_out, sig_out, vpred_out, innov_out, s_out, False, dummy,
                                  dummy, dummy, False, dummy1, dummy1, idummy, idummy)
 

@@ -99,9 +99,10 @@ class Trace:
         return cols
 
 
-def state_names(n_rc: int, bias: bool, hyst: bool, model_error: bool = False) -> tuple:
+def state_names(n_rc: int, bias: bool, hyst: bool, model_error: bool = False, resistance: bool = False) -> tuple:
     return ("soc", *[f"v_rc_{j + 1}_v" for j in range(n_rc)], *(["bias_a"] if bias else []),
-            *(["hyst"] if hyst else []), *(["model_error_v"] if model_error else []))
+            *(["hyst"] if hyst else []), *(["r0_scale"] if resistance else []),
+            *(["model_error_v"] if model_error else []))
 
 
 def make_trace(model, rec, method, soc, soc_sigma, vpred, innov, s, states, n_gated=0, reseeds=(),
