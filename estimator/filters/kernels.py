@@ -26,7 +26,8 @@ runs ahead of its case sensor while its resistance falls by a third; an R0 that 
 as a SOC too high (the voltage under load looks higher than the model expects).  Such an error is
 proportional to the current, so a dynamic drive tells it apart from a SOC error (a constant
 offset); benchmarks/generalisation.py gives the effect on every reference case (the README table).  Its ``F`` entry is 1 and its ``G`` entry 0, so the covariance algebra is
-unchanged.
+unchanged; its mean is held to :data:`R_SCALE_LIMITS` at each prediction (R0 between half and
+twice its table), so a voltage-sensor fault cannot drive it to a negative resistance.
 
 Current-dependent resistance: when the packed tables carry the charge-transfer rows
 (:func:`tab_n_rc`), the first RC pair is driven by ``R_1 u + c(u, T)`` instead of ``R_1 u``::
