@@ -195,7 +195,7 @@ class FilterSettings:
     resistance_error_r0_exponent: float = 0.0
     estimate_resistance: bool = False
     q_resistance_per_s: float = 1e-5
-    p0_resistance: float = 0.2
+    p0_resistance: float = 0.1
 
     def __post_init__(self) -> None:
         for f in fields(self):
